@@ -1,0 +1,603 @@
+//! The `analyze` report: every closed form that applies to a scenario, gathered in one place.
+//!
+//! A planner looking at a scenario wants to know what can be said without simulating: exact group
+//! repayment per arm when the scenario is in the one-factor class (or why it is not), how bad a bad
+//! cycle gets by the hit-share law, how far a village of the scenario's size is from the large-pool
+//! formula, and how the assumed correlation compares with the Basel II retail yardstick. The report
+//! never fails as a whole: each section carries its own reason when it does not apply.
+
+use super::one_factor::{self, OneFactorModel, OneFactorResult};
+use super::{basel, vasicek};
+use crate::scenario::{Liability, Scenario, ShockProbability, ShockScope};
+use serde::Serialize;
+use std::collections::BTreeMap;
+use std::fmt::Write as _;
+
+/// Quantile levels of the per-cycle hit share shown for every hit probability.
+pub const HIT_SHARE_LEVELS: [f64; 4] = [0.5, 0.9, 0.99, 0.999];
+
+/// The one-line caution that ends the terminal table.
+pub const CAUTION: &str =
+    "Caution: these are model estimates for planning; local regulation and client-protection practice come first.";
+
+/// Exact results (or the reason there are none) for one arm.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ArmExact {
+    /// Position of the arm in the scenario.
+    pub index: usize,
+    /// The arm's label.
+    pub label: String,
+    /// Group size k.
+    pub group_size: u32,
+    /// Liability rule.
+    pub liability: Liability,
+    /// Peer cover lambda.
+    pub peer_cover: f64,
+    /// The exact per-cycle results, when computed.
+    pub exact: Option<OneFactorResult>,
+    /// Why this arm has no exact result although the scenario is in the class.
+    pub reason: Option<String>,
+}
+
+/// Which population the hit-share law describes.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum HitShareScope {
+    /// The whole portfolio shares one factor (one village, or no village correlation).
+    Portfolio,
+    /// Villages have their own factors, so only the share within one village is one-factor.
+    PerVillage,
+}
+
+/// The Basel II other-retail yardstick at PD = the hit probability.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct BaselComparison {
+    /// PD used: the per-cycle hit probability.
+    pub pd: f64,
+    /// LGD used: 1 - recovery rate.
+    pub lgd: f64,
+    /// The formula's correlation R(PD).
+    pub basel_correlation: f64,
+    /// The scenario's own factor correlation.
+    pub scenario_correlation: f64,
+    /// 99.9 % conditional hit probability at R(PD).
+    pub conditional_hit_probability: f64,
+    /// The same at the scenario's correlation.
+    pub conditional_hit_probability_at_scenario_rho: f64,
+    /// Capital requirement K at R(PD), per unit of exposure.
+    pub capital_requirement: f64,
+    /// Risk weight 12.5 K at R(PD), per unit of exposure.
+    pub risk_weight: f64,
+    /// K with the scenario's correlation in place of R(PD).
+    pub capital_requirement_at_scenario_rho: f64,
+    /// 12.5 times that.
+    pub risk_weight_at_scenario_rho: f64,
+}
+
+/// The hit-share law at one hit probability.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct HitShareEntry {
+    /// The per-cycle hit probability p.
+    pub p: f64,
+    /// Labels of the arms whose group size gives this p.
+    pub arms: Vec<String>,
+    /// (level, large-pool quantile of the hit share) for each of [`HIT_SHARE_LEVELS`].
+    pub quantiles: Vec<(f64, f64)>,
+    /// Members in the finite pool compared: the largest village.
+    pub finite_members: u32,
+    /// 99.9 % quantile of the hit share among `finite_members` members sharing the factor.
+    pub finite_quantile_999: Option<f64>,
+    /// The large-pool 99.9 % quantile.
+    pub large_pool_quantile_999: f64,
+    /// finite - large-pool, in hit-share units.
+    pub finite_minus_large: Option<f64>,
+    /// Why the finite quantile is missing.
+    pub finite_note: Option<String>,
+    /// The Basel comparison, when the inputs allow it.
+    pub basel: Option<BaselComparison>,
+}
+
+/// The hit-share section: the law of the share of members hit per cycle by one member-scope shock.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct HitShareSection {
+    /// The shock described.
+    pub shock_name: String,
+    /// Which population the law describes.
+    pub scope: HitShareScope,
+    /// The factor correlation the population shares: village + portfolio correlation.
+    pub rho: f64,
+    /// Members of that population (all borrowers, or the largest village).
+    pub population: u32,
+    /// One entry per distinct hit probability across the arms.
+    pub entries: Vec<HitShareEntry>,
+    /// Conditions under which the law holds.
+    pub notes: Vec<String>,
+}
+
+/// Everything [`analyze`] could say about a scenario.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct AnalyzeReport {
+    /// The scenario's name.
+    pub scenario: String,
+    /// Why the scenario is outside the one-factor class, if it is.
+    pub out_of_class: Option<String>,
+    /// The one-factor model, if in class.
+    pub model: Option<OneFactorModel>,
+    /// Per-arm exact results.
+    pub arms: Vec<ArmExact>,
+    /// The hit-share section, when it applies.
+    pub hit_share: Option<HitShareSection>,
+    /// Why the hit-share section does not apply.
+    pub hit_share_reason: Option<String>,
+    /// The caution printed under the table.
+    pub caution: String,
+}
+
+/// Builds the report. Nothing here fails as a whole: each part records its own reason.
+pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
+    let class = one_factor::class_check(scenario);
+    let (model, out_of_class) = match class {
+        Ok(m) => (Some(m), None),
+        Err(e) => (None, Some(e.reason)),
+    };
+    let arms = scenario
+        .arms
+        .iter()
+        .enumerate()
+        .map(|(index, arm)| {
+            let policy = &arm.policy;
+            let computed = model.as_ref().map(|m| {
+                one_factor::group_repayment(m, policy.group_size, policy.liability, policy.peer_cover)
+                    .map_err(|e| e.to_string())
+            });
+            let (exact, reason) = match computed {
+                Some(Ok(r)) => (Some(r), None),
+                Some(Err(e)) => (None, Some(e)),
+                None => (None, None),
+            };
+            ArmExact {
+                index,
+                label: arm.label.clone(),
+                group_size: policy.group_size,
+                liability: policy.liability,
+                peer_cover: policy.peer_cover,
+                exact,
+                reason,
+            }
+        })
+        .collect();
+    let (hit_share, hit_share_reason) = match hit_share_section(scenario) {
+        Ok(section) => (Some(section), None),
+        Err(reason) => (None, Some(reason)),
+    };
+    AnalyzeReport {
+        scenario: scenario.name.clone(),
+        out_of_class,
+        model,
+        arms,
+        hit_share,
+        hit_share_reason,
+        caution: CAUTION.to_string(),
+    }
+}
+
+fn hit_share_section(scenario: &Scenario) -> Result<HitShareSection, String> {
+    let (index, shock) = scenario
+        .shocks
+        .iter()
+        .enumerate()
+        .find(|(_, s)| s.scope == ShockScope::Member)
+        .ok_or_else(|| "the scenario has no member-scope shock, and only those follow a one-factor law".to_string())?;
+    let risk = scenario.risk.fixed_value().ok_or_else(|| {
+        format!(
+            "borrowers.risk is a {} distribution, not fixed, so members' hit probabilities differ and the hit share is a mixture of one-factor laws",
+            scenario.risk.kind_name()
+        )
+    })?;
+    let (v, pc) = (shock.village_correlation, shock.portfolio_correlation);
+    let rho = v + pc;
+    let scope = if scenario.villages > 1 && v > 0.0 {
+        HitShareScope::PerVillage
+    } else {
+        HitShareScope::Portfolio
+    };
+    let village_members = scenario.village_size(0);
+    let population = match scope {
+        HitShareScope::Portfolio => scenario.borrowers,
+        HitShareScope::PerVillage => village_members,
+    };
+    let mut notes = Vec::new();
+    match scope {
+        HitShareScope::Portfolio if scenario.villages > 1 => notes.push(format!(
+            "villages share no factor of their own (village correlation 0), so all {} members share one factor of loading {}",
+            scenario.borrowers,
+            short(rho)
+        )),
+        HitShareScope::Portfolio => {
+            notes.push(format!("one village: all {} members share one factor of loading {}", scenario.borrowers, short(rho)))
+        }
+        HitShareScope::PerVillage => notes.push(format!(
+            "with {} villages and village correlation {}, the portfolio-wide hit share mixes independent village factors and is not a one-factor law; shown: the hit share within one village (members share loading {} + {} = {})",
+            scenario.villages,
+            short(v),
+            short(v),
+            short(pc),
+            short(rho)
+        )),
+    }
+    if scenario.shocks.len() > 1 {
+        notes.push(format!(
+            "shock[{index}] '{}' alone; the scenario's other shocks add further hits",
+            shock.name
+        ));
+    }
+    if !shock.stress.is_empty() {
+        notes.push("holds outside the shock's stress windows, which change p".to_string());
+    }
+    notes.push(format!(
+        "finite pool: the largest village, {village_members} members, at the same loading"
+    ));
+
+    // One entry per distinct hit probability; a curve gives one per distinct group size.
+    let mut by_p: BTreeMap<u64, (f64, Vec<String>)> = BTreeMap::new();
+    let base_p = |k: u32| -> Result<f64, String> {
+        match &shock.probability {
+            ShockProbability::Fixed(p) => Ok(*p),
+            ShockProbability::Curve(c) => c
+                .at(k)
+                .ok_or_else(|| format!("group size {k} is outside the curve's domain ({})", c.domain_text())),
+        }
+    };
+    for arm in &scenario.arms {
+        let p = (risk * base_p(arm.policy.group_size)?).min(1.0);
+        by_p.entry(p.to_bits())
+            .or_insert_with(|| (p, Vec::new()))
+            .1
+            .push(arm.label.clone());
+    }
+    let lgd = 1.0 - scenario.recovery_rate;
+    let mut entries = Vec::new();
+    for (_, (p, arms)) in by_p {
+        let quantiles = HIT_SHARE_LEVELS
+            .iter()
+            .map(|&q| vasicek::quantile(q, p, rho).map(|x| (q, x)))
+            .collect::<Result<Vec<_>, _>>()
+            .map_err(|e| e.to_string())?;
+        let large = vasicek::quantile(0.999, p, rho).map_err(|e| e.to_string())?;
+        let (finite, finite_note) = match vasicek::finite_quantile(0.999, p, rho, village_members) {
+            Ok(x) => (Some(x), None),
+            Err(e) => (None, Some(e.to_string())),
+        };
+        entries.push(HitShareEntry {
+            p,
+            arms,
+            quantiles,
+            finite_members: village_members,
+            finite_quantile_999: finite,
+            large_pool_quantile_999: large,
+            finite_minus_large: finite.map(|f| f - large),
+            finite_note,
+            basel: basel_comparison(p, lgd, rho),
+        });
+    }
+    Ok(HitShareSection {
+        shock_name: shock.name.clone(),
+        scope,
+        rho,
+        population,
+        entries,
+        notes,
+    })
+}
+
+fn basel_comparison(pd: f64, lgd: f64, rho: f64) -> Option<BaselComparison> {
+    let r = basel::retail_correlation(pd).ok()?;
+    let cond = basel::conditional_hit_probability(pd).ok()?;
+    let cond_rho = basel::conditional_hit_probability_at(pd, rho).ok()?;
+    let k = basel::capital_requirement(pd, lgd).ok()?;
+    let k_rho = lgd * (cond_rho - pd);
+    Some(BaselComparison {
+        pd,
+        lgd,
+        basel_correlation: r,
+        scenario_correlation: rho,
+        conditional_hit_probability: cond,
+        conditional_hit_probability_at_scenario_rho: cond_rho,
+        capital_requirement: k,
+        risk_weight: basel::RISK_WEIGHT_MULTIPLIER * k,
+        capital_requirement_at_scenario_rho: k_rho,
+        risk_weight_at_scenario_rho: basel::RISK_WEIGHT_MULTIPLIER * k_rho,
+    })
+}
+
+/// A number with at most six decimals and no trailing zeros, so sums such as 0.1 + 0.05 print as 0.15.
+fn short(x: f64) -> String {
+    let text = format!("{x:.6}");
+    let text = text.trim_end_matches('0').trim_end_matches('.');
+    if text == "-0" {
+        "0".to_string()
+    } else {
+        text.to_string()
+    }
+}
+
+fn liability_name(l: Liability) -> &'static str {
+    match l {
+        Liability::Joint => "joint",
+        Liability::Individual => "individual",
+    }
+}
+
+impl AnalyzeReport {
+    /// A readable terminal table, ending with the one-line caution.
+    pub fn to_table(&self) -> String {
+        let mut out = String::new();
+        let _ = writeln!(out, "Analysis of scenario '{}'", self.scenario);
+        let _ = writeln!(out);
+        let _ = writeln!(out, "Exact per-cycle group repayment (one-factor class)");
+        match (&self.model, &self.out_of_class) {
+            (Some(m), _) => {
+                let prob = match &m.probability {
+                    ShockProbability::Fixed(p) => format!("p = {p}"),
+                    ShockProbability::Curve(c) => format!("p = phi(k), {} curve", c.kind_name()),
+                };
+                let _ = writeln!(
+                    out,
+                    "  in class: shock '{}' ({prob}, severity {}), income ratio {}, risk {}, rho = {}",
+                    m.shock_name,
+                    short(m.severity),
+                    short(m.income_ratio),
+                    short(m.risk),
+                    short(m.rho())
+                );
+                let width = self
+                    .arms
+                    .iter()
+                    .map(|a| a.label.chars().count())
+                    .max()
+                    .unwrap_or(3)
+                    .max(3);
+                let _ = writeln!(
+                    out,
+                    "  {:<width$} {:>6} {:<10} {:>6} {:>9} {:>10} {:>11} {:>10} {:>9}",
+                    "arm", "k", "liability", "cover", "P(hit)", "P(repay)", "P(short)", "iid", "x*"
+                );
+                for arm in &self.arms {
+                    match (&arm.exact, &arm.reason) {
+                        (Some(r), _) => {
+                            let x = r
+                                .class_optimum
+                                .map_or_else(|| "none".to_string(), |x| format!("{x:.3}"));
+                            let _ = writeln!(
+                                out,
+                                "  {:<width$} {:>6} {:<10} {:>6.2} {:>9.6} {:>10.6} {:>11.6} {:>10.6} {:>9}",
+                                arm.label,
+                                arm.group_size,
+                                liability_name(arm.liability),
+                                arm.peer_cover,
+                                r.hit_probability,
+                                r.group_repayment,
+                                r.member_shortfall,
+                                r.iid_group_repayment,
+                                x
+                            );
+                        }
+                        (None, Some(reason)) => {
+                            let _ = writeln!(out, "  {:<width$} not computed: {reason}", arm.label);
+                        }
+                        (None, None) => {}
+                    }
+                }
+                let _ = writeln!(
+                    out,
+                    "  P(short): a member's own shortfall probability; iid: (1 - P(short))^k, what independence would give; x*: the class's closed-form best size (1: the smallest group)"
+                );
+            }
+            (None, Some(reason)) => {
+                let _ = writeln!(out, "  out of class: {reason}");
+            }
+            (None, None) => {}
+        }
+        let _ = writeln!(out);
+        match (&self.hit_share, &self.hit_share_reason) {
+            (Some(section), _) => {
+                let whom = match section.scope {
+                    HitShareScope::Portfolio => format!("whole portfolio of {} members", section.population),
+                    HitShareScope::PerVillage => format!("within one village of {} members", section.population),
+                };
+                let _ = writeln!(
+                    out,
+                    "Share of members hit per cycle by shock '{}' ({whom}, rho = {})",
+                    section.shock_name,
+                    short(section.rho)
+                );
+                for note in &section.notes {
+                    let _ = writeln!(out, "  note: {note}");
+                }
+                for e in &section.entries {
+                    let _ = writeln!(out, "  p = {:.6} (arms: {})", e.p, e.arms.join(", "));
+                    let levels: Vec<String> = e
+                        .quantiles
+                        .iter()
+                        .map(|(q, _)| format!("{:>9}", format!("{}%", q * 100.0)))
+                        .collect();
+                    let values: Vec<String> = e.quantiles.iter().map(|(_, x)| format!("{x:>9.6}")).collect();
+                    let _ = writeln!(out, "    large-pool quantile {}", levels.join(" "));
+                    let _ = writeln!(out, "    hit share           {}", values.join(" "));
+                    match (e.finite_quantile_999, e.finite_minus_large, &e.finite_note) {
+                        (Some(f), Some(gap), _) => {
+                            let _ = writeln!(
+                                out,
+                                "    99.9% quantile, {} members: {f:.6} vs large pool {:.6} ({gap:+.6})",
+                                e.finite_members, e.large_pool_quantile_999
+                            );
+                        }
+                        (_, _, Some(note)) => {
+                            let _ = writeln!(out, "    finite-pool quantile not computed: {note}");
+                        }
+                        _ => {}
+                    }
+                    if let Some(b) = &e.basel {
+                        let _ = writeln!(
+                            out,
+                            "    Basel II other retail at PD = p, LGD = {:.2}: R(PD) = {:.4} vs scenario rho {:.4}",
+                            b.lgd, b.basel_correlation, b.scenario_correlation
+                        );
+                        let _ = writeln!(
+                            out,
+                            "      99.9% conditional hit probability {:.6} (at scenario rho {:.6}); K = {:.6}, risk weight {:.2}% (at scenario rho: K = {:.6}, {:.2}%)",
+                            b.conditional_hit_probability,
+                            b.conditional_hit_probability_at_scenario_rho,
+                            b.capital_requirement,
+                            100.0 * b.risk_weight,
+                            b.capital_requirement_at_scenario_rho,
+                            100.0 * b.risk_weight_at_scenario_rho
+                        );
+                    }
+                }
+                let _ = writeln!(
+                    out,
+                    "  Basel figures treat one cycle as the one-year horizon and a hit as a default (true when a hit leaves a shortfall nobody covers); no 1.06 scaling, no PD floor"
+                );
+            }
+            (None, reason) => {
+                let reason = reason.as_deref().unwrap_or("no reason recorded");
+                let _ = writeln!(out, "Share of members hit per cycle: not shown: {reason}");
+            }
+        }
+        let _ = writeln!(out);
+        let _ = writeln!(out, "{}", self.caution);
+        out
+    }
+
+    /// The report as pretty-printed JSON.
+    pub fn to_json(&self) -> String {
+        serde_json::to_string_pretty(self)
+            .unwrap_or_else(|e| format!("{{\"error\": \"cannot serialise the report: {e}\"}}"))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::curve::GroupSizeCurve;
+    use crate::dist::Distribution;
+    use crate::scenario::{Arm, Policy, Shock};
+
+    fn scenario(villages: u32, village_corr: f64) -> Scenario {
+        let mut joint = Policy::default_policy();
+        joint.peer_cover = 0.5;
+        let mut individual = Policy::default_policy();
+        individual.liability = Liability::Individual;
+        Scenario {
+            name: "report".into(),
+            seed: 7,
+            replications: 1,
+            cycles: 10,
+            warmup_cycles: 0,
+            borrowers: 400,
+            villages,
+            principal: 100.0,
+            interest_rate: 0.2,
+            recovery_rate: 0.25,
+            income: Distribution::fixed(1.4).unwrap(),
+            risk: Distribution::fixed(1.0).unwrap(),
+            shocks: vec![Shock {
+                name: "drought".into(),
+                scope: ShockScope::Member,
+                probability: ShockProbability::Fixed(0.05),
+                village_correlation: village_corr,
+                portfolio_correlation: 0.05,
+                reach: 1.0,
+                severity: Distribution::fixed(0.7).unwrap(),
+                stress: vec![],
+            }],
+            dropout: 0.0,
+            replace_departures: true,
+            swept_fields: vec!["peer_cover".into()],
+            arms: vec![
+                Arm {
+                    label: "joint".into(),
+                    policy: joint,
+                },
+                Arm {
+                    label: "individual".into(),
+                    policy: individual,
+                },
+            ],
+        }
+    }
+
+    #[test]
+    fn in_class_scenario_gets_every_section() {
+        let report = analyze(&scenario(1, 0.1));
+        assert!(report.out_of_class.is_none());
+        assert_eq!(report.arms.len(), 2);
+        let joint = report.arms[0].exact.as_ref().unwrap();
+        let individual = report.arms[1].exact.as_ref().unwrap();
+        assert!(joint.group_repayment > individual.group_repayment);
+        let section = report.hit_share.as_ref().unwrap();
+        assert_eq!(section.scope, HitShareScope::Portfolio);
+        assert_eq!(section.population, 400);
+        assert!((section.rho - 0.15).abs() < 1e-15);
+        assert_eq!(section.entries.len(), 1);
+        let e = &section.entries[0];
+        assert_eq!(e.arms, vec!["joint", "individual"]);
+        assert_eq!(e.quantiles.len(), 4);
+        assert!(e.quantiles.windows(2).all(|w| w[0].1 < w[1].1));
+        assert!(e.finite_minus_large.unwrap() > 0.0);
+        let b = e.basel.as_ref().unwrap();
+        assert!((b.lgd - 0.75).abs() < 1e-15);
+        assert!(b.basel_correlation < 0.16 && b.basel_correlation > 0.03);
+        let table = report.to_table();
+        assert!(table.trim_end().ends_with(CAUTION), "{table}");
+        assert!(table.contains("in class") && table.contains("99.9% quantile, 400 members"));
+        let json: serde_json::Value = serde_json::from_str(&report.to_json()).unwrap();
+        assert_eq!(json["hit_share"]["scope"], "portfolio");
+        assert!(json["hit_share_reason"].is_null());
+    }
+
+    #[test]
+    fn several_correlated_villages_show_the_per_village_law() {
+        let report = analyze(&scenario(4, 0.1));
+        let section = report.hit_share.as_ref().unwrap();
+        assert_eq!(section.scope, HitShareScope::PerVillage);
+        assert_eq!(section.population, 100);
+        assert!(section.notes[0].contains("not a one-factor law"));
+        let flat = analyze(&scenario(4, 0.0));
+        let section = flat.hit_share.as_ref().unwrap();
+        assert_eq!(section.scope, HitShareScope::Portfolio);
+        assert_eq!(section.population, 400);
+        assert_eq!(section.entries[0].finite_members, 100);
+    }
+
+    #[test]
+    fn out_of_class_scenario_says_why_and_still_shows_the_law() {
+        let mut s = scenario(1, 0.1);
+        s.income = Distribution::lognormal(1.4, 0.3).unwrap();
+        let report = analyze(&s);
+        assert_eq!(
+            report.out_of_class.as_deref(),
+            Some("borrowers.income is a lognormal distribution, not fixed")
+        );
+        assert!(report.arms.iter().all(|a| a.exact.is_none()));
+        assert!(report.hit_share.is_some());
+        assert!(report.to_table().contains("out of class: borrowers.income"));
+        s.risk = Distribution::gamma(1.0, 0.4).unwrap();
+        let report = analyze(&s);
+        assert!(report.hit_share_reason.as_deref().unwrap().contains("borrowers.risk"));
+        assert!(report.to_table().trim_end().ends_with(CAUTION));
+    }
+
+    #[test]
+    fn curve_probability_gives_one_entry_per_group_size() {
+        let mut s = scenario(1, 0.1);
+        s.shocks[0].probability = ShockProbability::Curve(GroupSizeCurve::power_plus_log(0.5).unwrap());
+        s.arms[1].policy.group_size = 8;
+        let report = analyze(&s);
+        let section = report.hit_share.as_ref().unwrap();
+        assert_eq!(section.entries.len(), 2);
+        let x = report.arms[0].exact.as_ref().unwrap().class_optimum.unwrap();
+        assert!((x - 5.135).abs() < 1e-3);
+    }
+}

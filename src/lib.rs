@@ -1,0 +1,19 @@
+//! loancycle: Monte Carlo simulation of repeated joint-liability loan cycles.
+//!
+//! All computation lives in this library; the `loancycle` binary only parses arguments and prints.
+//! Layout: `scenario` (file format and validation), `engine` (one replication of one arm, random
+//! streams), `stats` (mergeable per-replication tallies and interval estimates), `analytic` (closed
+//! forms of the independent-borrower and one-factor models), `output` (writers that turn finished
+//! results into bytes), `run` (orchestration across replications and threads).
+
+pub mod curve;
+pub mod dist;
+pub mod scenario;
+pub mod engine;
+pub mod stats;
+pub mod analytic;
+pub mod output;
+pub mod companion;
+pub mod report;
+pub mod run;
+pub mod demo;

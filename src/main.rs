@@ -1,0 +1,145 @@
+//! The `loancycle` command: parses arguments, calls the library, prints. No computation here.
+
+use clap::{Parser, Subcommand};
+use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
+use loancycle::output::{self, terminal};
+use loancycle::scenario::Scenario;
+use loancycle::{demo, report, run};
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+/// Monte Carlo simulation of repeated joint-liability loan cycles.
+#[derive(Parser)]
+#[command(name = "loancycle", version, about, long_about = None)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand)]
+enum Command {
+    /// Simulate a scenario (the built-in baseline demo when no file is given) and write results.
+    Run {
+        /// Scenario file (TOML).
+        file: Option<PathBuf>,
+        /// Directory for summary.csv, timeseries.csv and summary.json.
+        #[arg(long, default_value = "results/")]
+        out: PathBuf,
+        /// Replications, overriding the file.
+        #[arg(long, value_parser = clap::value_parser!(u32).range(1..))]
+        replications: Option<u32>,
+        /// Master seed, overriding the file.
+        #[arg(long)]
+        seed: Option<u64>,
+        /// Worker threads (default: all cores); results do not depend on it.
+        #[arg(long, value_parser = clap::value_parser!(u16).range(1..))]
+        threads: Option<u16>,
+        /// No progress bar and no table.
+        #[arg(long)]
+        quiet: bool,
+        /// Replace results already in the output directory.
+        #[arg(long)]
+        force: bool,
+    },
+    /// Validate a scenario file and list the arms it resolves to, without simulating.
+    Check {
+        /// Scenario file (TOML).
+        file: PathBuf,
+    },
+    /// Print the built-in baseline scenario, a starting point for your own file.
+    DemoScenario,
+}
+
+/// Exit code for invalid input (scenario, flags, output directory).
+const BAD_INPUT: u8 = 2;
+
+fn load(file: Option<&PathBuf>) -> Result<(Scenario, String, String), String> {
+    match file {
+        Some(path) => Scenario::load(path).map(|(s, text)| (s, text, path.display().to_string())).map_err(|e| e.to_string()),
+        None => Scenario::from_toml_str(demo::BASELINE, demo::BASELINE_ORIGIN)
+            .map(|s| (s, demo::BASELINE.to_string(), demo::BASELINE_ORIGIN.to_string()))
+            .map_err(|e| e.to_string()),
+    }
+}
+
+fn main() -> ExitCode {
+    let cli = Cli::parse();
+    match cli.command {
+        Command::DemoScenario => {
+            print!("{}", demo::BASELINE);
+            ExitCode::SUCCESS
+        }
+        Command::Check { file } => match load(Some(&file)) {
+            Ok((scenario, _, origin)) => {
+                print!("{}", terminal::arms_listing(&scenario, &origin));
+                ExitCode::SUCCESS
+            }
+            Err(e) => {
+                eprintln!("error: {e}");
+                ExitCode::from(BAD_INPUT)
+            }
+        },
+        Command::Run { file, out, replications, seed, threads, quiet, force } => {
+            let (mut scenario, text, origin) = match load(file.as_ref()) {
+                Ok(x) => x,
+                Err(e) => {
+                    eprintln!("error: {e}");
+                    return ExitCode::from(BAD_INPUT);
+                }
+            };
+            if file.is_none() && !quiet {
+                eprintln!("no scenario file given: running the built-in baseline demo ({origin})");
+            }
+            if let Err(e) = output::check_destination(&out, force) {
+                eprintln!("error: {e}");
+                return ExitCode::from(BAD_INPUT);
+            }
+            run::apply_overrides(&mut scenario, replications, seed);
+            let tasks = u64::from(scenario.replications) * scenario.arms.len() as u64;
+            let bar = if quiet { ProgressBar::with_draw_target(Some(tasks), ProgressDrawTarget::hidden()) } else { ProgressBar::new(tasks) };
+            bar.set_style(
+                ProgressStyle::with_template("{elapsed_precise} [{bar:40}] {pos}/{len} replication-arms ({eta} left)")
+                    .unwrap_or_else(|_| ProgressStyle::default_bar())
+                    .progress_chars("=> "),
+            );
+            let started = std::time::Instant::now();
+            let options = run::RunOptions { threads: threads.map(usize::from) };
+            let results = match run::simulate(&scenario, options, &mut |done| bar.set_position(done)) {
+                Ok(r) => r,
+                Err(e) => {
+                    bar.finish_and_clear();
+                    eprintln!("error: {e}");
+                    return ExitCode::FAILURE;
+                }
+            };
+            bar.finish_and_clear();
+            let seconds = started.elapsed().as_secs_f64();
+            let report = report::build(&scenario, &text, &origin, &results);
+            match output::write_all(&out, &report, force) {
+                Ok(paths) => {
+                    if !quiet {
+                        print!("{}", terminal::summary_table(&report));
+                        for p in paths {
+                            println!("wrote {}", p.display());
+                        }
+                        eprintln!(
+                            "simulated {} served member-cycles in {:.2} s ({:.1} million per second)",
+                            results.served_member_cycles,
+                            seconds,
+                            results.served_member_cycles as f64 / seconds / 1e6
+                        );
+                    } else {
+                        for w in &report.warnings {
+                            eprintln!("warning: {w}");
+                        }
+                    }
+                    ExitCode::SUCCESS
+                }
+                Err(e) => {
+                    eprintln!("error: {e}");
+                    ExitCode::from(BAD_INPUT)
+                }
+            }
+        }
+    }
+}

@@ -1,0 +1,72 @@
+//! Writers: turn a finished `RunReport` into bytes (CSV, JSON, terminal text) and put files in place
+//! atomically. They compute nothing: every figure comes from the report.
+
+pub mod tables;
+pub mod terminal;
+
+use crate::report::RunReport;
+use std::path::{Path, PathBuf};
+
+/// Files a run writes into its output directory.
+pub const OUTPUT_FILES: [&str; 3] = ["summary.csv", "timeseries.csv", "summary.json"];
+
+/// Why outputs could not be written.
+#[derive(Debug, thiserror::Error)]
+pub enum OutputError {
+    /// The directory already holds results and `--force` was not given.
+    #[error("output directory {dir} already holds results ({file}); choose another --out or pass --force to replace them")]
+    WouldOverwrite { dir: String, file: String },
+    /// The path exists and is not a directory.
+    #[error("output path {0} exists and is not a directory")]
+    NotADirectory(String),
+    /// A filesystem operation failed.
+    #[error("cannot write {path}: {reason}")]
+    Io { path: String, reason: String },
+}
+
+fn io_error(path: &Path, e: std::io::Error) -> OutputError {
+    OutputError::Io { path: path.display().to_string(), reason: e.to_string().to_lowercase() }
+}
+
+/// Checks, before any simulation, that results may be written to `dir`.
+pub fn check_destination(dir: &Path, force: bool) -> Result<(), OutputError> {
+    if dir.exists() && !dir.is_dir() {
+        return Err(OutputError::NotADirectory(dir.display().to_string()));
+    }
+    if !force {
+        for name in OUTPUT_FILES {
+            if dir.join(name).exists() {
+                return Err(OutputError::WouldOverwrite { dir: dir.display().to_string(), file: name.to_string() });
+            }
+        }
+    }
+    Ok(())
+}
+
+/// Writes `bytes` to `dir/name` through a temporary file renamed into place, so a reader never
+/// sees a half-written file.
+pub fn write_atomically(dir: &Path, name: &str, bytes: &[u8]) -> Result<PathBuf, OutputError> {
+    let final_path = dir.join(name);
+    let tmp = dir.join(format!(".{name}.partial-{}", std::process::id()));
+    std::fs::write(&tmp, bytes).map_err(|e| io_error(&tmp, e))?;
+    std::fs::rename(&tmp, &final_path).map_err(|e| {
+        let _ = std::fs::remove_file(&tmp);
+        io_error(&final_path, e)
+    })?;
+    Ok(final_path)
+}
+
+/// Writes summary.csv, timeseries.csv and summary.json into `dir` (created if missing).
+pub fn write_all(dir: &Path, report: &RunReport, force: bool) -> Result<Vec<PathBuf>, OutputError> {
+    check_destination(dir, force)?;
+    std::fs::create_dir_all(dir).map_err(|e| io_error(dir, e))?;
+    // Render everything first so a rendering problem cannot leave a partial set of files.
+    let summary = tables::summary_csv(report);
+    let series = tables::timeseries_csv(report);
+    let json = tables::summary_json(report);
+    Ok(vec![
+        write_atomically(dir, "summary.csv", &summary)?,
+        write_atomically(dir, "timeseries.csv", &series)?,
+        write_atomically(dir, "summary.json", &json)?,
+    ])
+}

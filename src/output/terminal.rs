@@ -1,0 +1,99 @@
+//! The short readable table printed at the end of a run.
+
+use crate::report::RunReport;
+use std::fmt::Write;
+
+fn pct(x: Option<f64>) -> String {
+    x.map_or_else(|| "-".into(), |v| format!("{:.2}%", 100.0 * v))
+}
+
+/// A table of the main figures per arm, the best arm, warnings and the caution.
+pub fn summary_table(report: &RunReport) -> String {
+    let mut out = String::new();
+    let name = if report.scenario.name.is_empty() { "(unnamed scenario)" } else { &report.scenario.name };
+    let _ = writeln!(out, "{name}: {} replications x {} counted cycles, seed {}", report.scenario.replications, report.scenario.cycles, report.seed);
+    let width = report.arms.iter().map(|a| a.arm.label.len()).max().unwrap_or(3).max(3);
+    let _ = writeln!(
+        out,
+        "{:<width$}  {:>18}  {:>9}  {:>9}  {:>18}  {:>9}  {:>9}  {:>9}",
+        "arm", "group repaid (95%)", "iid pred.", "exact", "loss rate (95%)", "loss p99", "served", "excluded"
+    );
+    for a in &report.arms {
+        let s = &a.summary;
+        let g = s.group_repayment.map_or("-".into(), |g| match g.standard_error {
+            Some(se) => format!("{:.2}% ±{:.2}", 100.0 * g.rate, 100.0 * 1.959964 * se),
+            None => format!("{:.2}%", 100.0 * g.rate),
+        });
+        let l = s.loss_rate.map_or("-".into(), |l| match l.standard_error {
+            Some(se) => format!("{:.3}% ±{:.3}", 100.0 * l.rate, 100.0 * 1.959964 * se),
+            None => format!("{:.3}%", 100.0 * l.rate),
+        });
+        let _ = writeln!(
+            out,
+            "{:<width$}  {:>18}  {:>9}  {:>9}  {:>18}  {:>9}  {:>9}  {:>9}",
+            a.arm.label,
+            g,
+            pct(s.iid_group_repayment),
+            pct(a.analytic_group_repayment),
+            l,
+            pct(s.loss_p99),
+            pct(s.served_share),
+            pct(s.excluded_share)
+        );
+    }
+    if let Some(b) = &report.best {
+        let _ = writeln!(out, "best arm by group repayment: {} (group size {})", b.label, b.group_size);
+        if report.scenario.arms.len() > 1 {
+            let sizes: Vec<String> = b.confidence_set_group_sizes.iter().map(|k| k.to_string()).collect();
+            let _ = writeln!(
+                out,
+                "not significantly worse (paired by replication, 95%, Bonferroni): {} (group sizes {})",
+                b.confidence_set.join("; "),
+                sizes.join(", ")
+            );
+        }
+    } else {
+        let _ = writeln!(out, "no arm served any group in its counted cycles");
+    }
+    for w in &report.warnings {
+        let _ = writeln!(out, "warning: {w}");
+    }
+    let _ = writeln!(out, "{}", report.caution);
+    out
+}
+
+/// What `check` prints: the scenario's size and the arms it resolves to.
+pub fn arms_listing(scenario: &crate::scenario::Scenario, origin: &str) -> String {
+    use crate::output::tables::{exclusion_scope_name, formation_name, liability_name, matching_name};
+    let mut out = String::new();
+    let _ = writeln!(out, "{origin}: valid scenario \"{}\"", scenario.name);
+    let _ = writeln!(
+        out,
+        "{} borrowers in {} villages, {} replications x ({} warm-up + {} counted) cycles, {} shocks, seed {}",
+        scenario.borrowers,
+        scenario.villages,
+        scenario.replications,
+        scenario.warmup_cycles,
+        scenario.cycles,
+        scenario.shocks.len(),
+        scenario.seed
+    );
+    let _ = writeln!(out, "{} arm(s):", scenario.arms.len());
+    for (i, a) in scenario.arms.iter().enumerate() {
+        let p = &a.policy;
+        let _ = writeln!(
+            out,
+            "  {:>3}  {:<32} k={} {} cover={} exclusion={} ({}) {} {}",
+            i + 1,
+            a.label,
+            p.group_size,
+            liability_name(p.liability),
+            p.peer_cover,
+            p.exclusion_cycles,
+            exclusion_scope_name(p.exclusion_scope),
+            formation_name(p.formation),
+            matching_name(p.matching)
+        );
+    }
+    out
+}

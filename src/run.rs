@@ -1,0 +1,74 @@
+//! Orchestration: replications and arms across threads, merged in replication order.
+//!
+//! Each (replication, arm) is an independent task whose result depends only on the scenario and
+//! the indices, so the thread count changes speed but never a figure.
+
+use crate::engine;
+use crate::scenario::Scenario;
+use crate::stats::{ArmTally, ReplicationTally};
+use rayon::prelude::*;
+
+/// Options of a simulation run.
+#[derive(Debug, Clone, Copy, Default)]
+pub struct RunOptions {
+    /// Worker threads; `None` uses every core.
+    pub threads: Option<usize>,
+}
+
+/// Why a run could not start.
+#[derive(Debug, thiserror::Error)]
+pub enum RunError {
+    /// The thread pool could not be built.
+    #[error("cannot start {threads} worker threads: {reason}")]
+    ThreadPool { threads: usize, reason: String },
+}
+
+/// What a run produced: one tally per arm, in arm order.
+#[derive(Debug, Clone)]
+pub struct RunResults {
+    /// Tallies, indexed like `scenario.arms`.
+    pub arms: Vec<ArmTally>,
+    /// Member-cycles served in counted cycles, over all arms and replications.
+    pub served_member_cycles: u64,
+}
+
+/// Simulates every replication of every arm. `progress` is called with the number of finished
+/// (replication, arm) tasks after each batch, from the calling thread.
+pub fn simulate(scenario: &Scenario, options: RunOptions, progress: &mut dyn FnMut(u64)) -> Result<RunResults, RunError> {
+    let threads = options.threads.unwrap_or_else(|| std::thread::available_parallelism().map_or(1, |n| n.get()));
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(threads)
+        .build()
+        .map_err(|e| RunError::ThreadPool { threads, reason: e.to_string() })?;
+    let arms = scenario.arms.len();
+    let mut tallies = vec![ArmTally::default(); arms];
+    // Batches bound memory in flight and give the progress bar something to show.
+    let batch_replications = (threads * 4).max(1) as u32;
+    let mut done = 0u64;
+    let mut first = 0u32;
+    while first < scenario.replications {
+        let last = (first + batch_replications).min(scenario.replications);
+        let tasks: Vec<(u32, usize)> = (first..last).flat_map(|r| (0..arms).map(move |a| (r, a))).collect();
+        let results: Vec<ReplicationTally> =
+            pool.install(|| tasks.par_iter().map(|&(r, a)| engine::simulate_replication(scenario, a, r)).collect());
+        for ((_, a), tally) in tasks.iter().zip(results) {
+            tallies[*a].push(tally);
+        }
+        done += tasks.len() as u64;
+        progress(done);
+        first = last;
+    }
+    let served_member_cycles = tallies.iter().flat_map(|t| &t.replications).map(|r| r.served_slot_cycles).sum();
+    Ok(RunResults { arms: tallies, served_member_cycles })
+}
+
+/// Applies command-line overrides of the replication count and seed to a validated scenario.
+/// Zero replications cannot reach here: the command line refuses it.
+pub fn apply_overrides(scenario: &mut Scenario, replications: Option<u32>, seed: Option<u64>) {
+    if let Some(r) = replications {
+        scenario.replications = r.max(1);
+    }
+    if let Some(s) = seed {
+        scenario.seed = s;
+    }
+}

@@ -1,0 +1,117 @@
+//! Estimators computed from independent replications.
+
+use crate::stats::tolerance::Z_95;
+
+/// A pooled ratio estimate with its 95% interval from between-replication variation.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct RatioEstimate {
+    /// Sum of numerators over sum of denominators.
+    pub rate: f64,
+    /// Delta-method standard error, `None` with fewer than 2 replications.
+    pub standard_error: Option<f64>,
+}
+
+impl RatioEstimate {
+    /// Lower end of the 95% interval (not clamped).
+    pub fn ci_low(&self) -> Option<f64> {
+        self.standard_error.map(|se| self.rate - Z_95 * se)
+    }
+
+    /// Upper end of the 95% interval (not clamped).
+    pub fn ci_high(&self) -> Option<f64> {
+        self.standard_error.map(|se| self.rate + Z_95 * se)
+    }
+}
+
+/// The pooled ratio sum(x) / sum(y) over replications, with the ratio-estimator (delta-method)
+/// standard error sqrt(sum (x_i - R y_i)^2 / (n (n - 1))) / mean(y) (Cochran, Sampling Techniques,
+/// ch. 6). `None` when the pooled denominator is zero.
+pub fn ratio(pairs: impl IntoIterator<Item = (f64, f64)>) -> Option<RatioEstimate> {
+    let pairs: Vec<(f64, f64)> = pairs.into_iter().collect();
+    let n = pairs.len();
+    let (sx, sy) = pairs.iter().fold((0.0, 0.0), |(a, b), &(x, y)| (a + x, b + y));
+    if sy == 0.0 {
+        return None;
+    }
+    let rate = sx / sy;
+    let standard_error = (n >= 2).then(|| {
+        let ybar = sy / n as f64;
+        let ss: f64 = pairs.iter().map(|&(x, y)| (x - rate * y).powi(2)).sum();
+        (ss / (n as f64 * (n as f64 - 1.0))).sqrt() / ybar
+    });
+    Some(RatioEstimate { rate, standard_error })
+}
+
+/// Mean and standard error of independent values; `None` when empty.
+pub fn mean_and_se(values: &[f64]) -> Option<(f64, Option<f64>)> {
+    if values.is_empty() {
+        return None;
+    }
+    let n = values.len() as f64;
+    let mean = values.iter().sum::<f64>() / n;
+    let se = (values.len() >= 2).then(|| (values.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n - 1.0) / n).sqrt());
+    Some((mean, se))
+}
+
+/// The q-quantile of sorted values by linear interpolation between order statistics (Hyndman and
+/// Fan type 7, the default of R and NumPy). `None` when fewer than 1 / (1 - q) values exist.
+pub fn quantile_sorted(sorted: &[f64], q: f64) -> Option<f64> {
+    let n = sorted.len();
+    if n == 0 || (n as f64) < (1.0 / (1.0 - q)).round() {
+        return None;
+    }
+    let h = (n as f64 - 1.0) * q;
+    let lo = h.floor() as usize;
+    let hi = (lo + 1).min(n - 1);
+    Some(sorted[lo] + (h - lo as f64) * (sorted[hi] - sorted[lo]))
+}
+
+/// Expected shortfall at level q: the mean of the values at or above the q-quantile.
+pub fn expected_shortfall_sorted(sorted: &[f64], q: f64) -> Option<f64> {
+    let threshold = quantile_sorted(sorted, q)?;
+    let tail: Vec<f64> = sorted.iter().copied().filter(|&v| v >= threshold).collect();
+    if tail.is_empty() { None } else { Some(tail.iter().sum::<f64>() / tail.len() as f64) }
+}
+
+/// Sorts a copy of the values in ascending order (NaN never occurs: rates are finite by design).
+pub fn sorted(values: &[f64]) -> Vec<f64> {
+    let mut v = values.to_vec();
+    v.sort_by(f64::total_cmp);
+    v
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    // Reference: numpy.quantile (method "linear", the default) on [1, 2, ..., 10] at 0.95 gives 9.55.
+    #[test]
+    fn quantiles_interpolate_like_type_7() {
+        let v: Vec<f64> = (1..=20).map(f64::from).collect();
+        // numpy.quantile(range(1, 21), 0.95) = 19.05
+        assert!((quantile_sorted(&v, 0.95).unwrap() - 19.05).abs() < 1e-12);
+        assert!((quantile_sorted(&v, 0.5).unwrap() - 10.5).abs() < 1e-12);
+        // 20 values cannot support a 99% quantile
+        assert_eq!(quantile_sorted(&v, 0.99), None);
+        assert_eq!(quantile_sorted(&[1.0], 0.5), None);
+    }
+
+    #[test]
+    fn expected_shortfall_averages_the_tail() {
+        let v: Vec<f64> = (1..=100).map(f64::from).collect();
+        // 99% quantile = 99.01; values at or above: just 100
+        assert_eq!(expected_shortfall_sorted(&v, 0.99), Some(100.0));
+    }
+
+    #[test]
+    fn ratio_estimator_matches_hand_computation() {
+        let pairs = [(1.0, 10.0), (2.0, 10.0), (3.0, 20.0)];
+        let r = ratio(pairs).unwrap();
+        assert!((r.rate - 0.15).abs() < 1e-15);
+        // residuals: 1-1.5, 2-1.5, 3-3 -> 0.25 + 0.25 + 0 = 0.5; /(3*2) = 1/12; sqrt / ybar(40/3)
+        let se = (0.5f64 / 6.0).sqrt() / (40.0 / 3.0);
+        assert!((r.standard_error.unwrap() - se).abs() < 1e-15);
+        assert_eq!(ratio([(0.0, 0.0)]), None);
+        assert_eq!(ratio([(1.0, 2.0)]).unwrap().standard_error, None);
+    }
+}

@@ -1,0 +1,13 @@
+//! Statistics: per-replication tallies, their mergeable accumulator, and the estimators (pooled
+//! rates with delta-method intervals, order-statistic quantiles) computed from them.
+//!
+//! Every interval comes from variation between independent replications: group-cycles within one
+//! replication share village factors and members, so treating them as independent would understate
+//! the error.
+
+pub mod estimate;
+pub mod summary;
+pub mod tally;
+pub mod tolerance;
+
+pub use tally::{ArmTally, CycleRecord, ReplicationTally};
