@@ -103,7 +103,7 @@ mod tests {
 
     #[test]
     fn cdf_matches_scipy_to_the_accuracy_of_statrs_erfc() {
-        // statrs 0.18's erfc is off by up to ~1e-10 relative for |x| around 0.7..2 (its own tests
+        // statrs 0.18's erfc is off by up to ~1e-10 relative for x below about -0.7 (its own tests
         // allow erf(0.5) an error of 1e-9), so this pins that accuracy rather than double precision;
         // `accurate_normal::cdf` meets SCIPY_MATCH on the same points.
         for &(x, _, cdf_ref) in &SCIPY_NORM {

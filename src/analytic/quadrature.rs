@@ -270,8 +270,8 @@ fn kronrod_pass(a: f64, b: f64, dim: usize, f: &mut impl FnMut(f64, &mut [f64]))
         kronrod[d] *= half;
         gauss[d] *= half;
         let gap = (kronrod[d] - gauss[d]).abs();
-        // Written so that a NaN gap propagates (f64::max would drop it) and the caller sees it.
-        if !(gap <= error) {
+        // A NaN gap must propagate (f64::max would drop it) so that the caller sees it.
+        if gap.is_nan() || gap > error {
             error = gap;
         }
     }
@@ -295,7 +295,7 @@ pub fn kronrod_adaptive(
             "at least two finite break points in non-decreasing order",
         ));
     }
-    if !(tolerance > 0.0) {
+    if tolerance.is_nan() || tolerance <= 0.0 {
         return Err(bad("tolerance", tolerance, "a number > 0"));
     }
     struct Piece {
@@ -523,7 +523,8 @@ mod tests {
         // Textbook integrals: sin over [0, pi] is 2; 1 / (1 + x^2) over [0, 1] is pi / 4; sqrt over
         // [0, 1] is 2/3 (endpoint singularity in the derivative); the normal density over [-40, 40] is 1.
         let pi = std::f64::consts::PI;
-        let cases: Vec<(Box<dyn Fn(f64) -> f64>, [f64; 2], f64)> = vec![
+        type Case = (Box<dyn Fn(f64) -> f64>, [f64; 2], f64);
+        let cases: Vec<Case> = vec![
             (Box::new(f64::sin), [0.0, pi], 2.0),
             (Box::new(|x: f64| 1.0 / (1.0 + x * x)), [0.0, 1.0], pi / 4.0),
             (Box::new(f64::sqrt), [0.0, 1.0], 2.0 / 3.0),

@@ -415,7 +415,12 @@ impl AnalyzeReport {
                     let _ = writeln!(out, "  note: {note}");
                 }
                 for e in &section.entries {
-                    let _ = writeln!(out, "  p = {:.6} (arms: {})", e.p, e.arms.join(", "));
+                    let whose = if e.arms.len() == self.arms.len() {
+                        "all arms".to_string()
+                    } else {
+                        format!("arms: {}", e.arms.join(", "))
+                    };
+                    let _ = writeln!(out, "  p = {:.6} ({whose})", e.p);
                     let levels: Vec<String> = e
                         .quantiles
                         .iter()

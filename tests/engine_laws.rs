@@ -1,0 +1,218 @@
+//! The engine against textbook laws, within 4 standard errors estimated from independent
+//! replications (never from correlated group-cycles).
+
+mod common;
+
+use common::*;
+use statrs::distribution::{Binomial, DiscreteCDF};
+
+/// Independent members, no cover: a group of k repays iff nobody is hit, so P = (1 - q)^k
+/// (binomial law, any probability textbook).
+#[test]
+fn independent_members_repay_with_binomial_probability() {
+    let q: f64 = 0.1;
+    let s = scenario(&format!(
+        r#"
+        seed = 11
+        replications = 100
+        cycles = 20
+        [portfolio]
+        borrowers = 840
+        villages = 1
+        [loan]
+        principal = 100
+        [[shock]]
+        name = "illness"
+        scope = "member"
+        probability = {q}
+        [sweep]
+        group_size = [1, 2, 3, 4, 5, 6, 7, 8]
+        "#
+    ));
+    let results = simulate(&s);
+    for (arm, a) in s.arms.iter().enumerate() {
+        let k = a.policy.group_size;
+        let summary = arm_summary(&s, &results, arm);
+        let g = summary.group_repayment.expect("groups served");
+        let reference = (1.0 - q).powi(k as i32);
+        assert_within(&format!("group repayment k={k}"), g.rate, g.standard_error.unwrap(), reference, 0.002);
+        // everybody is served: 840 is divisible by every k in 1..=8
+        assert_eq!(summary.served_share, Some(1.0), "k={k}");
+        // member shortfall rate is the hit probability q (same law)
+        let (rate, se) = replication_ratio(&results, arm, |r| (r.member_shortfalls as f64, r.member_loans as f64));
+        assert_within(&format!("member shortfall k={k}"), rate, se, q, 0.001);
+    }
+}
+
+/// Peer cover: incomes 1.5 x the amount due, severity 1, full cover (lambda = 1). A hit member has
+/// shortfall D and an unhit one surplus D/2, so a group repays iff n <= (k - n) / 2, i.e.
+/// n <= floor(k / 3): P = P(Bin(k, q) <= floor(k / 3)). Reference: statrs 0.18 Binomial CDF.
+#[test]
+fn peer_cover_matches_binomial_cdf() {
+    let q: f64 = 0.2;
+    let s = scenario(&format!(
+        r#"
+        seed = 12
+        replications = 100
+        cycles = 20
+        [portfolio]
+        borrowers = 840
+        villages = 2
+        [loan]
+        principal = 100
+        interest_rate = 0.1
+        [borrowers]
+        income = 1.5
+        [[shock]]
+        name = "harvest_failure"
+        scope = "member"
+        probability = {q}
+        [policy]
+        peer_cover = 1.0
+        [sweep]
+        group_size = [2, 3, 4, 5, 6, 7]
+        "#
+    ));
+    let results = simulate(&s);
+    for (arm, a) in s.arms.iter().enumerate() {
+        let k = a.policy.group_size;
+        let summary = arm_summary(&s, &results, arm);
+        let g = summary.group_repayment.unwrap();
+        let reference = Binomial::new(q, u64::from(k)).unwrap().cdf(u64::from(k / 3));
+        assert_within(&format!("covered group repayment k={k}"), g.rate, g.standard_error.unwrap(), reference, 0.003);
+        // rescued groups: some member hit but the group repaid, P(1 <= n <= floor(k/3))
+        let rescued = reference - (1.0 - q).powi(k as i32);
+        let (rate, se) = replication_ratio(&results, arm, |r| (r.groups_rescued as f64, r.group_cycles as f64));
+        if rescued > 0.0 {
+            assert_within(&format!("rescued k={k}"), rate, se, rescued, 0.003);
+        } else {
+            assert_eq!(rate, 0.0, "k={k}: nobody can be rescued");
+        }
+    }
+}
+
+/// Exclusion: each served cycle a member's group defaults with probability d = 1 - (1 - q)^k and
+/// then sits out E cycles, so by the renewal-reward theorem (Ross, Introduction to Probability
+/// Models, ch. 7) the long-run excluded share is d E / (1 + d E). Village sizes are divisible by k
+/// and whole groups are excluded, so nobody waits.
+#[test]
+fn exclusion_share_follows_renewal_reward() {
+    let q = 0.05;
+    let k = 5;
+    let s = scenario(&format!(
+        r#"
+        seed = 13
+        replications = 100
+        cycles = 60
+        warmup_cycles = 50
+        [portfolio]
+        borrowers = 1000
+        villages = 2
+        [loan]
+        principal = 100
+        [[shock]]
+        name = "illness"
+        scope = "member"
+        probability = {q}
+        [policy]
+        group_size = {k}
+        exclusion_scope = "group"
+        [sweep]
+        exclusion_cycles = [1, 2, 4]
+        "#
+    ));
+    let results = simulate(&s);
+    let d = 1.0 - (1.0f64 - q).powi(k);
+    for (arm, a) in s.arms.iter().enumerate() {
+        let e = match a.policy.exclusion_cycles {
+            loancycle::scenario::Exclusion::Cycles(e) => f64::from(e),
+            loancycle::scenario::Exclusion::Permanent => unreachable!(),
+        };
+        let reference = d * e / (1.0 + d * e);
+        let (share, se) =
+            replication_ratio(&results, arm, |r| (r.excluded_slot_cycles as f64, r.slot_cycles() as f64));
+        assert_within(&format!("excluded share E={e}"), share, se, reference, 0.002);
+        let summary = arm_summary(&s, &results, arm);
+        assert_eq!(summary.waiting_share, Some(0.0), "E={e}: nobody waits");
+        assert_eq!(summary.empty_share, Some(0.0));
+    }
+}
+
+/// Money flows under joint liability with incomes exactly the amount due, severity 1, no cover:
+/// a defaulting group with n hit collects (k - n) D, so collected / due = 1 - q in expectation,
+/// and the unpaid principal is min(k P, n D) (interest is paid first: common practice). The
+/// expected loss rate is E[min(k P, n D)] (1 - recovery) / (k P) under the binomial law.
+#[test]
+fn losses_follow_interest_first_accounting() {
+    let (q, k, r, recovery) = (0.15, 4u32, 0.25, 0.3);
+    let s = scenario(&format!(
+        r#"
+        seed = 14
+        replications = 100
+        cycles = 20
+        [portfolio]
+        borrowers = 800
+        [loan]
+        principal = 100
+        interest_rate = {r}
+        recovery_rate = {recovery}
+        [[shock]]
+        name = "illness"
+        scope = "member"
+        probability = {q}
+        [policy]
+        group_size = {k}
+        "#
+    ));
+    let results = simulate(&s);
+    let (p, d) = (100.0, 100.0 * (1.0 + r));
+    let bin = Binomial::new(q, u64::from(k)).unwrap();
+    use statrs::distribution::Discrete;
+    let expected_unpaid_principal: f64 =
+        (0..=u64::from(k)).map(|n| bin.pmf(n) * (f64::from(k) * p).min(n as f64 * d)).sum();
+    let loss_reference = (1.0 - recovery) * expected_unpaid_principal / (f64::from(k) * p);
+    let summary = arm_summary(&s, &results, 0);
+    let loss = summary.loss_rate.unwrap();
+    assert_within("loss rate", loss.rate, loss.standard_error.unwrap(), loss_reference, 0.002);
+    let (value, se) = replication_ratio(&results, 0, |t| (t.collected, t.due));
+    assert_within("value repayment", value, se, 1.0 - q, 0.002);
+    // identities that hold exactly for every replication
+    for t in &results.arms[0].replications {
+        assert!((t.loss + t.recovered - t.unpaid_principal).abs() < 1e-6 * t.disbursed);
+        assert!(t.collected <= t.due + 1e-9 * t.due);
+    }
+}
+
+/// Individual liability: each member repays alone, so the member default rate is the hit
+/// probability and a group counts as repaid iff nobody was hit: (1 - q)^k (binomial law).
+#[test]
+fn individual_liability_defaults_member_by_member() {
+    let q: f64 = 0.08;
+    let s = scenario(&format!(
+        r#"
+        seed = 15
+        replications = 100
+        cycles = 20
+        [portfolio]
+        borrowers = 600
+        [loan]
+        principal = 50
+        [borrowers]
+        income = 1.5
+        [[shock]]
+        name = "illness"
+        scope = "member"
+        probability = {q}
+        [policy]
+        group_size = 6
+        liability = "individual"
+        peer_cover = 1.0
+        "#
+    ));
+    let results = simulate(&s);
+    let (rate, se) = replication_ratio(&results, 0, |r| (r.member_defaults as f64, r.member_loans as f64));
+    assert_within("member default rate", rate, se, q, 0.001);
+    let g = arm_summary(&s, &results, 0).group_repayment.unwrap();
+    assert_within("group repaid", g.rate, g.standard_error.unwrap(), (1.0 - q).powi(6), 0.003);
+    assert_eq!(arm_summary(&s, &results, 0).rescued_rate, Some(0.0), "peers never rescue under individual liability");
+}
