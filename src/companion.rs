@@ -13,7 +13,10 @@ pub struct SimulationCompanion {
 impl SimulationCompanion {
     /// Computes what theory can say about each arm of `scenario`.
     pub fn new(scenario: &Scenario) -> Self {
-        SimulationCompanion { exact: vec![None; scenario.arms.len()], optimum: None }
+        SimulationCompanion {
+            exact: vec![None; scenario.arms.len()],
+            optimum: None,
+        }
     }
 
     /// Exact per-cycle group repayment of arm `arm`, when the scenario is in the one-factor class.

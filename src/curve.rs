@@ -26,14 +26,22 @@ pub enum GroupSizeCurve {
 pub enum CurveError {
     /// A parameter is outside what the curve allows.
     #[error("{name} = {value} is not allowed: {allowed}")]
-    BadParameter { name: &'static str, value: String, allowed: &'static str },
+    BadParameter {
+        name: &'static str,
+        value: String,
+        allowed: &'static str,
+    },
 }
 
 impl GroupSizeCurve {
     /// A constant curve; `value` must lie in [0, 1].
     pub fn constant(value: f64) -> Result<Self, CurveError> {
         if !(0.0..=1.0).contains(&value) {
-            return Err(CurveError::BadParameter { name: "value", value: value.to_string(), allowed: "a probability in [0, 1]" });
+            return Err(CurveError::BadParameter {
+                name: "value",
+                value: value.to_string(),
+                allowed: "a probability in [0, 1]",
+            });
         }
         Ok(GroupSizeCurve::Constant { value })
     }
@@ -53,14 +61,26 @@ impl GroupSizeCurve {
     /// A table curve; it must be non-empty, keyed by sizes >= 1, with probabilities in [0, 1].
     pub fn table(values: BTreeMap<u32, f64>) -> Result<Self, CurveError> {
         if values.is_empty() {
-            return Err(CurveError::BadParameter { name: "values", value: "{}".into(), allowed: "at least one group size" });
+            return Err(CurveError::BadParameter {
+                name: "values",
+                value: "{}".into(),
+                allowed: "at least one group size",
+            });
         }
         for (&k, &q) in &values {
             if k == 0 {
-                return Err(CurveError::BadParameter { name: "values", value: "\"0\"".into(), allowed: "group sizes >= 1" });
+                return Err(CurveError::BadParameter {
+                    name: "values",
+                    value: "\"0\"".into(),
+                    allowed: "group sizes >= 1",
+                });
             }
             if !(0.0..=1.0).contains(&q) {
-                return Err(CurveError::BadParameter { name: "values", value: format!("\"{k}\" = {q}"), allowed: "probabilities in [0, 1]" });
+                return Err(CurveError::BadParameter {
+                    name: "values",
+                    value: format!("\"{k}\" = {q}"),
+                    allowed: "probabilities in [0, 1]",
+                });
             }
         }
         Ok(GroupSizeCurve::Table { values })
@@ -110,11 +130,13 @@ impl GroupSizeCurve {
         match *self {
             GroupSizeCurve::Constant { value } => (x >= 1.0).then_some(value),
             GroupSizeCurve::Power { p } => (x >= 1.0).then(|| x.powf(-p)),
-            GroupSizeCurve::PowerPlusLog { p } => {
-                (x >= 2.0).then(|| 1.0 / (x.powf(p) + x.ln().powf(1.0 / p)))
-            }
+            GroupSizeCurve::PowerPlusLog { p } => (x >= 2.0).then(|| 1.0 / (x.powf(p) + x.ln().powf(1.0 / p))),
             GroupSizeCurve::Table { ref values } => {
-                if x.fract() == 0.0 && x >= 1.0 && x <= u32::MAX as f64 { values.get(&(x as u32)).copied() } else { None }
+                if x.fract() == 0.0 && x >= 1.0 && x <= u32::MAX as f64 {
+                    values.get(&(x as u32)).copied()
+                } else {
+                    None
+                }
             }
         }
     }
@@ -124,7 +146,11 @@ fn check_exponent(p: f64) -> Result<(), CurveError> {
     if p.is_finite() && p > 0.0 {
         Ok(())
     } else {
-        Err(CurveError::BadParameter { name: "p", value: p.to_string(), allowed: "a finite exponent > 0" })
+        Err(CurveError::BadParameter {
+            name: "p",
+            value: p.to_string(),
+            allowed: "a finite exponent > 0",
+        })
     }
 }
 

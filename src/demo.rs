@@ -4,4 +4,4 @@
 pub const BASELINE: &str = include_str!("../scenarios-demo/baseline.toml");
 
 /// The name shown for the built-in baseline.
-pub const BASELINE_ORIGIN: &str = "scenarios-demo/baseline.toml (built in)";
+pub const BASELINE_ORIGIN: &str = "scenarios-demo/baseline.toml, built into the binary";

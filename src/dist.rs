@@ -58,11 +58,19 @@ pub const MAX_CV: f64 = 100.0;
 pub const MIN_GAMMA_CV: f64 = 1e-6;
 
 fn bad(parameter: &'static str, value: f64, allowed: impl Into<String>) -> DistributionError {
-    DistributionError { parameter, value: value.to_string(), allowed: allowed.into() }
+    DistributionError {
+        parameter,
+        value: value.to_string(),
+        allowed: allowed.into(),
+    }
 }
 
 fn finite_non_negative(parameter: &'static str, value: f64) -> Result<(), DistributionError> {
-    if value.is_finite() && value >= 0.0 { Ok(()) } else { Err(bad(parameter, value, "a finite number >= 0")) }
+    if value.is_finite() && value >= 0.0 {
+        Ok(())
+    } else {
+        Err(bad(parameter, value, "a finite number >= 0"))
+    }
 }
 
 impl Distribution {
@@ -91,7 +99,8 @@ impl Distribution {
             return Err(bad("cv", cv, format!("a number in [0, {MAX_CV}]")));
         }
         let sigma2 = (1.0 + cv * cv).ln();
-        let sampler = LogNormal::new(mean.ln() - sigma2 / 2.0, sigma2.sqrt()).map_err(|_| bad("cv", cv, "a finite number >= 0"))?;
+        let sampler = LogNormal::new(mean.ln() - sigma2 / 2.0, sigma2.sqrt())
+            .map_err(|_| bad("cv", cv, "a finite number >= 0"))?;
         Ok(Distribution::Lognormal { mean, cv, sampler })
     }
 
@@ -102,10 +111,15 @@ impl Distribution {
         }
         let max_sd = (mean * (1.0 - mean)).sqrt();
         if !(sd > 0.0 && sd < max_sd) {
-            return Err(bad("sd", sd, format!("a number > 0 and < sqrt(mean (1 - mean)) = {max_sd:.6}")));
+            return Err(bad(
+                "sd",
+                sd,
+                format!("a number > 0 and < sqrt(mean (1 - mean)) = {max_sd:.6}"),
+            ));
         }
         let common = mean * (1.0 - mean) / (sd * sd) - 1.0;
-        let sampler = Beta::new(mean * common, (1.0 - mean) * common).map_err(|_| bad("sd", sd, "a standard deviation giving positive shape parameters"))?;
+        let sampler = Beta::new(mean * common, (1.0 - mean) * common)
+            .map_err(|_| bad("sd", sd, "a standard deviation giving positive shape parameters"))?;
         Ok(Distribution::Beta { mean, sd, sampler })
     }
 
@@ -135,7 +149,9 @@ impl Distribution {
         match *self {
             Distribution::Fixed { value } => value,
             Distribution::Uniform { low, high } => 0.5 * (low + high),
-            Distribution::Lognormal { mean, .. } | Distribution::Beta { mean, .. } | Distribution::Gamma { mean, .. } => mean,
+            Distribution::Lognormal { mean, .. }
+            | Distribution::Beta { mean, .. }
+            | Distribution::Gamma { mean, .. } => mean,
         }
     }
 
@@ -165,7 +181,9 @@ impl Distribution {
     pub fn sample<R: Rng + ?Sized>(&self, rng: &mut R) -> f64 {
         match *self {
             Distribution::Fixed { value } => value,
-            Distribution::Uniform { low, high } => low + (high - low) * crate::engine::streams::unit_f64(rng.next_u64()),
+            Distribution::Uniform { low, high } => {
+                low + (high - low) * crate::engine::streams::unit_f64(rng.next_u64())
+            }
             Distribution::Lognormal { sampler, .. } => sampler.sample(rng),
             Distribution::Beta { sampler, .. } => sampler.sample(rng),
             Distribution::Gamma { sampler, .. } => sampler.sample(rng),

@@ -6,14 +6,14 @@
 //! forms of the independent-borrower and one-factor models), `output` (writers that turn finished
 //! results into bytes), `run` (orchestration across replications and threads).
 
-pub mod curve;
-pub mod dist;
-pub mod scenario;
-pub mod engine;
-pub mod stats;
 pub mod analytic;
-pub mod output;
 pub mod companion;
+pub mod curve;
+pub mod demo;
+pub mod dist;
+pub mod engine;
+pub mod output;
 pub mod report;
 pub mod run;
-pub mod demo;
+pub mod scenario;
+pub mod stats;

@@ -28,8 +28,8 @@ enum Command {
         /// Replications, overriding the file.
         #[arg(long, value_parser = clap::value_parser!(u32).range(1..))]
         replications: Option<u32>,
-        /// Master seed, overriding the file.
-        #[arg(long)]
+        /// Master seed, overriding the file (0 to 9223372036854775807, like a scenario file).
+        #[arg(long, allow_negative_numbers = true, value_parser = clap::value_parser!(u64).range(0..=i64::MAX as u64))]
         seed: Option<u64>,
         /// Worker threads (default: all cores); results do not depend on it.
         #[arg(long, value_parser = clap::value_parser!(u16).range(1..))]
@@ -55,7 +55,9 @@ const BAD_INPUT: u8 = 2;
 
 fn load(file: Option<&PathBuf>) -> Result<(Scenario, String, String), String> {
     match file {
-        Some(path) => Scenario::load(path).map(|(s, text)| (s, text, path.display().to_string())).map_err(|e| e.to_string()),
+        Some(path) => Scenario::load(path)
+            .map(|(s, text)| (s, text, path.display().to_string()))
+            .map_err(|e| e.to_string()),
         None => Scenario::from_toml_str(demo::BASELINE, demo::BASELINE_ORIGIN)
             .map(|s| (s, demo::BASELINE.to_string(), demo::BASELINE_ORIGIN.to_string()))
             .map_err(|e| e.to_string()),
@@ -79,7 +81,15 @@ fn main() -> ExitCode {
                 ExitCode::from(BAD_INPUT)
             }
         },
-        Command::Run { file, out, replications, seed, threads, quiet, force } => {
+        Command::Run {
+            file,
+            out,
+            replications,
+            seed,
+            threads,
+            quiet,
+            force,
+        } => {
             let (mut scenario, text, origin) = match load(file.as_ref()) {
                 Ok(x) => x,
                 Err(e) => {
@@ -88,22 +98,28 @@ fn main() -> ExitCode {
                 }
             };
             if file.is_none() && !quiet {
-                eprintln!("no scenario file given: running the built-in baseline demo ({origin})");
+                eprintln!("no scenario file given: running the built-in baseline demo, {origin}");
             }
-            if let Err(e) = output::check_destination(&out, force) {
+            if let Err(e) = output::prepare_destination(&out, force) {
                 eprintln!("error: {e}");
                 return ExitCode::from(BAD_INPUT);
             }
             run::apply_overrides(&mut scenario, replications, seed);
             let tasks = u64::from(scenario.replications) * scenario.arms.len() as u64;
-            let bar = if quiet { ProgressBar::with_draw_target(Some(tasks), ProgressDrawTarget::hidden()) } else { ProgressBar::new(tasks) };
+            let bar = if quiet {
+                ProgressBar::with_draw_target(Some(tasks), ProgressDrawTarget::hidden())
+            } else {
+                ProgressBar::new(tasks)
+            };
             bar.set_style(
                 ProgressStyle::with_template("{elapsed_precise} [{bar:40}] {pos}/{len} replication-arms ({eta} left)")
                     .unwrap_or_else(|_| ProgressStyle::default_bar())
                     .progress_chars("=> "),
             );
             let started = std::time::Instant::now();
-            let options = run::RunOptions { threads: threads.map(usize::from) };
+            let options = run::RunOptions {
+                threads: threads.map(usize::from),
+            };
             let results = match run::simulate(&scenario, options, &mut |done| bar.set_position(done)) {
                 Ok(r) => r,
                 Err(e) => {

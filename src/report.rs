@@ -71,7 +71,10 @@ pub struct RunReport {
 
 /// SHA-256 of text, as lower-case hex.
 pub fn sha256_hex(text: &str) -> String {
-    Sha256::digest(text.as_bytes()).iter().map(|b| format!("{b:02x}")).collect()
+    Sha256::digest(text.as_bytes())
+        .iter()
+        .map(|b| format!("{b:02x}"))
+        .collect()
 }
 
 /// Assembles the report of a finished run.
@@ -118,7 +121,13 @@ fn replication_rates(results: &RunResults, arm: usize) -> Vec<f64> {
     results.arms[arm]
         .replications
         .iter()
-        .map(|r| if r.group_cycles > 0 { r.groups_repaid as f64 / r.group_cycles as f64 } else { f64::NAN })
+        .map(|r| {
+            if r.group_cycles > 0 {
+                r.groups_repaid as f64 / r.group_cycles as f64
+            } else {
+                f64::NAN
+            }
+        })
         .collect()
 }
 
@@ -144,8 +153,12 @@ fn best_arm(scenario: &Scenario, results: &RunResults, arms: &[ArmReport]) -> Op
             false
         } else {
             let rates = replication_rates(results, i);
-            let diffs: Vec<f64> =
-                best_rates.iter().zip(&rates).filter(|(a, b)| a.is_finite() && b.is_finite()).map(|(a, b)| a - b).collect();
+            let diffs: Vec<f64> = best_rates
+                .iter()
+                .zip(&rates)
+                .filter(|(a, b)| a.is_finite() && b.is_finite())
+                .map(|(a, b)| a - b)
+                .collect();
             match estimate::mean_and_se(&diffs) {
                 Some((mean, Some(se))) if se > 0.0 => mean <= z * se,
                 Some((mean, _)) => mean <= 0.0,

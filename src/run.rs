@@ -34,12 +34,21 @@ pub struct RunResults {
 
 /// Simulates every replication of every arm. `progress` is called with the number of finished
 /// (replication, arm) tasks after each batch, from the calling thread.
-pub fn simulate(scenario: &Scenario, options: RunOptions, progress: &mut dyn FnMut(u64)) -> Result<RunResults, RunError> {
-    let threads = options.threads.unwrap_or_else(|| std::thread::available_parallelism().map_or(1, |n| n.get()));
+pub fn simulate(
+    scenario: &Scenario,
+    options: RunOptions,
+    progress: &mut dyn FnMut(u64),
+) -> Result<RunResults, RunError> {
+    let threads = options
+        .threads
+        .unwrap_or_else(|| std::thread::available_parallelism().map_or(1, |n| n.get()));
     let pool = rayon::ThreadPoolBuilder::new()
         .num_threads(threads)
         .build()
-        .map_err(|e| RunError::ThreadPool { threads, reason: e.to_string() })?;
+        .map_err(|e| RunError::ThreadPool {
+            threads,
+            reason: e.to_string(),
+        })?;
     let arms = scenario.arms.len();
     let mut tallies = vec![ArmTally::default(); arms];
     // Batches bound memory in flight and give the progress bar something to show.
@@ -49,8 +58,12 @@ pub fn simulate(scenario: &Scenario, options: RunOptions, progress: &mut dyn FnM
     while first < scenario.replications {
         let last = (first + batch_replications).min(scenario.replications);
         let tasks: Vec<(u32, usize)> = (first..last).flat_map(|r| (0..arms).map(move |a| (r, a))).collect();
-        let results: Vec<ReplicationTally> =
-            pool.install(|| tasks.par_iter().map(|&(r, a)| engine::simulate_replication(scenario, a, r)).collect());
+        let results: Vec<ReplicationTally> = pool.install(|| {
+            tasks
+                .par_iter()
+                .map(|&(r, a)| engine::simulate_replication(scenario, a, r))
+                .collect()
+        });
         for ((_, a), tally) in tasks.iter().zip(results) {
             tallies[*a].push(tally);
         }
@@ -58,8 +71,15 @@ pub fn simulate(scenario: &Scenario, options: RunOptions, progress: &mut dyn FnM
         progress(done);
         first = last;
     }
-    let served_member_cycles = tallies.iter().flat_map(|t| &t.replications).map(|r| r.served_slot_cycles).sum();
-    Ok(RunResults { arms: tallies, served_member_cycles })
+    let served_member_cycles = tallies
+        .iter()
+        .flat_map(|t| &t.replications)
+        .map(|r| r.served_slot_cycles)
+        .sum();
+    Ok(RunResults {
+        arms: tallies,
+        served_member_cycles,
+    })
 }
 
 /// Applies command-line overrides of the replication count and seed to a validated scenario.

@@ -35,7 +35,13 @@ fn independent_members_repay_with_binomial_probability() {
         let summary = arm_summary(&s, &results, arm);
         let g = summary.group_repayment.expect("groups served");
         let reference = (1.0 - q).powi(k as i32);
-        assert_within(&format!("group repayment k={k}"), g.rate, g.standard_error.unwrap(), reference, 0.002);
+        assert_within(
+            &format!("group repayment k={k}"),
+            g.rate,
+            g.standard_error.unwrap(),
+            reference,
+            0.002,
+        );
         // everybody is served: 840 is divisible by every k in 1..=8
         assert_eq!(summary.served_share, Some(1.0), "k={k}");
         // member shortfall rate is the hit probability q (same law)
@@ -79,7 +85,13 @@ fn peer_cover_matches_binomial_cdf() {
         let summary = arm_summary(&s, &results, arm);
         let g = summary.group_repayment.unwrap();
         let reference = Binomial::new(q, u64::from(k)).unwrap().cdf(u64::from(k / 3));
-        assert_within(&format!("covered group repayment k={k}"), g.rate, g.standard_error.unwrap(), reference, 0.003);
+        assert_within(
+            &format!("covered group repayment k={k}"),
+            g.rate,
+            g.standard_error.unwrap(),
+            reference,
+            0.003,
+        );
         // rescued groups: some member hit but the group repaid, P(1 <= n <= floor(k/3))
         let rescued = reference - (1.0 - q).powi(k as i32);
         let (rate, se) = replication_ratio(&results, arm, |r| (r.groups_rescued as f64, r.group_cycles as f64));
@@ -129,8 +141,9 @@ fn exclusion_share_follows_renewal_reward() {
             loancycle::scenario::Exclusion::Permanent => unreachable!(),
         };
         let reference = d * e / (1.0 + d * e);
-        let (share, se) =
-            replication_ratio(&results, arm, |r| (r.excluded_slot_cycles as f64, r.slot_cycles() as f64));
+        let (share, se) = replication_ratio(&results, arm, |r| {
+            (r.excluded_slot_cycles as f64, r.slot_cycles() as f64)
+        });
         assert_within(&format!("excluded share E={e}"), share, se, reference, 0.002);
         let summary = arm_summary(&s, &results, arm);
         assert_eq!(summary.waiting_share, Some(0.0), "E={e}: nobody waits");
@@ -168,12 +181,19 @@ fn losses_follow_interest_first_accounting() {
     let (p, d) = (100.0, 100.0 * (1.0 + r));
     let bin = Binomial::new(q, u64::from(k)).unwrap();
     use statrs::distribution::Discrete;
-    let expected_unpaid_principal: f64 =
-        (0..=u64::from(k)).map(|n| bin.pmf(n) * (f64::from(k) * p).min(n as f64 * d)).sum();
+    let expected_unpaid_principal: f64 = (0..=u64::from(k))
+        .map(|n| bin.pmf(n) * (f64::from(k) * p).min(n as f64 * d))
+        .sum();
     let loss_reference = (1.0 - recovery) * expected_unpaid_principal / (f64::from(k) * p);
     let summary = arm_summary(&s, &results, 0);
     let loss = summary.loss_rate.unwrap();
-    assert_within("loss rate", loss.rate, loss.standard_error.unwrap(), loss_reference, 0.002);
+    assert_within(
+        "loss rate",
+        loss.rate,
+        loss.standard_error.unwrap(),
+        loss_reference,
+        0.002,
+    );
     let (value, se) = replication_ratio(&results, 0, |t| (t.collected, t.due));
     assert_within("value repayment", value, se, 1.0 - q, 0.002);
     // identities that hold exactly for every replication
@@ -213,6 +233,16 @@ fn individual_liability_defaults_member_by_member() {
     let (rate, se) = replication_ratio(&results, 0, |r| (r.member_defaults as f64, r.member_loans as f64));
     assert_within("member default rate", rate, se, q, 0.001);
     let g = arm_summary(&s, &results, 0).group_repayment.unwrap();
-    assert_within("group repaid", g.rate, g.standard_error.unwrap(), (1.0 - q).powi(6), 0.003);
-    assert_eq!(arm_summary(&s, &results, 0).rescued_rate, Some(0.0), "peers never rescue under individual liability");
+    assert_within(
+        "group repaid",
+        g.rate,
+        g.standard_error.unwrap(),
+        (1.0 - q).powi(6),
+        0.003,
+    );
+    assert_eq!(
+        arm_summary(&s, &results, 0).rescued_rate,
+        Some(0.0),
+        "peers never rescue under individual liability"
+    );
 }

@@ -286,6 +286,13 @@ pub fn group_repayment(
     liability: Liability,
     peer_cover: f64,
 ) -> Result<OneFactorResult, AnalyticError> {
+    if group_size == 0 || group_size > MAX_EXACT_GROUP_SIZE {
+        return Err(bad(
+            "group size",
+            group_size,
+            format!("a size in 1..={MAX_EXACT_GROUP_SIZE} for exact quadrature"),
+        ));
+    }
     if !(0.0..=1.0).contains(&peer_cover) {
         return Err(bad("peer cover", peer_cover, "a share in [0, 1]"));
     }

@@ -90,9 +90,19 @@ impl Objective<'_> {
                 }
                 let log = x.ln();
                 let g = x.powf(p) + log.powf(1.0 / p);
+                if !g.is_finite() {
+                    // phi is below the smallest double: the objective has saturated at 0.
+                    return Some(Point {
+                        phi: 0.0,
+                        one_minus_phi: 1.0,
+                        slope_of_phi: 0.0,
+                    });
+                }
                 let g_minus_one = (p * log).exp_m1() + log.powf(1.0 / p);
                 let dg = p * x.powf(p - 1.0) + log.powf(1.0 / p - 1.0) / (p * x);
-                (1.0 / g, g_minus_one / g, -dg / (g * g))
+                // phi' = -g' / g^2, written as -(g'/g) phi so that g^2 cannot overflow.
+                let phi = 1.0 / g;
+                (phi, g_minus_one / g, -(dg / g) * phi)
             }
             GroupSizeCurve::Table { .. } => return None,
         };
@@ -205,16 +215,21 @@ fn scan(curve: &GroupSizeCurve, scale: f64) -> ContinuousOptimum {
         report.kind = MaximiserKind::Flat;
         return report;
     }
+    // Exact zeros are skipped when bracketing: they come from phi underflowing to 0, where the
+    // objective has saturated at its supremum, not from a root of the derivative.
+    let signed: Vec<usize> = (0..=SCAN_POINTS).filter(|&i| slopes[i] != 0.0).collect();
     let mut maxima = Vec::new();
     if slopes[0] < 0.0 {
         maxima.push(start);
     }
-    for i in 0..SCAN_POINTS {
-        if slopes[i] > 0.0 && slopes[i + 1] <= 0.0 {
-            maxima.push(objective.root_of_slope(grid[i], grid[i + 1]));
+    for pair in signed.windows(2) {
+        let (i, j) = (pair[0], pair[1]);
+        if slopes[i] > 0.0 && slopes[j] < 0.0 {
+            maxima.push(objective.root_of_slope(grid[i], grid[j]));
         }
     }
-    let rising_at_end = slopes[SCAN_POINTS] > 0.0;
+    // Rising at the end: the last non-zero slope is positive (a saturated tail counts as rising).
+    let rising_at_end = signed.last().is_some_and(|&i| slopes[i] > 0.0);
     let best = maxima
         .iter()
         .copied()
@@ -324,7 +339,8 @@ pub struct BandReport {
     /// The integers that are the best integer of the range for at least one grid point (and the
     /// refined extremes). Can be wider than `integers_inside`: near x* = 3.5 the best integer may be 3.
     pub best_integers: Vec<u32>,
-    /// Grid exponents where the objective rises to the end of the range (no finite maximiser).
+    /// Grid exponents where the objective rises to the end of the range (no finite maximiser). Near
+    /// them x* can grow without bound, so the extremes above describe the other grid values only.
     pub without_finite_maximiser: Vec<f64>,
 }
 
@@ -382,16 +398,19 @@ fn integer_rows(curve: &GroupSizeCurve, range: (u32, u32)) -> Vec<IntegerRow> {
         .collect()
 }
 
+/// The best row as (size, repayment). Sizes are compared on k ln(1 - phi(k)), which keeps its
+/// resolution where (1 - phi)^k has rounded to 1.
 fn best_of(rows: &[IntegerRow]) -> Option<(u32, f64)> {
-    let mut best: Option<(u32, f64)> = None;
+    let mut best: Option<(u32, f64, f64)> = None;
     for row in rows {
-        if let Some(r) = row.repayment
-            && best.is_none_or(|(_, b)| r > b)
-        {
-            best = Some((row.group_size, r));
+        if let (Some(phi), Some(r)) = (row.phi, row.repayment) {
+            let log_repayment = row.group_size as f64 * (-phi).ln_1p();
+            if best.is_none_or(|(_, b, _)| log_repayment > b) {
+                best = Some((row.group_size, log_repayment, r));
+            }
         }
     }
-    best
+    best.map(|(k, _, r)| (k, r))
 }
 
 fn with_exponent(curve: &GroupSizeCurve, p: f64) -> GroupSizeCurve {
@@ -716,7 +735,11 @@ impl OptimumReport {
                 let first = band.without_finite_maximiser[0];
                 let _ = writeln!(
                     out,
-                    "    {n} value(s) of p have no finite maximiser (the first is p = {first})"
+                    "    {n} value(s) of p have no finite maximiser (the first is p = {first});"
+                );
+                let _ = writeln!(
+                    out,
+                    "    x* can grow without bound as p nears them, so the extremes above cover the other values only"
                 );
             }
         }
@@ -878,6 +901,33 @@ mod tests {
         };
         assert!(obj.slope(scaled * 0.999) > 0.0 && obj.slope(scaled * 1.001) < 0.0);
         assert_eq!(closed_form_optimum_scaled(&curve, f64::NAN), None);
+    }
+
+    #[test]
+    fn underflowing_curves_rise_to_the_end_instead_of_inventing_a_maximum() {
+        // For p > 1 both parametric objectives rise towards 0 for ever; with p this large phi
+        // underflows (power) or g^2 would overflow (power_plus_log) well inside the scanned range.
+        for curve in [
+            GroupSizeCurve::power(1e6).unwrap(),
+            GroupSizeCurve::power_plus_log(50.0).unwrap(),
+        ] {
+            let r = solve(&request(curve.clone())).unwrap();
+            assert_eq!(
+                r.continuous.kind,
+                MaximiserKind::RisingToEnd,
+                "{curve:?}: {:?}",
+                r.continuous
+            );
+            assert!(r.continuous.local_maxima.is_empty(), "{curve:?}");
+        }
+        // (1 - phi(k))^k rounds to 1 from k = 3 on for power_plus_log p = 50, but the largest size of
+        // the range is still the best, as k ln(1 - phi(k)) shows.
+        let r = solve(&request(GroupSizeCurve::power_plus_log(50.0).unwrap())).unwrap();
+        assert_eq!(r.best_integer, Some(12));
+        // power_plus_log with p = 0.1: phi ~ (ln x)^-10 for large x, so x ln(1 - phi) ~ -x (ln x)^-10,
+        // whose derivative vanishes at ln x = 10 (calculus), i.e. near x = e^10.
+        let x = closed_form_optimum(&GroupSizeCurve::power_plus_log(0.1).unwrap()).unwrap();
+        assert!((x.ln() - 10.0).abs() < 0.01, "{x}");
     }
 
     #[test]

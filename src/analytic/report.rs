@@ -74,6 +74,15 @@ pub struct BaselComparison {
     pub risk_weight_at_scenario_rho: f64,
 }
 
+/// One quantile of the hit share.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct HitShareQuantile {
+    /// The level q.
+    pub level: f64,
+    /// The share of members hit that is exceeded with probability 1 - q.
+    pub share: f64,
+}
+
 /// The hit-share law at one hit probability.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct HitShareEntry {
@@ -81,8 +90,8 @@ pub struct HitShareEntry {
     pub p: f64,
     /// Labels of the arms whose group size gives this p.
     pub arms: Vec<String>,
-    /// (level, large-pool quantile of the hit share) for each of [`HIT_SHARE_LEVELS`].
-    pub quantiles: Vec<(f64, f64)>,
+    /// The large-pool quantile of the hit share at each of [`HIT_SHARE_LEVELS`].
+    pub quantiles: Vec<HitShareQuantile>,
     /// Members in the finite pool compared: the largest village.
     pub finite_members: u32,
     /// 99.9 % quantile of the hit share among `finite_members` members sharing the factor.
@@ -194,6 +203,12 @@ fn hit_share_section(scenario: &Scenario) -> Result<HitShareSection, String> {
             scenario.risk.kind_name()
         )
     })?;
+    if scenario.villages == 0 || scenario.borrowers == 0 {
+        return Err(format!(
+            "portfolio has {} borrowers in {} villages; the hit share needs at least one of each",
+            scenario.borrowers, scenario.villages
+        ));
+    }
     let (v, pc) = (shock.village_correlation, shock.portfolio_correlation);
     let rho = v + pc;
     let scope = if scenario.villages > 1 && v > 0.0 {
@@ -260,7 +275,7 @@ fn hit_share_section(scenario: &Scenario) -> Result<HitShareSection, String> {
     for (_, (p, arms)) in by_p {
         let quantiles = HIT_SHARE_LEVELS
             .iter()
-            .map(|&q| vasicek::quantile(q, p, rho).map(|x| (q, x)))
+            .map(|&level| vasicek::quantile(level, p, rho).map(|share| HitShareQuantile { level, share }))
             .collect::<Result<Vec<_>, _>>()
             .map_err(|e| e.to_string())?;
         let large = vasicek::quantile(0.999, p, rho).map_err(|e| e.to_string())?;
@@ -424,9 +439,9 @@ impl AnalyzeReport {
                     let levels: Vec<String> = e
                         .quantiles
                         .iter()
-                        .map(|(q, _)| format!("{:>9}", format!("{}%", q * 100.0)))
+                        .map(|h| format!("{:>9}", format!("{}%", h.level * 100.0)))
                         .collect();
-                    let values: Vec<String> = e.quantiles.iter().map(|(_, x)| format!("{x:>9.6}")).collect();
+                    let values: Vec<String> = e.quantiles.iter().map(|h| format!("{:>9.6}", h.share)).collect();
                     let _ = writeln!(out, "    large-pool quantile {}", levels.join(" "));
                     let _ = writeln!(out, "    hit share           {}", values.join(" "));
                     match (e.finite_quantile_999, e.finite_minus_large, &e.finite_note) {
@@ -549,7 +564,7 @@ mod tests {
         let e = &section.entries[0];
         assert_eq!(e.arms, vec!["joint", "individual"]);
         assert_eq!(e.quantiles.len(), 4);
-        assert!(e.quantiles.windows(2).all(|w| w[0].1 < w[1].1));
+        assert!(e.quantiles.windows(2).all(|w| w[0].share < w[1].share));
         assert!(e.finite_minus_large.unwrap() > 0.0);
         let b = e.basel.as_ref().unwrap();
         assert!((b.lgd - 0.75).abs() < 1e-15);
@@ -592,6 +607,25 @@ mod tests {
         let report = analyze(&s);
         assert!(report.hit_share_reason.as_deref().unwrap().contains("borrowers.risk"));
         assert!(report.to_table().trim_end().ends_with(CAUTION));
+    }
+
+    #[test]
+    fn a_hand_built_scenario_without_villages_is_refused_not_panicked_on() {
+        let mut s = scenario(1, 0.1);
+        s.villages = 0;
+        let report = analyze(&s);
+        assert!(report.hit_share_reason.as_deref().unwrap().contains("0 villages"));
+        s.arms[0].policy.group_size = 0;
+        s.shocks[0].village_correlation = 2.0;
+        let report = analyze(&s);
+        assert!(report.arms[0].reason.as_deref().unwrap().contains("group size = 0"));
+        assert!(
+            report.arms[1]
+                .reason
+                .as_deref()
+                .unwrap()
+                .contains("village correlation = 2")
+        );
     }
 
     #[test]

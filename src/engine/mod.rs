@@ -109,8 +109,13 @@ impl<'a> ArmReplication<'a> {
             at += scenario.village_size(v) as usize;
         }
         village_start.push(at);
-        let member_shocks: Vec<usize> =
-            scenario.shocks.iter().enumerate().filter(|(_, s)| s.scope == ShockScope::Member).map(|(i, _)| i).collect();
+        let member_shocks: Vec<usize> = scenario
+            .shocks
+            .iter()
+            .enumerate()
+            .filter(|(_, s)| s.scope == ShockScope::Member)
+            .map(|(i, _)| i)
+            .collect();
         let ms = member_shocks.len();
         ArmReplication {
             scenario,
@@ -182,7 +187,8 @@ impl<'a> ArmReplication<'a> {
             // departures are detected next cycle by a changed entrant number
             self.previous_entrants.clear();
             let entrants = &self.pool.entrants;
-            self.previous_entrants.extend(self.groups.iter().map(|&i| entrants[i as usize].wrapping_sub(1)));
+            self.previous_entrants
+                .extend(self.groups.iter().map(|&i| entrants[i as usize].wrapping_sub(1)));
             std::mem::swap(&mut self.previous_groups, &mut self.groups);
             self.previous_village_groups.copy_from_slice(&self.village_groups);
         }
@@ -223,7 +229,12 @@ impl<'a> ArmReplication<'a> {
                 let id = cycle_stream_id(purpose, cycle, si, 0);
                 fill_dense(&self.key, id, self.villages, 2, &mut self.village_draws[si]);
             }
-            self.shock_cycle.push(ShockCycle { probability: p, active, threshold_row: row, portfolio_factor });
+            self.shock_cycle.push(ShockCycle {
+                probability: p,
+                active,
+                threshold_row: row,
+                portfolio_factor,
+            });
         }
     }
 
@@ -305,7 +316,10 @@ impl<'a> ArmReplication<'a> {
             // Branch-free counts: served members are exactly the grouped ones.
             let mut occupied = 0u64;
             let mut excluded = 0u64;
-            for (&occ, &through) in self.pool.occupied[start..end].iter().zip(&self.pool.excluded_through[start..end]) {
+            for (&occ, &through) in self.pool.occupied[start..end]
+                .iter()
+                .zip(&self.pool.excluded_through[start..end])
+            {
                 occupied += u64::from(occ);
                 excluded += u64::from(occ & (through >= cycle));
             }
@@ -342,18 +356,32 @@ impl<'a> ArmReplication<'a> {
                 let mut len = 0usize;
                 for m in 0..size {
                     let i = start + m;
-                    let random = if needs_keys { dense_u64(&self.dense, m as u32) } else { 0 };
-                    let packed = if index_bits >= 64 { m as u64 } else { (random >> index_bits << index_bits) | m as u64 };
+                    let random = if needs_keys {
+                        dense_u64(&self.dense, m as u32)
+                    } else {
+                        0
+                    };
+                    let packed = if index_bits >= 64 {
+                        m as u64
+                    } else {
+                        (random >> index_bits << index_bits) | m as u64
+                    };
                     // written unconditionally, kept only when eligible: avoids a hard-to-predict branch
                     self.candidates[len] = packed;
-                    len += usize::from(!self.pool.assigned[i] & self.pool.occupied[i] & (self.pool.excluded_through[i] < cycle));
+                    len += usize::from(
+                        !self.pool.assigned[i] & self.pool.occupied[i] & (self.pool.excluded_through[i] < cycle),
+                    );
                 }
                 self.candidates.truncate(len);
                 if needs_keys {
                     sort_uniform_keys(&mut self.candidates, &mut self.sort_scratch, &mut self.sort_counts);
                 }
                 let full = self.candidates.len() / k * k;
-                let mask = if index_bits >= 64 { u64::MAX } else { (1u64 << index_bits) - 1 };
+                let mask = if index_bits >= 64 {
+                    u64::MAX
+                } else {
+                    (1u64 << index_bits) - 1
+                };
                 for &c in &self.candidates[..full] {
                     let i = start + (c & mask) as usize;
                     self.pool.assigned[i] = true;
@@ -365,11 +393,16 @@ impl<'a> ArmReplication<'a> {
                 for m in 0..size {
                     let i = start + m;
                     if !self.pool.assigned[i] && self.eligible(i, cycle) {
-                        let random = if needs_keys { dense_u64(&self.dense, m as u32) } else { 0 };
+                        let random = if needs_keys {
+                            dense_u64(&self.dense, m as u32)
+                        } else {
+                            0
+                        };
                         self.assortative.push((self.pool.risk[i], random, i as u32));
                     }
                 }
-                self.assortative.sort_unstable_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)).then(a.2.cmp(&b.2)));
+                self.assortative
+                    .sort_unstable_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)).then(a.2.cmp(&b.2)));
                 let full = self.assortative.len() / k * k;
                 for idx in 0..full {
                     let i = self.assortative[idx].2;
@@ -400,7 +433,12 @@ impl<'a> ArmReplication<'a> {
 
     /// Applies shock `si` (probability `p` this cycle) to the served members of village `v`.
     fn shock_village(&mut self, cycle: u32, si: usize, sc: ShockCycle, v: usize, g_start: usize, g_end: usize) {
-        let ShockCycle { probability: p, threshold_row, portfolio_factor, .. } = sc;
+        let ShockCycle {
+            probability: p,
+            threshold_row,
+            portfolio_factor,
+            ..
+        } = sc;
         let scenario = self.scenario;
         let shock = &scenario.shocks[si];
         let k = self.k;
@@ -446,10 +484,8 @@ impl<'a> ArmReplication<'a> {
                 }
             }
             ShockScope::Group | ShockScope::Village | ShockScope::Portfolio => {
-                if shock.scope == ShockScope::Village {
-                    if unit_f64(dense_u64(&self.village_draws[si], v as u32)) >= p {
-                        return;
-                    }
+                if shock.scope == ShockScope::Village && unit_f64(dense_u64(&self.village_draws[si], v as u32)) >= p {
+                    return;
                 }
                 let reach = shock.reach;
                 if reach < 1.0 {
@@ -547,7 +583,11 @@ impl<'a> ArmReplication<'a> {
             }
             // Step 6: exclusion of the group (joint, scope group), or of members with a shortfall
             let excluded_now = group.iter().zip(short.iter()).filter_map(|(&i, &s)| {
-                let out = if joint { !repaid && (exclude_whole_group || s) } else { s };
+                let out = if joint {
+                    !repaid && (exclude_whole_group || s)
+                } else {
+                    s
+                };
                 out.then_some(i as usize)
             });
             match exclusion {
@@ -568,7 +608,13 @@ impl<'a> ArmReplication<'a> {
         }
         let start = self.village_start[v];
         let size = self.village_start[v + 1] - start;
-        fill_dense(&self.key, cycle_stream_id(Purpose::Dropout, cycle, 0, v as u32), size, 2, &mut self.dense);
+        fill_dense(
+            &self.key,
+            cycle_stream_id(Purpose::Dropout, cycle, 0, v as u32),
+            size,
+            2,
+            &mut self.dense,
+        );
         for m in 0..size {
             if self.pool.occupied[start + m] && unit_f64(dense_u64(&self.dense, m as u32)) < q {
                 self.pool.occupied[start + m] = false;

@@ -114,7 +114,14 @@ impl<'a, const W: usize> SlotDraws<'a, W> {
         let start = slot_index as usize * W;
         let mut words = [0u32; W];
         words.copy_from_slice(&dense[start..start + W]);
-        SlotDraws { words, used: 0, key, stream_id, slot_index, fallback: None }
+        SlotDraws {
+            words,
+            used: 0,
+            key,
+            stream_id,
+            slot_index,
+            fallback: None,
+        }
     }
 
     /// The block of slot index `slot_index`, read by seeking (for sparse access).
@@ -125,7 +132,14 @@ impl<'a, const W: usize> SlotDraws<'a, W> {
         for w in &mut words {
             *w = rng.next_u32();
         }
-        SlotDraws { words, used: 0, key, stream_id, slot_index, fallback: None }
+        SlotDraws {
+            words,
+            used: 0,
+            key,
+            stream_id,
+            slot_index,
+            fallback: None,
+        }
     }
 
     fn fallback_u32(&mut self) -> u32 {

@@ -158,7 +158,14 @@ pub fn summary_csv(report: &RunReport) -> Vec<u8> {
 
 /// timeseries.csv: per arm and counted cycle, means over replications.
 pub fn timeseries_csv(report: &RunReport) -> Vec<u8> {
-    let header = ["arm", "cycle", "served_share", "group_repayment_rate", "loss_rate", "excluded_share"];
+    let header = [
+        "arm",
+        "cycle",
+        "served_share",
+        "group_repayment_rate",
+        "loss_rate",
+        "excluded_share",
+    ];
     let rows = report
         .arms
         .iter()

@@ -10,8 +10,16 @@ fn pct(x: Option<f64>) -> String {
 /// A table of the main figures per arm, the best arm, warnings and the caution.
 pub fn summary_table(report: &RunReport) -> String {
     let mut out = String::new();
-    let name = if report.scenario.name.is_empty() { "(unnamed scenario)" } else { &report.scenario.name };
-    let _ = writeln!(out, "{name}: {} replications x {} counted cycles, seed {}", report.scenario.replications, report.scenario.cycles, report.seed);
+    let name = if report.scenario.name.is_empty() {
+        "(unnamed scenario)"
+    } else {
+        &report.scenario.name
+    };
+    let _ = writeln!(
+        out,
+        "{name}: {} replications x {} counted cycles, seed {}",
+        report.scenario.replications, report.scenario.cycles, report.seed
+    );
     let width = report.arms.iter().map(|a| a.arm.label.len()).max().unwrap_or(3).max(3);
     let _ = writeln!(
         out,
@@ -42,7 +50,11 @@ pub fn summary_table(report: &RunReport) -> String {
         );
     }
     if let Some(b) = &report.best {
-        let _ = writeln!(out, "best arm by group repayment: {} (group size {})", b.label, b.group_size);
+        let _ = writeln!(
+            out,
+            "best arm by group repayment: {} (group size {})",
+            b.label, b.group_size
+        );
         if report.scenario.arms.len() > 1 {
             let sizes: Vec<String> = b.confidence_set_group_sizes.iter().map(|k| k.to_string()).collect();
             let _ = writeln!(

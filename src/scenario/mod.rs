@@ -31,10 +31,19 @@ pub enum ScenarioError {
     Unreadable { file: String, reason: String },
     /// The text is not valid TOML, or a field has the wrong type or is unknown.
     #[error("{file}: {location}{message}")]
-    Syntax { file: String, location: String, message: String },
+    Syntax {
+        file: String,
+        location: String,
+        message: String,
+    },
     /// A field's value is outside what is allowed.
     #[error("{file}: {field} = {value} is not allowed: {allowed}")]
-    Invalid { file: String, field: String, value: String, allowed: String },
+    Invalid {
+        file: String,
+        field: String,
+        value: String,
+        allowed: String,
+    },
 }
 
 impl Scenario {
@@ -47,8 +56,10 @@ impl Scenario {
     /// Reads, parses and validates a scenario file.
     pub fn load(path: &Path) -> Result<(Scenario, String), ScenarioError> {
         let origin = path.display().to_string();
-        let text = std::fs::read_to_string(path)
-            .map_err(|e| ScenarioError::Unreadable { file: origin.clone(), reason: e.to_string().to_lowercase() })?;
+        let text = std::fs::read_to_string(path).map_err(|e| ScenarioError::Unreadable {
+            file: origin.clone(),
+            reason: e.to_string().to_lowercase(),
+        })?;
         let scenario = Scenario::from_toml_str(&text, &origin)?;
         Ok((scenario, text))
     }

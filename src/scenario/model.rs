@@ -33,7 +33,9 @@ impl ShockProbability {
     pub fn at(&self, group_size: u32) -> f64 {
         match self {
             ShockProbability::Fixed(p) => *p,
-            ShockProbability::Curve(c) => c.at(group_size).expect("validated: every arm's group size is in the curve's domain"),
+            ShockProbability::Curve(c) => c
+                .at(group_size)
+                .expect("validated: every arm's group size is in the curve's domain"),
         }
     }
 }
@@ -73,12 +75,16 @@ pub struct Shock {
 impl Shock {
     /// The probability in force in `cycle` (1-based, warm-up included) at group size `k`.
     pub fn probability_in_cycle(&self, cycle: u32, group_size: u32) -> f64 {
-        self.stress_override(cycle).unwrap_or_else(|| self.probability.at(group_size))
+        self.stress_override(cycle)
+            .unwrap_or_else(|| self.probability.at(group_size))
     }
 
     /// The stress window's probability if `cycle` lies in one.
     pub fn stress_override(&self, cycle: u32) -> Option<f64> {
-        self.stress.iter().find(|w| w.from <= cycle && cycle <= w.to).map(|w| w.probability)
+        self.stress
+            .iter()
+            .find(|w| w.from <= cycle && cycle <= w.to)
+            .map(|w| w.probability)
     }
 }
 

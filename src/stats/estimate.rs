@@ -49,7 +49,8 @@ pub fn mean_and_se(values: &[f64]) -> Option<(f64, Option<f64>)> {
     }
     let n = values.len() as f64;
     let mean = values.iter().sum::<f64>() / n;
-    let se = (values.len() >= 2).then(|| (values.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n - 1.0) / n).sqrt());
+    let se =
+        (values.len() >= 2).then(|| (values.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n - 1.0) / n).sqrt());
     Some((mean, se))
 }
 
@@ -70,7 +71,11 @@ pub fn quantile_sorted(sorted: &[f64], q: f64) -> Option<f64> {
 pub fn expected_shortfall_sorted(sorted: &[f64], q: f64) -> Option<f64> {
     let threshold = quantile_sorted(sorted, q)?;
     let tail: Vec<f64> = sorted.iter().copied().filter(|&v| v >= threshold).collect();
-    if tail.is_empty() { None } else { Some(tail.iter().sum::<f64>() / tail.len() as f64) }
+    if tail.is_empty() {
+        None
+    } else {
+        Some(tail.iter().sum::<f64>() / tail.len() as f64)
+    }
 }
 
 /// Sorts a copy of the values in ascending order (NaN never occurs: rates are finite by design).

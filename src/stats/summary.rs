@@ -1,8 +1,8 @@
 //! Per-arm figures computed from an arm's replications: the rows of summary.csv and the time series.
 
 use crate::scenario::Scenario;
-use crate::stats::estimate::{self, RatioEstimate};
 use crate::stats::ArmTally;
+use crate::stats::estimate::{self, RatioEstimate};
 use serde::Serialize;
 
 /// Every figure reported for one arm. `None` is an empty cell (zero denominator, too few values).
@@ -75,7 +75,12 @@ pub struct Interval {
 
 impl From<RatioEstimate> for Interval {
     fn from(r: RatioEstimate) -> Self {
-        Interval { rate: r.rate, standard_error: r.standard_error, ci_low: r.ci_low(), ci_high: r.ci_high() }
+        Interval {
+            rate: r.rate,
+            standard_error: r.standard_error,
+            ci_low: r.ci_low(),
+            ci_high: r.ci_high(),
+        }
     }
 }
 
@@ -110,7 +115,8 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
     let group_cycles = sum_u(|r| r.group_cycles);
     let member_loans = sum_u(|r| r.member_loans);
     let k = f64::from(group_size);
-    let group_repayment = estimate::ratio(reps.iter().map(|r| (r.groups_repaid as f64, r.group_cycles as f64))).map(Interval::from);
+    let group_repayment =
+        estimate::ratio(reps.iter().map(|r| (r.groups_repaid as f64, r.group_cycles as f64))).map(Interval::from);
     let loss_rate = estimate::ratio(reps.iter().map(|r| (r.loss, r.disbursed))).map(Interval::from);
     let member_shortfall_rate = share(sum_u(|r| r.member_shortfalls), member_loans);
     let due = sum_f(|r| r.due);
@@ -120,8 +126,15 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
     let slot_cycles: u64 = reps.iter().map(|r| r.slot_cycles()).sum();
     let rep_losses: Vec<f64> = reps.iter().filter_map(|r| r.loss_rate()).collect();
     let rep_losses = estimate::sorted(&rep_losses);
-    let cycle_losses: Vec<f64> =
-        reps.iter().flat_map(|r| r.cycles.iter().filter(|c| c.disbursed > 0.0).map(|c| c.loss / c.disbursed)).collect();
+    let cycle_losses: Vec<f64> = reps
+        .iter()
+        .flat_map(|r| {
+            r.cycles
+                .iter()
+                .filter(|c| c.disbursed > 0.0)
+                .map(|c| c.loss / c.disbursed)
+        })
+        .collect();
     let cycle_losses = estimate::sorted(&cycle_losses);
     ArmSummary {
         replications: reps.len() as u64,
@@ -172,7 +185,12 @@ pub fn shortfall_icc(tally: &ArmTally, group_size: u32) -> Option<f64> {
     }
     let g = groups as f64;
     let mean = hist.iter().enumerate().map(|(n, &c)| n as f64 * c as f64).sum::<f64>() / g;
-    let var = hist.iter().enumerate().map(|(n, &c)| (n as f64 - mean).powi(2) * c as f64).sum::<f64>() / g;
+    let var = hist
+        .iter()
+        .enumerate()
+        .map(|(n, &c)| (n as f64 - mean).powi(2) * c as f64)
+        .sum::<f64>()
+        / g;
     let q = mean / k;
     let binomial_var = k * q * (1.0 - q);
     (binomial_var > 0.0).then(|| (var / binomial_var - 1.0) / (k - 1.0))

@@ -166,7 +166,11 @@ mod tests {
         let mut even = ArmTally::default();
         let mut odd = ArmTally::default();
         for r in (0..10).rev() {
-            if r % 2 == 0 { even.push(tally(r)) } else { odd.push(tally(r)) }
+            if r % 2 == 0 {
+                even.push(tally(r))
+            } else {
+                odd.push(tally(r))
+            }
         }
         even.merge(odd).unwrap();
         assert_eq!(even, one);

@@ -25,7 +25,10 @@ pub fn arm_summary(s: &Scenario, results: &RunResults, arm: usize) -> ArmSummary
 /// error must be below `max_se`, so the tolerance cannot swallow a real discrepancy.
 pub fn assert_within(label: &str, estimate: f64, se: f64, reference: f64, max_se: f64) {
     assert!(se.is_finite() && se > 0.0, "{label}: standard error {se} unusable");
-    assert!(se <= max_se, "{label}: standard error {se} too large for a sharp check (max {max_se})");
+    assert!(
+        se <= max_se,
+        "{label}: standard error {se} too large for a sharp check (max {max_se})"
+    );
     let z = (estimate - reference) / se;
     assert!(
         z.abs() <= STANDARD_ERRORS,
