@@ -14,7 +14,7 @@ use crate::analytic::normal;
 use crate::scenario::{Exclusion, ExclusionScope, Formation, Liability, Matching, Policy, Scenario, ShockScope};
 use crate::stats::{CycleRecord, ReplicationTally};
 use rand_distr::{Distribution as _, StandardNormal};
-use streams::{Purpose, SlotDraws, cycle_stream_id, dense_u64, fill_dense, unit_f64};
+use streams::{DenseBlocks, Purpose, SlotDraws, cycle_stream_id, dense_u64, fill_dense, unit_f64};
 
 /// Slack of the joint repayment test, relative to the group's amount due: absorbs rounding only.
 const REPAYMENT_SLACK: f64 = 1e-9;
@@ -53,7 +53,9 @@ struct Pool {
     risk: Vec<f64>,
     /// Last cycle of exclusion; eligible in cycle t iff `excluded_through < t`.
     excluded_through: Vec<u32>,
-    /// Phi^-1(min(1, u p)) per member-scope shock: `threshold[s * N + index]`.
+    /// Hit probability min(1, u p) per member-scope shock: `hit_probability[s * N + index]`.
+    hit_probability: Vec<f64>,
+    /// Its normal quantile Phi^-1(min(1, u p)), the threshold of the factor model.
     threshold: Vec<f64>,
     /// Whether the member is in a group this cycle.
     assigned: Vec<bool>,
@@ -85,16 +87,18 @@ struct ArmReplication<'a> {
     previous_village_groups: Vec<usize>,
     previous_entrants: Vec<u32>,
     // scratch buffers
-    dense: Vec<u32>,
-    dense_reach: Vec<u32>,
+    dense: DenseBlocks,
+    dense_reach: DenseBlocks,
     candidates: Vec<u64>,
     sort_scratch: Vec<u64>,
     sort_counts: Vec<u32>,
     assortative: Vec<(f64, u64, u32)>,
     shortfall: Vec<bool>,
     shock_cycle: Vec<ShockCycle>,
+    /// Whether every member has the same risk multiplier (a fixed risk distribution).
+    shared_risk: bool,
     /// Per shock, this cycle's village blocks (factor or strike), indexed by village.
-    village_draws: Vec<Vec<u32>>,
+    village_draws: Vec<DenseBlocks>,
     tally: ReplicationTally,
 }
 
@@ -132,6 +136,7 @@ impl<'a> ArmReplication<'a> {
                 income: vec![0.0; n],
                 risk: vec![0.0; n],
                 excluded_through: vec![0; n],
+                hit_probability: vec![0.0; ms * n],
                 threshold: vec![f64::NEG_INFINITY; ms * n],
                 assigned: vec![false; n],
                 multiplier: vec![1.0; n],
@@ -143,15 +148,16 @@ impl<'a> ArmReplication<'a> {
             previous_groups: Vec::new(),
             previous_village_groups: vec![0; villages + 1],
             previous_entrants: Vec::new(),
-            dense: Vec::new(),
-            dense_reach: Vec::new(),
+            dense: DenseBlocks::default(),
+            dense_reach: DenseBlocks::default(),
             candidates: Vec::new(),
             sort_scratch: Vec::new(),
             sort_counts: Vec::new(),
             assortative: Vec::new(),
             shortfall: vec![false; policy.group_size as usize],
             shock_cycle: Vec::new(),
-            village_draws: vec![Vec::new(); scenario.shocks.len()],
+            shared_risk: scenario.risk.fixed_value().is_some(),
+            village_draws: vec![DenseBlocks::default(); scenario.shocks.len()],
             tally: ReplicationTally::new(replication, policy.group_size, scenario.cycles),
         }
     }
@@ -162,8 +168,12 @@ impl<'a> ArmReplication<'a> {
         (v + self.villages * (i - self.village_start[v])) as u32
     }
 
-    fn threshold_for(risk: f64, probability: f64) -> f64 {
-        normal::inv_cdf((risk * probability).min(1.0))
+    /// Caches member `i`'s hit probability and threshold for member-scope shock row `s`.
+    #[inline]
+    fn set_threshold(pool: &mut Pool, n: usize, s: usize, i: usize, probability: f64) {
+        let pi = (pool.risk[i] * probability).min(1.0);
+        pool.hit_probability[s * n + i] = pi;
+        pool.threshold[s * n + i] = normal::inv_cdf(pi);
     }
 
     /// One cycle. Villages are independent within a cycle once the portfolio-wide draws are made,
@@ -247,10 +257,9 @@ impl<'a> ArmReplication<'a> {
                 continue;
             }
             self.cached_probability[s] = p;
-            let row = &mut self.pool.threshold[s * self.n..(s + 1) * self.n];
-            for (i, t) in row.iter_mut().enumerate() {
+            for i in 0..self.n {
                 if self.pool.occupied[i] {
-                    *t = Self::threshold_for(self.pool.risk[i], p);
+                    Self::set_threshold(&mut self.pool, self.n, s, i, p);
                 }
             }
         }
@@ -278,7 +287,7 @@ impl<'a> ArmReplication<'a> {
             self.pool.risk[i] = risk;
             self.pool.excluded_through[i] = 0;
             for s in 0..self.member_shocks.len() {
-                self.pool.threshold[s * self.n + i] = Self::threshold_for(risk, self.cached_probability[s]);
+                Self::set_threshold(&mut self.pool, self.n, s, i, self.cached_probability[s]);
             }
         }
     }
@@ -350,40 +359,37 @@ impl<'a> ArmReplication<'a> {
             Matching::Random => {
                 // Sort keys pack the slot's random word above its index in the village, so one
                 // integer comparison orders by the random word and breaks ties by position.
+                // Village sizes are below 2^28 (validated), so the index fits in the low bits.
                 let index_bits = usize::BITS - size.leading_zeros();
+                let index_mask = (1u64 << index_bits) - 1;
                 self.candidates.clear();
                 self.candidates.resize(size, 0);
                 let mut len = 0usize;
-                for m in 0..size {
-                    let i = start + m;
-                    let random = if needs_keys {
-                        dense_u64(&self.dense, m as u32)
-                    } else {
-                        0
-                    };
-                    let packed = if index_bits >= 64 {
-                        m as u64
-                    } else {
-                        (random >> index_bits << index_bits) | m as u64
-                    };
-                    // written unconditionally, kept only when eligible: avoids a hard-to-predict branch
-                    self.candidates[len] = packed;
-                    len += usize::from(
-                        !self.pool.assigned[i] & self.pool.occupied[i] & (self.pool.excluded_through[i] < cycle),
-                    );
+                let assigned = &self.pool.assigned[start..end];
+                let occupied = &self.pool.occupied[start..end];
+                let through = &self.pool.excluded_through[start..end];
+                let candidates = &mut self.candidates[..];
+                if needs_keys {
+                    let dense = &self.dense;
+                    for (m, ((&a, &o), &t)) in assigned.iter().zip(occupied).zip(through).enumerate() {
+                        let random = dense.u64_at(m as u32);
+                        // written unconditionally, kept only when eligible: avoids a hard-to-predict branch
+                        candidates[len] = (random & !index_mask) | m as u64;
+                        len += usize::from(!a & o & (t < cycle));
+                    }
+                } else {
+                    for (m, ((&a, &o), &t)) in assigned.iter().zip(occupied).zip(through).enumerate() {
+                        candidates[len] = m as u64;
+                        len += usize::from(!a & o & (t < cycle));
+                    }
                 }
                 self.candidates.truncate(len);
                 if needs_keys {
                     sort_uniform_keys(&mut self.candidates, &mut self.sort_scratch, &mut self.sort_counts);
                 }
-                let full = self.candidates.len() / k * k;
-                let mask = if index_bits >= 64 {
-                    u64::MAX
-                } else {
-                    (1u64 << index_bits) - 1
-                };
+                let full = len / k * k;
                 for &c in &self.candidates[..full] {
-                    let i = start + (c & mask) as usize;
+                    let i = start + (c & index_mask) as usize;
                     self.pool.assigned[i] = true;
                     self.groups.push(i as u32);
                 }
@@ -470,16 +476,36 @@ impl<'a> ArmReplication<'a> {
                 } else {
                     0.0
                 };
+                // Member i is hit iff common + idio * e_i < t_i with e_i = Phi^-1(U_i) and U_i the
+                // member's uniform draw, i.e. iff U_i < Phi((t_i - common) / idio). Comparing in
+                // uniform space needs no normal draw, and with a shared threshold (fixed risk) or
+                // without factors no special function per member at all.
                 let common = rv.sqrt() * village_factor + rp.sqrt() * portfolio_factor;
                 let idiosyncratic = (1.0 - rv - rp).sqrt();
                 let id = cycle_stream_id(Purpose::MemberShock, cycle, si, v as u32);
                 fill_dense(key, id, size, 2, &mut self.dense);
-                let thresholds = &self.pool.threshold[threshold_row * self.n..(threshold_row + 1) * self.n];
-                for &i in members {
-                    let mut d = SlotDraws::<2>::from_dense(key, id, &self.dense, i - start as u32);
-                    let e: f64 = StandardNormal.sample(&mut d);
-                    if common + idiosyncratic * e < thresholds[i as usize] {
-                        hit(i);
+                let row = threshold_row * self.n..(threshold_row + 1) * self.n;
+                let hit_probability = &self.pool.hit_probability[row.clone()];
+                let thresholds = &self.pool.threshold[row];
+                let draw = |i: u32| unit_f64(dense_u64(&self.dense, i - start as u32));
+                if rv == 0.0 && rp == 0.0 {
+                    for &i in members {
+                        if draw(i) < hit_probability[i as usize] {
+                            hit(i);
+                        }
+                    }
+                } else if self.shared_risk {
+                    let conditional = normal::cdf((thresholds[members[0] as usize] - common) / idiosyncratic);
+                    for &i in members {
+                        if draw(i) < conditional {
+                            hit(i);
+                        }
+                    }
+                } else {
+                    for &i in members {
+                        if draw(i) < normal::cdf((thresholds[i as usize] - common) / idiosyncratic) {
+                            hit(i);
+                        }
                     }
                 }
             }
@@ -667,7 +693,7 @@ mod tests {
     #[test]
     fn bucket_sort_matches_comparison_sort() {
         let key = streams::replication_key(5, 0);
-        let mut buf = Vec::new();
+        let mut buf = DenseBlocks::default();
         for n in [0usize, 1, 2, 3, 17, 200, 1000] {
             fill_dense(&key, n as u64, n, 2, &mut buf);
             let mut keys: Vec<u64> = (0..n as u32).map(|m| dense_u64(&buf, m)).collect();

@@ -86,12 +86,41 @@ pub fn open(key: &[u8; 32], stream_id: u64) -> ChaCha8Rng {
     rng
 }
 
+/// A densely generated run of per-slot blocks of one stream, kept as the generator's bytes (words
+/// are little-endian, as ChaCha defines them), reused across fills to avoid allocation.
+#[derive(Debug, Default, Clone)]
+pub struct DenseBlocks {
+    bytes: Vec<u8>,
+}
+
+impl DenseBlocks {
+    /// Fills the blocks of `slots` consecutive slot indices (from 0), `width` words each.
+    pub fn fill(&mut self, key: &[u8; 32], stream_id: u64, slots: usize, width: usize) {
+        // Resizing only grows the buffer; the generator overwrites every byte that is read.
+        self.bytes.resize(slots * width * 4, 0);
+        let mut rng = open(key, stream_id);
+        rng.fill_bytes(&mut self.bytes);
+    }
+
+    /// Word `word` of the run (block `m` of width `W` starts at word `m * W`).
+    #[inline]
+    pub fn word(&self, word: usize) -> u32 {
+        let bytes: [u8; 4] = self.bytes[4 * word..4 * word + 4].try_into().expect("4 bytes");
+        u32::from_le_bytes(bytes)
+    }
+
+    /// The 64-bit value of 2-word block `index` (low word first).
+    #[inline]
+    pub fn u64_at(&self, index: u32) -> u64 {
+        let i = index as usize * 8;
+        let bytes: [u8; 8] = self.bytes[i..i + 8].try_into().expect("8 bytes");
+        u64::from_le_bytes(bytes)
+    }
+}
+
 /// Fills `buf` with the blocks of `slots` consecutive slot indices (from 0), `width` words each.
-pub fn fill_dense(key: &[u8; 32], stream_id: u64, slots: usize, width: usize, buf: &mut Vec<u32>) {
-    buf.clear();
-    buf.resize(slots * width, 0);
-    let mut rng = open(key, stream_id);
-    rand::Fill::fill(&mut buf[..], &mut rng);
+pub fn fill_dense(key: &[u8; 32], stream_id: u64, slots: usize, width: usize, buf: &mut DenseBlocks) {
+    buf.fill(key, stream_id, slots, width);
 }
 
 /// The draws of one slot: its fixed block of words, then its private fallback region.
@@ -110,10 +139,12 @@ pub struct SlotDraws<'a, const W: usize> {
 impl<'a, const W: usize> SlotDraws<'a, W> {
     /// The block of slot index `slot_index`, taken from a densely filled buffer of `W`-word blocks.
     #[inline]
-    pub fn from_dense(key: &'a [u8; 32], stream_id: u64, dense: &[u32], slot_index: u32) -> Self {
+    pub fn from_dense(key: &'a [u8; 32], stream_id: u64, dense: &DenseBlocks, slot_index: u32) -> Self {
         let start = slot_index as usize * W;
         let mut words = [0u32; W];
-        words.copy_from_slice(&dense[start..start + W]);
+        for (j, w) in words.iter_mut().enumerate() {
+            *w = dense.word(start + j);
+        }
         SlotDraws {
             words,
             used: 0,
@@ -181,11 +212,10 @@ impl<const W: usize> RngCore for SlotDraws<'_, W> {
     }
 }
 
-/// Reads the `index`-th 64-bit word pair of a dense buffer of 2-word blocks.
+/// Reads the `index`-th 64-bit value of a dense run of 2-word blocks.
 #[inline]
-pub fn dense_u64(dense: &[u32], index: u32) -> u64 {
-    let i = index as usize * 2;
-    u64::from(dense[i]) | (u64::from(dense[i + 1]) << 32)
+pub fn dense_u64(dense: &DenseBlocks, index: u32) -> u64 {
+    dense.u64_at(index)
 }
 
 #[cfg(test)]
@@ -197,7 +227,7 @@ mod tests {
     fn dense_and_seek_give_the_same_block() {
         let key = replication_key(42, 3);
         let id = cycle_stream_id(Purpose::MemberShock, 7, 1, 5);
-        let mut dense = Vec::new();
+        let mut dense = DenseBlocks::default();
         fill_dense(&key, id, 100, 4, &mut dense);
         for m in [0u32, 1, 17, 99] {
             let mut a = SlotDraws::<4>::from_dense(&key, id, &dense, m);
