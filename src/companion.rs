@@ -1,21 +1,44 @@
 //! Theory beside every simulation: exact results of the one-factor class and the closed-form
 //! optimum, per arm, and the self-check that warns when a simulation strays from an exact value.
+//!
+//! It lives apart from `analytic` (which knows nothing of simulations) and from `report` (which only
+//! assembles), so the rule deciding when a simulated figure contradicts theory is in one place.
 
+use crate::analytic::{normal, one_factor, optimum};
 use crate::report::ArmReport;
-use crate::scenario::Scenario;
+use crate::scenario::{Scenario, ShockProbability, ShockScope};
+
+/// Fewest replications for the self-check: below it the between-replication standard error is too
+/// unreliable to call a difference a contradiction.
+pub const SELF_CHECK_MIN_REPLICATIONS: u32 = 30;
+
+/// Two-sided family-wise level of the self-check band (99.9%, Bonferroni over the arms).
+pub const SELF_CHECK_LEVEL: f64 = 0.999;
 
 /// Closed forms computed once per scenario for the report.
 pub struct SimulationCompanion {
     exact: Vec<Option<f64>>,
     optimum: Option<f64>,
+    out_of_class: Option<String>,
 }
 
 impl SimulationCompanion {
     /// Computes what theory can say about each arm of `scenario`.
     pub fn new(scenario: &Scenario) -> Self {
+        let class = one_factor::class_check(scenario);
+        let (exact, out_of_class) = match &class {
+            Ok(_) => (
+                (0..scenario.arms.len())
+                    .map(|a| one_factor::exact_for_arm(scenario, a).ok().map(|r| r.group_repayment))
+                    .collect(),
+                None,
+            ),
+            Err(reason) => (vec![None; scenario.arms.len()], Some(reason.reason.clone())),
+        };
         SimulationCompanion {
-            exact: vec![None; scenario.arms.len()],
-            optimum: None,
+            exact,
+            optimum: curve_optimum(scenario),
+            out_of_class,
         }
     }
 
@@ -24,13 +47,59 @@ impl SimulationCompanion {
         self.exact.get(arm).copied().flatten()
     }
 
-    /// Closed-form optimum of the curve driving a member-scope shock.
+    /// Closed-form optimum x* of the curve driving the first member-scope shock that has one.
     pub fn closed_form_optimum(&self) -> Option<f64> {
         self.optimum
     }
 
-    /// Warnings where a simulated rate is further from its exact value than chance allows.
-    pub fn self_check(&self, _scenario: &Scenario, _arms: &[ArmReport]) -> Vec<String> {
-        Vec::new()
+    /// Why the scenario has no exact results, if it has none.
+    pub fn out_of_class(&self) -> Option<&str> {
+        self.out_of_class.as_deref()
+    }
+
+    /// Warnings where a simulated group repayment rate lies outside the Bonferroni-adjusted 99.9%
+    /// band around its exact value (only in the class and with enough replications to trust the
+    /// standard error).
+    pub fn self_check(&self, scenario: &Scenario, arms: &[ArmReport]) -> Vec<String> {
+        if scenario.replications < SELF_CHECK_MIN_REPLICATIONS || self.exact.iter().all(Option::is_none) {
+            return Vec::new();
+        }
+        let tail = (1.0 - SELF_CHECK_LEVEL) / (2.0 * arms.len().max(1) as f64);
+        let z = normal::inv_cdf(1.0 - tail);
+        let mut warnings = Vec::new();
+        for (i, arm) in arms.iter().enumerate() {
+            let (Some(exact), Some(sim)) = (self.group_repayment(i), arm.summary.group_repayment) else {
+                continue;
+            };
+            let Some(se) = sim.standard_error else { continue };
+            let distance = (sim.rate - exact).abs();
+            // A zero standard error (every replication identical) makes any difference a contradiction.
+            if distance > z * se && distance > 1e-12 {
+                warnings.push(format!(
+                    "self-check: arm {} simulated group repayment {:.6} differs from the exact {:.6} by {:.1} standard \
+                     errors (band: {:.2}, 99.9% Bonferroni over {} arms)",
+                    arm.arm.label,
+                    sim.rate,
+                    exact,
+                    if se > 0.0 { distance / se } else { f64::INFINITY },
+                    z,
+                    arms.len()
+                ));
+            }
+        }
+        warnings
+    }
+}
+
+/// x* of the curve of the first member-scope shock driven by a group-size curve, scaled by the risk
+/// multiplier when that is fixed.
+fn curve_optimum(scenario: &Scenario) -> Option<f64> {
+    let curve = scenario.shocks.iter().find_map(|s| match (&s.scope, &s.probability) {
+        (ShockScope::Member, ShockProbability::Curve(c)) => Some(c),
+        _ => None,
+    })?;
+    match scenario.risk.fixed_value() {
+        Some(u) => optimum::closed_form_optimum_scaled(curve, u),
+        None => optimum::closed_form_optimum(curve),
     }
 }

@@ -2,6 +2,7 @@
 
 use clap::{Parser, Subcommand};
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
+use loancycle::analytic::{self, optimum};
 use loancycle::output::{self, terminal};
 use loancycle::scenario::Scenario;
 use loancycle::{demo, report, run};
@@ -48,6 +49,42 @@ enum Command {
     },
     /// Print the built-in baseline scenario, a starting point for your own file.
     DemoScenario,
+    /// Closed-form best group size of a group-size curve (independent members, no peer cover).
+    Optimum {
+        /// The curve: constant, power, power_plus_log or table.
+        #[arg(long)]
+        curve: String,
+        /// Exponent p of power and power_plus_log, or a band `from..to` of exponents.
+        #[arg(long, allow_negative_numbers = true)]
+        p: Option<String>,
+        /// Value of a constant curve.
+        #[arg(long)]
+        value: Option<f64>,
+        /// Values of a table curve, e.g. `2=0.08,3=0.06,4=0.05`.
+        #[arg(long)]
+        values: Option<String>,
+        /// Number of equally spaced exponents in a band, both ends included.
+        #[arg(long, default_value_t = 501, value_parser = clap::value_parser!(u32).range(2..=1_000_000))]
+        steps: u32,
+        /// Integer group sizes to tabulate, both ends included.
+        #[arg(long, default_value = "2..12")]
+        range: String,
+        /// Print JSON instead of a table.
+        #[arg(long, conflicts_with = "csv")]
+        json: bool,
+        /// Print the per-size table as CSV.
+        #[arg(long)]
+        csv: bool,
+    },
+    /// Exact group repayment of the one-factor class, the large-portfolio loss law and the Basel II
+    /// retail comparison for a scenario, without simulating.
+    Analyze {
+        /// Scenario file (TOML).
+        file: PathBuf,
+        /// Print JSON instead of a table.
+        #[arg(long)]
+        json: bool,
+    },
 }
 
 /// Exit code for invalid input (scenario, flags, output directory).
@@ -64,9 +101,80 @@ fn load(file: Option<&PathBuf>) -> Result<(Scenario, String, String), String> {
     }
 }
 
+/// Turns the `optimum` flags into a request; every refusal names the flag, the value and what is allowed.
+fn optimum_request(
+    curve: &str,
+    p: Option<&str>,
+    value: Option<f64>,
+    values: Option<&str>,
+    steps: u32,
+    range: &str,
+) -> Result<optimum::OptimumRequest, String> {
+    let range = optimum::parse_range(range).map_err(|e| format!("--range: {e}"))?;
+    let (parameter, band) = match p {
+        Some(text) if text.contains("..") => {
+            let (from, to) = optimum::parse_band(text).map_err(|e| format!("--p: {e}"))?;
+            (Some(from), Some((from, to, steps as usize - 1)))
+        }
+        Some(text) => {
+            let x = text
+                .trim()
+                .parse::<f64>()
+                .map_err(|_| format!("--p = \"{text}\" is not allowed: a number, or a band such as 0.5..1"))?;
+            (Some(x), None)
+        }
+        None => (value, None),
+    };
+    let curve = optimum::curve_from_parts(curve, parameter, values).map_err(|e| format!("--curve: {e}"))?;
+    Ok(optimum::OptimumRequest { curve, band, range })
+}
+
 fn main() -> ExitCode {
     let cli = Cli::parse();
     match cli.command {
+        Command::Optimum {
+            curve,
+            p,
+            value,
+            values,
+            steps,
+            range,
+            json,
+            csv,
+        } => {
+            let report = optimum_request(&curve, p.as_deref(), value, values.as_deref(), steps, &range)
+                .and_then(|req| optimum::solve(&req).map_err(|e| e.to_string()));
+            match report {
+                Ok(r) => {
+                    print!(
+                        "{}",
+                        if json {
+                            r.to_json()
+                        } else if csv {
+                            r.to_csv()
+                        } else {
+                            r.to_table()
+                        }
+                    );
+                    ExitCode::SUCCESS
+                }
+                Err(e) => {
+                    eprintln!("error: {e}");
+                    ExitCode::from(BAD_INPUT)
+                }
+            }
+        }
+        Command::Analyze { file, json } => match load(Some(&file)) {
+            Ok((scenario, _, _)) => {
+                let report = analytic::report::analyze(&scenario);
+                print!("{}", if json { report.to_json() } else { report.to_table() });
+                ExitCode::SUCCESS
+            }
+            Err(e) => {
+                eprintln!("error: {e}");
+                ExitCode::from(BAD_INPUT)
+            }
+        },
         Command::DemoScenario => {
             print!("{}", demo::BASELINE);
             ExitCode::SUCCESS

@@ -61,6 +61,8 @@ pub struct RunReport {
     pub scenario: Scenario,
     /// One entry per arm, in arm order.
     pub arms: Vec<ArmReport>,
+    /// Why exact one-factor values are absent (the feature that takes the scenario out of the class).
+    pub analytic_out_of_class: Option<String>,
     /// The best arm, when at least one arm served a group.
     pub best: Option<BestArm>,
     /// Self-check findings and other notes the user should see.
@@ -110,6 +112,7 @@ pub fn build(scenario: &Scenario, scenario_text: &str, origin: &str, results: &R
         seed: scenario.seed,
         scenario: scenario.clone(),
         arms,
+        analytic_out_of_class: analytic.out_of_class().map(str::to_string),
         best,
         warnings,
         caution: CAUTION.to_string(),

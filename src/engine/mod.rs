@@ -599,6 +599,7 @@ impl<'a> ArmReplication<'a> {
                 t.recovered += recovery * unpaid_principal;
                 record.disbursed += group_principal;
                 record.loss += loss;
+                record.shortfalls += n_short;
                 if repaid {
                     t.groups_repaid += 1;
                     record.groups_repaid += 1;

@@ -49,6 +49,9 @@ pub fn summary_table(report: &RunReport) -> String {
             pct(s.excluded_share)
         );
     }
+    if let Some(reason) = &report.analytic_out_of_class {
+        let _ = writeln!(out, "exact values: none, outside the one-factor class ({reason})");
+    }
     if let Some(b) = &report.best {
         let _ = writeln!(
             out,

@@ -18,6 +18,8 @@ pub struct CycleRecord {
     pub groups: u32,
     /// Groups that repaid in full.
     pub groups_repaid: u32,
+    /// Served members with a shortfall (S_i > 0).
+    pub shortfalls: u32,
     /// Principal lost (after recovery).
     pub loss: f64,
     /// Principal disbursed.
