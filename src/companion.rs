@@ -103,3 +103,73 @@ fn curve_optimum(scenario: &Scenario) -> Option<f64> {
         None => optimum::closed_form_optimum(curve),
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::run::{RunOptions, simulate};
+
+    const IN_CLASS: &str = r#"
+        seed = 8
+        replications = 40
+        cycles = 10
+        [portfolio]
+        borrowers = 300
+        villages = 3
+        [loan]
+        principal = 100
+        [borrowers]
+        income = 1.4
+        [[shock]]
+        name = "illness"
+        scope = "member"
+        probability = 0.1
+        village_correlation = 0.1
+        [policy]
+        peer_cover = 1.0
+        [sweep]
+        group_size = [2, 5]
+    "#;
+
+    fn report_with(companion_exact: Option<Vec<Option<f64>>>) -> crate::report::RunReport {
+        let s = Scenario::from_toml_str(IN_CLASS, "inline").unwrap();
+        let results = simulate(&s, RunOptions::default(), &mut |_| {}).unwrap();
+        let mut report = crate::report::build(&s, IN_CLASS, "inline", &results);
+        if let Some(exact) = companion_exact {
+            let fake = SimulationCompanion {
+                exact,
+                optimum: None,
+                out_of_class: None,
+            };
+            report.warnings = fake.self_check(&s, &report.arms);
+        }
+        report
+    }
+
+    #[test]
+    fn exact_values_agree_with_the_simulation_without_warnings() {
+        let report = report_with(None);
+        assert!(report.warnings.is_empty(), "{:?}", report.warnings);
+        assert!(report.arms.iter().all(|a| a.analytic_group_repayment.is_some()));
+    }
+
+    #[test]
+    fn a_wrong_exact_value_raises_a_self_check_warning() {
+        let truth = report_with(None);
+        let exact: Vec<Option<f64>> = truth.arms.iter().map(|a| a.analytic_group_repayment).collect();
+        let mut wrong = exact.clone();
+        wrong[1] = wrong[1].map(|g| g - 0.05);
+        let report = report_with(Some(wrong));
+        assert_eq!(report.warnings.len(), 1, "{:?}", report.warnings);
+        assert!(report.warnings[0].contains("group_size=5"));
+    }
+
+    #[test]
+    fn out_of_class_scenarios_say_why() {
+        let text = IN_CLASS.replace("income = 1.4", "income = { kind = \"gamma\", mean = 1.4, cv = 0.2 }");
+        let s = Scenario::from_toml_str(&text, "inline").unwrap();
+        let c = SimulationCompanion::new(&s);
+        assert!(c.group_repayment(0).is_none());
+        assert!(c.out_of_class().unwrap().contains("borrowers.income"));
+    }
+}

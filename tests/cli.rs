@@ -558,7 +558,8 @@ fn run_writes_well_formed_summary_timeseries_and_json() {
         assert!((0.0..=1.0).contains(&v), "group_repayment_rate {v}");
     }
 
-    // timeseries.csv: arms x counted cycles, cycles 1..=cycles within each arm.
+    // timeseries.csv: arms x counted cycles; cycles are numbered with the warm-up, like stress
+    // windows, so they run warmup + 1 ..= warmup + cycles within each arm.
     let path = dir.join("timeseries.csv");
     let (header, rows) = read_csv(&path);
     assert_eq!(header, TIMESERIES_HEADER);
@@ -567,7 +568,10 @@ fn run_writes_well_formed_summary_timeseries_and_json() {
     let keys: Vec<(String, String)> = rows.iter().map(|r| (r[0].clone(), r[1].clone())).collect();
     let expected: Vec<(String, String)> = arm_labels
         .iter()
-        .flat_map(|a| (1..=scenario.cycles).map(move |c| (a.clone(), c.to_string())))
+        .flat_map(|a| {
+            let first = scenario.warmup_cycles + 1;
+            (first..first + scenario.cycles).map(move |c| (a.clone(), c.to_string()))
+        })
         .collect();
     assert_eq!(keys, expected);
     assert!(rows.iter().all(|r| r.len() == TIMESERIES_HEADER.len()));

@@ -124,3 +124,39 @@ fn arms_share_their_random_draws() {
         assert_eq!(first, other);
     }
 }
+
+/// Value stability: exact figures of one replication for a fixed seed. They change only when the
+/// engine's model or its random streams change, which must be announced (the reproducibility
+/// promise in DEVELOPERS.md).
+#[test]
+fn engine_value_stability() {
+    let s = scenario(SCENARIO);
+    let t0 = loancycle::engine::simulate_replication(&s, 2, 0);
+    let t7 = loancycle::engine::simulate_replication(&s, 11, 3);
+    let got = (
+        t0.group_cycles,
+        t0.groups_repaid,
+        t0.member_shortfalls,
+        t0.excluded_slot_cycles,
+        t0.loss,
+        t7.group_cycles,
+        t7.groups_repaid,
+        t7.empty_slot_cycles,
+        t7.collected,
+    );
+    assert_eq!(
+        got,
+        (
+            1307,
+            866,
+            1154,
+            2404,
+            16454.757800106767,
+            1260,
+            728,
+            0,
+            517923.57792428706
+        ),
+        "{got:?}"
+    );
+}

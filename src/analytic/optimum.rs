@@ -840,7 +840,13 @@ pub fn curve_from_parts(
     parameter: Option<f64>,
     table: Option<&str>,
 ) -> Result<GroupSizeCurve, AnalyticError> {
-    let need = |what: &str| bad(&format!("{kind} curve {what}"), "missing", format!("a {what}"));
+    let need = |what: &str| {
+        bad(
+            &format!("{kind} curve {what}"),
+            "missing",
+            format!("a number given for the {what}"),
+        )
+    };
     match kind {
         "constant" => GroupSizeCurve::constant(parameter.ok_or_else(|| need("value"))?).map_err(from_curve_error),
         "power" => GroupSizeCurve::power(parameter.ok_or_else(|| need("exponent p"))?).map_err(from_curve_error),

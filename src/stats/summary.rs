@@ -87,7 +87,8 @@ impl From<RatioEstimate> for Interval {
 /// One point of the time series: means over replications of per-cycle figures.
 #[derive(Debug, Clone, Serialize)]
 pub struct CyclePoint {
-    /// Counted cycle number (1 = first cycle after the warm-up).
+    /// Cycle number counted from 1 with the warm-up, as stress windows are (the first counted cycle
+    /// is warmup_cycles + 1).
     pub cycle: u32,
     /// Mean served share.
     pub served_share: Option<f64>,
@@ -222,7 +223,7 @@ pub fn time_series(tally: &ArmTally, scenario: &Scenario) -> Vec<CyclePoint> {
             }
             let mean = |(s, c): (f64, u64)| (c > 0).then(|| s / c as f64);
             CyclePoint {
-                cycle: c as u32 + 1,
+                cycle: scenario.warmup_cycles + c as u32 + 1,
                 served_share: mean(served),
                 group_repayment_rate: mean(repay),
                 loss_rate: mean(loss),
