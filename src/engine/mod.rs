@@ -94,6 +94,8 @@ struct ArmReplication<'a> {
     sort_counts: Vec<u32>,
     assortative: Vec<(f64, u64, u32)>,
     shortfall: Vec<bool>,
+    /// Members hit by the shock being applied (scratch).
+    hits: Vec<u32>,
     shock_cycle: Vec<ShockCycle>,
     /// Whether every member has the same risk multiplier (a fixed risk distribution).
     shared_risk: bool,
@@ -156,6 +158,7 @@ impl<'a> ArmReplication<'a> {
             assortative: Vec::new(),
             shortfall: vec![false; policy.group_size as usize],
             shock_cycle: Vec::new(),
+            hits: Vec::new(),
             shared_risk: scenario.risk.fixed_value().is_some(),
             village_draws: vec![DenseBlocks::default(); scenario.shocks.len()],
             tally: ReplicationTally::new(replication, policy.group_size, scenario.cycles),
@@ -452,19 +455,9 @@ impl<'a> ArmReplication<'a> {
         let size = self.village_start[v + 1] - start;
         let members = &self.groups[g_start * k..g_end * k];
         let key = &self.key;
-        let severity_fixed = shock.severity.fixed_value();
-        let severity_id = cycle_stream_id(Purpose::Severity, cycle, si, v as u32);
-        let multiplier = &mut self.pool.multiplier;
-        let mut hit = |i: u32| {
-            let s = match severity_fixed {
-                Some(s) => s,
-                None => {
-                    let mut d = SlotDraws::<4>::seek(key, severity_id, i - start as u32);
-                    shock.severity.sample(&mut d)
-                }
-            };
-            multiplier[i as usize] *= 1.0 - s;
-        };
+        let hits = &mut self.hits;
+        hits.clear();
+        let mut hit = |i: u32| hits.push(i);
         match shock.scope {
             ShockScope::Member => {
                 let rv = shock.village_correlation;
@@ -502,8 +495,17 @@ impl<'a> ArmReplication<'a> {
                         }
                     }
                 } else {
+                    // Phi is increasing, so the largest threshold bounds every member's conditional
+                    // probability: most draws are rejected against it without a special function,
+                    // and the decisions are exactly those of the member-by-member comparison.
+                    let highest = members
+                        .iter()
+                        .map(|&i| thresholds[i as usize])
+                        .fold(f64::NEG_INFINITY, f64::max);
+                    let bound = normal::cdf((highest - common) / idiosyncratic);
                     for &i in members {
-                        if draw(i) < normal::cdf((thresholds[i as usize] - common) / idiosyncratic) {
+                        let u = draw(i);
+                        if u < bound && u < normal::cdf((thresholds[i as usize] - common) / idiosyncratic) {
                             hit(i);
                         }
                     }
@@ -537,6 +539,40 @@ impl<'a> ArmReplication<'a> {
                     }
                 }
             }
+        }
+        self.apply_severities(cycle, si, v);
+    }
+
+    /// Multiplies each hit member's capacity by 1 - s, drawing s per hit. Severity blocks are read by
+    /// seeking when hits are few and by one dense fill when they are many: the same words either
+    /// way, so the choice changes speed only.
+    fn apply_severities(&mut self, cycle: u32, si: usize, v: usize) {
+        let shock = &self.scenario.shocks[si];
+        let start = self.village_start[v] as u32;
+        if let Some(s) = shock.severity.fixed_value() {
+            for &i in &self.hits {
+                self.pool.multiplier[i as usize] *= 1.0 - s;
+            }
+            return;
+        }
+        let size = self.village_start[v + 1] - self.village_start[v];
+        let id = cycle_stream_id(Purpose::Severity, cycle, si, v as u32);
+        // a seek generates 64 words; a dense fill 4 per slot
+        let dense = self.hits.len() * 16 > size;
+        if dense {
+            fill_dense(&self.key, id, size, 4, &mut self.dense);
+        }
+        for &i in &self.hits {
+            let s = if dense {
+                shock
+                    .severity
+                    .sample(&mut SlotDraws::<4>::from_dense(&self.key, id, &self.dense, i - start))
+            } else {
+                shock
+                    .severity
+                    .sample(&mut SlotDraws::<4>::seek(&self.key, id, i - start))
+            };
+            self.pool.multiplier[i as usize] *= 1.0 - s;
         }
     }
 
