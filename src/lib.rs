@@ -17,3 +17,7 @@ pub mod report;
 pub mod run;
 pub mod scenario;
 pub mod stats;
+
+/// The caution every report carries: outputs are model estimates for planning.
+pub const CAUTION: &str = "Model estimates for planning only: lending decisions affect vulnerable borrowers, and local \
+regulation and client-protection practice come first.";

@@ -8,9 +8,8 @@ use crate::stats::summary::{self, ArmSummary, CyclePoint};
 use serde::Serialize;
 use sha2::{Digest, Sha256};
 
-/// The caution printed with every report.
-pub const CAUTION: &str = "Model estimates for planning only: lending decisions affect vulnerable borrowers, and local \
-regulation and client-protection practice come first.";
+/// The caution printed with every report (see [`crate::CAUTION`]).
+pub use crate::CAUTION;
 
 /// One arm's results.
 #[derive(Debug, Clone, Serialize)]

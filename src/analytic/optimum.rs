@@ -743,6 +743,7 @@ impl OptimumReport {
                 );
             }
         }
+        let _ = writeln!(out, "\n{}", crate::CAUTION);
         out
     }
 

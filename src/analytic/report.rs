@@ -17,8 +17,7 @@ use std::fmt::Write as _;
 pub const HIT_SHARE_LEVELS: [f64; 4] = [0.5, 0.9, 0.99, 0.999];
 
 /// The one-line caution that ends the terminal table.
-pub const CAUTION: &str =
-    "Caution: these are model estimates for planning; local regulation and client-protection practice come first.";
+pub const CAUTION: &str = crate::CAUTION;
 
 /// Exact results (or the reason there are none) for one arm.
 #[derive(Debug, Clone, PartialEq, Serialize)]
