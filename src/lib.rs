@@ -5,6 +5,32 @@
 //! streams), `stats` (mergeable per-replication tallies and interval estimates), `analytic` (closed
 //! forms of the independent-borrower and one-factor models), `output` (writers that turn finished
 //! results into bytes), `run` (orchestration across replications and threads).
+//!
+//! ```
+//! use loancycle::scenario::Scenario;
+//! use loancycle::run::{simulate, RunOptions};
+//! use loancycle::stats::summary::summarize_arm;
+//!
+//! let text = r#"
+//!     replications = 4
+//!     cycles = 6
+//!     [portfolio]
+//!     borrowers = 100
+//!     [loan]
+//!     principal = 100
+//!     [[shock]]
+//!     name = "illness"
+//!     scope = "member"
+//!     probability = 0.05
+//! "#;
+//! let scenario = Scenario::from_toml_str(text, "example.toml").unwrap();
+//! let results = simulate(&scenario, RunOptions::default(), &mut |_| {}).unwrap();
+//! let summary = summarize_arm(&results.arms[0], scenario.arms[0].policy.group_size);
+//! // 100 borrowers in groups of 5, every cycle: 20 groups x 6 cycles x 4 replications
+//! assert_eq!(summary.group_cycles, 480);
+//! let repaid = summary.group_repayment.unwrap().rate;
+//! assert!(repaid > 0.5 && repaid < 1.0);
+//! ```
 
 pub mod analytic;
 pub mod companion;
