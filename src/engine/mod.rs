@@ -727,6 +727,97 @@ fn sort_uniform_keys(keys: &mut Vec<u64>, scratch: &mut Vec<u64>, counts: &mut V
 mod tests {
     use super::*;
 
+    fn scenario(extra: &str) -> Scenario {
+        let text = format!(
+            "replications = 1\ncycles = 6\n[portfolio]\nborrowers = 103\nvillages = 4\n[loan]\nprincipal = 100\n{extra}"
+        );
+        Scenario::from_toml_str(&text, "inline").unwrap()
+    }
+
+    /// The groups of the cycle just run as sorted lists of slot numbers (persistent formation keeps
+    /// them in `previous_groups` once the cycle ends).
+    fn group_sets(sim: &ArmReplication) -> Vec<Vec<u32>> {
+        let groups = if sim.policy.formation == Formation::Persistent {
+            &sim.previous_groups
+        } else {
+            &sim.groups
+        };
+        let mut sets: Vec<Vec<u32>> = groups
+            .chunks_exact(sim.k)
+            .map(|g| {
+                let mut slots: Vec<u32> = g
+                    .iter()
+                    .map(|&i| {
+                        let v = (0..sim.villages)
+                            .find(|&v| (i as usize) < sim.village_start[v + 1])
+                            .unwrap();
+                        sim.slot_of(v, i as usize)
+                    })
+                    .collect();
+                slots.sort_unstable();
+                slots
+            })
+            .collect();
+        sets.sort();
+        sets
+    }
+
+    #[test]
+    fn groups_stay_within_their_village_and_cover_whole_groups_only() {
+        let s = scenario("[policy]\ngroup_size = 4\n");
+        let mut sim = ArmReplication::new(&s, &s.arms[0].policy, 0);
+        sim.run_cycle(1);
+        let sets = group_sets(&sim);
+        // villages of 26, 26, 26, 25 slots: 6 groups of 4 each, the rest wait
+        assert_eq!(sets.len(), 24);
+        for g in &sets {
+            assert!(g.iter().all(|&slot| slot % 4 == g[0] % 4), "group {g:?} spans villages");
+        }
+    }
+
+    #[test]
+    fn persistent_groups_survive_while_everyone_stays_eligible() {
+        let s = scenario("[policy]\ngroup_size = 5\nformation = \"persistent\"\n");
+        let mut sim = ArmReplication::new(&s, &s.arms[0].policy, 0);
+        sim.run_cycle(1);
+        let first = group_sets(&sim);
+        sim.run_cycle(2);
+        sim.run_cycle(3);
+        assert_eq!(group_sets(&sim), first, "no shocks, no exclusion: the same groups");
+        let r = scenario("[policy]\ngroup_size = 5\nformation = \"reshuffle\"\n");
+        let mut re = ArmReplication::new(&r, &r.arms[0].policy, 0);
+        re.run_cycle(1);
+        let before = group_sets(&re);
+        re.run_cycle(2);
+        assert_ne!(group_sets(&re), before, "reshuffled groups change");
+    }
+
+    #[test]
+    fn a_departure_dissolves_a_persistent_group() {
+        let s = scenario("[policy]\ngroup_size = 5\nformation = \"persistent\"\n[pool]\ndropout = 0.2\n");
+        let mut sim = ArmReplication::new(&s, &s.arms[0].policy, 0);
+        sim.run_cycle(1);
+        let first = group_sets(&sim);
+        // cycle 1 ends with dropouts; their groups must not come back whole
+        let departed: Vec<u32> = (0..sim.villages)
+            .flat_map(|v| (sim.village_start[v]..sim.village_start[v + 1]).map(move |i| (v, i)))
+            .filter(|&(_, i)| !sim.pool.occupied[i])
+            .map(|(v, i)| sim.slot_of(v, i))
+            .collect();
+        assert!(!departed.is_empty());
+        sim.run_cycle(2);
+        let second = group_sets(&sim);
+        for g in &first {
+            let broken = g.iter().any(|slot| departed.contains(slot));
+            if broken {
+                assert!(!second.contains(g), "group {g:?} with a departed member was kept");
+            }
+        }
+        // groups without departures are all kept
+        let intact = first.iter().filter(|g| !g.iter().any(|s| departed.contains(s))).count();
+        assert_eq!(first.iter().filter(|g| second.contains(g)).count(), intact);
+    }
+
     #[test]
     fn bucket_sort_matches_comparison_sort() {
         let key = streams::replication_key(5, 0);
