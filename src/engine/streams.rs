@@ -141,10 +141,11 @@ impl<'a, const W: usize> SlotDraws<'a, W> {
     #[inline]
     pub fn from_dense(key: &'a [u8; 32], stream_id: u64, dense: &DenseBlocks, slot_index: u32) -> Self {
         let start = slot_index as usize * W;
-        let mut words = [0u32; W];
-        for (j, w) in words.iter_mut().enumerate() {
-            *w = dense.word(start + j);
-        }
+        let words = std::array::from_fn(|j| dense.word(start + j));
+        Self::from_words(words, key, stream_id, slot_index)
+    }
+
+    fn from_words(words: [u32; W], key: &'a [u8; 32], stream_id: u64, slot_index: u32) -> Self {
         SlotDraws {
             words,
             used: 0,
@@ -159,18 +160,8 @@ impl<'a, const W: usize> SlotDraws<'a, W> {
     pub fn seek(key: &'a [u8; 32], stream_id: u64, slot_index: u32) -> Self {
         let mut rng = open(key, stream_id);
         rng.set_word_pos(u128::from(slot_index) * W as u128);
-        let mut words = [0u32; W];
-        for w in &mut words {
-            *w = rng.next_u32();
-        }
-        SlotDraws {
-            words,
-            used: 0,
-            key,
-            stream_id,
-            slot_index,
-            fallback: None,
-        }
+        let words = std::array::from_fn(|_| rng.next_u32());
+        Self::from_words(words, key, stream_id, slot_index)
     }
 
     fn fallback_u32(&mut self) -> u32 {
