@@ -1,7 +1,7 @@
 #!/usr/bin/env python3
 """Prints the scipy reference values that the analytic companion's unit tests copy.
 
-Run once by hand (tests never need Python):  pip install scipy numpy && python3 scripts/scipy_reference.py
+Run through scripts/scipy_reference.sh, which installs the pinned scipy first (tests never need Python).
 The scipy and numpy versions are printed first; tests that copy a value name the version beside it.
 """
 
