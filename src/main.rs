@@ -208,11 +208,15 @@ fn main() -> ExitCode {
             if file.is_none() && !quiet {
                 eprintln!("no scenario file given: running the built-in baseline demo, {origin}");
             }
+            run::apply_overrides(&mut scenario, replications, seed);
+            if let Err(e) = run::check_size(&scenario) {
+                eprintln!("error: {origin}: {e}");
+                return ExitCode::from(BAD_INPUT);
+            }
             if let Err(e) = output::prepare_destination(&out, force) {
                 eprintln!("error: {e}");
                 return ExitCode::from(BAD_INPUT);
             }
-            run::apply_overrides(&mut scenario, replications, seed);
             let tasks = u64::from(scenario.replications) * scenario.arms.len() as u64;
             let bar = if quiet {
                 ProgressBar::with_draw_target(Some(tasks), ProgressDrawTarget::hidden())

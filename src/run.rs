@@ -18,6 +18,18 @@ pub struct RunOptions {
 /// Why a run could not start.
 #[derive(Debug, thiserror::Error)]
 pub enum RunError {
+    /// The run would keep more per-cycle records than memory allows.
+    #[error(
+        "replications = {replications} is not allowed here: {replications} replications x {cycles} counted cycles x {arms} arms \
+         = {records} per-cycle records, more than the {max} a run may keep; use fewer replications or split the run by seed"
+    )]
+    TooLarge {
+        replications: u32,
+        cycles: u32,
+        arms: usize,
+        records: u64,
+        max: u64,
+    },
     /// The thread pool could not be built.
     #[error("cannot start {threads} worker threads: {reason}")]
     ThreadPool { threads: usize, reason: String },
@@ -91,4 +103,21 @@ pub fn apply_overrides(scenario: &mut Scenario, replications: Option<u32>, seed:
     if let Some(s) = seed {
         scenario.seed = s;
     }
+}
+
+/// Refuses runs whose per-cycle records would not fit in memory (checked before any work, and again
+/// after command-line overrides of the replication count).
+pub fn check_size(scenario: &Scenario) -> Result<(), RunError> {
+    let records = u64::from(scenario.replications) * u64::from(scenario.cycles) * scenario.arms.len() as u64;
+    let max = crate::scenario::limits::MAX_CYCLE_RECORDS;
+    if records > max {
+        return Err(RunError::TooLarge {
+            replications: scenario.replications,
+            cycles: scenario.cycles,
+            arms: scenario.arms.len(),
+            records,
+            max,
+        });
+    }
+    Ok(())
 }

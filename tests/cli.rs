@@ -717,3 +717,23 @@ fn the_caution_reaches_the_terminal_and_the_json() {
         );
     }
 }
+
+/// A `--replications` override that would exhaust memory is refused before any work, naming the
+/// flag's field, and no output directory is created.
+#[test]
+fn an_oversized_replication_override_is_refused_before_simulating() {
+    let tmp = tempdir();
+    let out_dir = tmp.path().join("results");
+    let out = loancycle([
+        OsStr::new("run"),
+        data("cli").join("tiny.toml").as_os_str(),
+        OsStr::new("--replications"),
+        OsStr::new("4000000000"),
+        OsStr::new("--out"),
+        out_dir.as_os_str(),
+    ])
+    .refused();
+    let line = out.one_error_line();
+    assert!(line.contains("replications = 4000000000 is not allowed"), "{line}");
+    assert!(!out_dir.exists());
+}

@@ -17,8 +17,12 @@ pub mod limits {
     pub const MAX_SHOCKS: usize = 255;
     /// Most cycles (warm-up plus counted) per replication.
     pub const MAX_TOTAL_CYCLES: u32 = (1 << 24) - 1;
-    /// Most borrower slots.
-    pub const MAX_BORROWERS: u32 = 1 << 28;
+    /// Most borrower slots: far above any lender's portfolio, and well inside the 28 bits the stream
+    /// identifiers give villages and slots.
+    pub const MAX_BORROWERS: u32 = 10_000_000;
+    /// Most per-cycle records a run may keep (replications x counted cycles x arms), about 40 bytes
+    /// each: 250 million is 10 GB.
+    pub const MAX_CYCLE_RECORDS: u64 = 250_000_000;
     /// Most arms a sweep may resolve to.
     pub const MAX_ARMS: usize = 10_000;
 }

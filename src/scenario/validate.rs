@@ -19,7 +19,23 @@ type Result<T> = std::result::Result<T, ScenarioError>;
 
 /// Checks `raw` and builds the scenario; `origin` names the file in error messages.
 pub fn validate(raw: RawScenario, origin: &str) -> Result<Scenario> {
-    Checker { file: origin }.scenario(raw)
+    let scenario = Checker { file: origin }.scenario(raw)?;
+    let records = u64::from(scenario.replications) * u64::from(scenario.cycles) * scenario.arms.len() as u64;
+    if records > limits::MAX_CYCLE_RECORDS {
+        return Err(ScenarioError::Invalid {
+            file: origin.to_string(),
+            field: "replications".into(),
+            value: scenario.replications.to_string(),
+            allowed: format!(
+                "at most {} per-cycle records in all (replications x cycles x arms); here {} x {} x {} = {records}",
+                limits::MAX_CYCLE_RECORDS,
+                scenario.replications,
+                scenario.cycles,
+                scenario.arms.len()
+            ),
+        });
+    }
+    Ok(scenario)
 }
 
 /// Which real numbers a field accepts; every bound refuses NaN and infinities.
