@@ -45,6 +45,25 @@ pub struct BestArm {
     pub confidence_set_group_sizes: Vec<u32>,
 }
 
+/// One arm's difference from the reference arm on one figure, paired by replication.
+#[derive(Debug, Clone, Serialize)]
+pub struct ArmDifference {
+    /// The arm compared.
+    pub arm: String,
+    /// The reference arm (the first arm of the scenario).
+    pub reference: String,
+    /// Which figure: group_repayment_rate, loss_rate, net_yield, served_share or excluded_share.
+    pub metric: &'static str,
+    /// arm's figure minus the reference's.
+    pub difference: f64,
+    /// Delta-method standard error of the paired difference.
+    pub standard_error: Option<f64>,
+    /// 95% interval, difference -/+ 1.959964 SE (not clamped).
+    pub ci_low: Option<f64>,
+    /// See `ci_low`.
+    pub ci_high: Option<f64>,
+}
+
 /// Everything a run reports.
 #[derive(Debug, Clone, Serialize)]
 pub struct RunReport {
@@ -64,6 +83,9 @@ pub struct RunReport {
     pub analytic_out_of_class: Option<String>,
     /// The best arm, when at least one arm served a group.
     pub best: Option<BestArm>,
+    /// Every other arm against the first, paired by replication (common random numbers make
+    /// these intervals much narrower than the difference of two separate intervals).
+    pub differences: Vec<ArmDifference>,
     /// Self-check findings and other notes the user should see.
     pub warnings: Vec<String>,
     /// The planning caution.
@@ -113,6 +135,7 @@ pub fn build(scenario: &Scenario, scenario_text: &str, origin: &str, results: &R
         arms,
         analytic_out_of_class: analytic.out_of_class().map(str::to_string),
         best,
+        differences: paired_differences(scenario, results),
         warnings,
         caution: CAUTION.to_string(),
     }
@@ -181,4 +204,46 @@ fn best_arm(scenario: &Scenario, results: &RunResults, arms: &[ArmReport]) -> Op
         confidence_set,
         confidence_set_group_sizes: sizes,
     })
+}
+
+/// The figures compared between arms, as (name, per-replication numerator and denominator).
+type Metric = (&'static str, fn(&crate::stats::ReplicationTally) -> (f64, f64));
+
+const COMPARED: [Metric; 5] = [
+    ("group_repayment_rate", |r| {
+        (r.groups_repaid as f64, r.group_cycles as f64)
+    }),
+    ("loss_rate", |r| (r.loss, r.disbursed)),
+    ("net_yield", |r| (r.collected + r.recovered - r.disbursed, r.disbursed)),
+    ("served_share", |r| {
+        (r.served_slot_cycles as f64, r.slot_cycles() as f64)
+    }),
+    ("excluded_share", |r| {
+        (r.excluded_slot_cycles as f64, r.slot_cycles() as f64)
+    }),
+];
+
+fn paired_differences(scenario: &Scenario, results: &RunResults) -> Vec<ArmDifference> {
+    let Some(reference) = results.arms.first() else {
+        return Vec::new();
+    };
+    let mut out = Vec::new();
+    for (arm, tally) in scenario.arms.iter().zip(&results.arms).skip(1) {
+        for (metric, f) in COMPARED {
+            let a: Vec<(f64, f64)> = tally.replications.iter().map(f).collect();
+            let b: Vec<(f64, f64)> = reference.replications.iter().map(f).collect();
+            if let Some(d) = estimate::paired_ratio_difference(&a, &b) {
+                out.push(ArmDifference {
+                    arm: arm.label.clone(),
+                    reference: scenario.arms[0].label.clone(),
+                    metric,
+                    difference: d.rate,
+                    standard_error: d.standard_error,
+                    ci_low: d.ci_low(),
+                    ci_high: d.ci_high(),
+                });
+            }
+        }
+    }
+    out
 }

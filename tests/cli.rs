@@ -16,7 +16,7 @@ use std::process::Command;
 /// Exit code the binary uses for invalid input (scenario, flags, output directory).
 const BAD_INPUT: i32 = 2;
 
-const OUTPUTS: [&str; 3] = ["summary.csv", "summary.json", "timeseries.csv"];
+const OUTPUTS: [&str; 4] = ["differences.csv", "summary.csv", "summary.json", "timeseries.csv"];
 
 const TIMESERIES_HEADER: [&str; 6] = [
     "arm",
@@ -132,7 +132,7 @@ fn dir_contents(dir: &Path) -> BTreeMap<String, Vec<u8>> {
         .collect()
 }
 
-/// Asserts the directory holds exactly the three outputs (no temporary or other stray files).
+/// Asserts the directory holds exactly the four outputs (no temporary or other stray files).
 fn assert_only_outputs(dir: &Path) -> BTreeMap<String, Vec<u8>> {
     let contents = dir_contents(dir);
     let names: Vec<&str> = contents.keys().map(String::as_str).collect();

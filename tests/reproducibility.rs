@@ -160,3 +160,58 @@ fn engine_value_stability() {
         "{got:?}"
     );
 }
+
+/// Paired differences between arms: arms that see the same draws and behave alike differ by exactly
+/// zero with zero standard error, and a real policy difference has a paired standard error well below
+/// the unpaired sqrt(SE_a^2 + SE_b^2) (common random numbers at work).
+#[test]
+fn paired_differences_are_sharp() {
+    let text = r#"
+        seed = 17
+        replications = 40
+        cycles = 12
+        [portfolio]
+        borrowers = 600
+        villages = 6
+        [loan]
+        principal = 100
+        [borrowers]
+        income = 1.3
+        [[shock]]
+        name = "illness"
+        scope = "member"
+        probability = 0.08
+        village_correlation = 0.2
+        [policy]
+        group_size = 5
+        [sweep]
+        peer_cover = [0.0, 1.0]
+        exclusion_scope = ["group", "defaulters"]
+    "#;
+    let s = scenario(text);
+    let results = simulate(&s);
+    let report = loancycle::report::build(&s, text, "inline", &results);
+    let same: Vec<_> = report.differences.iter().filter(|d| d.arm == s.arms[1].label).collect();
+    assert_eq!(same.len(), 5);
+    assert!(
+        same.iter()
+            .all(|d| d.difference == 0.0 && d.standard_error == Some(0.0))
+    );
+    let covered = report
+        .differences
+        .iter()
+        .find(|d| d.arm == s.arms[2].label && d.metric == "group_repayment_rate")
+        .unwrap();
+    let se = |a: usize| report.arms[a].summary.group_repayment.unwrap().standard_error.unwrap();
+    let unpaired = (se(0).powi(2) + se(2).powi(2)).sqrt();
+    assert!(
+        covered.difference > 0.1,
+        "full cover rescues groups: {}",
+        covered.difference
+    );
+    assert!(
+        covered.standard_error.unwrap() < 0.8 * unpaired,
+        "{:?} vs {unpaired}",
+        covered.standard_error
+    );
+}

@@ -8,7 +8,7 @@ use crate::report::RunReport;
 use std::path::{Path, PathBuf};
 
 /// Files a run writes into its output directory.
-pub const OUTPUT_FILES: [&str; 3] = ["summary.csv", "timeseries.csv", "summary.json"];
+pub const OUTPUT_FILES: [&str; 4] = ["summary.csv", "timeseries.csv", "differences.csv", "summary.json"];
 
 /// Why outputs could not be written.
 #[derive(Debug, thiserror::Error)]
@@ -71,7 +71,7 @@ pub fn write_atomically(dir: &Path, name: &str, bytes: &[u8]) -> Result<PathBuf,
     Ok(final_path)
 }
 
-/// Writes summary.csv, timeseries.csv and summary.json into `dir` (created if missing).
+/// Writes summary.csv, timeseries.csv, differences.csv and summary.json into `dir` (created if missing).
 pub fn write_all(dir: &Path, report: &RunReport, force: bool) -> Result<Vec<PathBuf>, OutputError> {
     check_destination(dir, force)?;
     std::fs::create_dir_all(dir).map_err(|e| io_error(dir, e))?;
@@ -79,6 +79,7 @@ pub fn write_all(dir: &Path, report: &RunReport, force: bool) -> Result<Vec<Path
     let files = [
         ("summary.csv", tables::summary_csv(report)),
         ("timeseries.csv", tables::timeseries_csv(report)),
+        ("differences.csv", tables::differences_csv(report)),
         ("summary.json", tables::summary_json(report)),
     ];
     // All temporary files first; only when every one is complete are they renamed into place.

@@ -185,6 +185,37 @@ pub fn timeseries_csv(report: &RunReport) -> Vec<u8> {
     csv_bytes(&header, rows)
 }
 
+/// Columns of differences.csv, in order.
+pub const DIFFERENCE_COLUMNS: [&str; 7] = [
+    "arm",
+    "reference_arm",
+    "metric",
+    "difference",
+    "se",
+    "ci_low",
+    "ci_high",
+];
+
+/// differences.csv: every arm against the first, per figure, paired by replication.
+pub fn differences_csv(report: &RunReport) -> Vec<u8> {
+    let rows = report
+        .differences
+        .iter()
+        .map(|d| {
+            vec![
+                d.arm.clone(),
+                d.reference.clone(),
+                d.metric.to_string(),
+                cell(Some(d.difference)),
+                cell(d.standard_error),
+                cell(d.ci_low),
+                cell(d.ci_high),
+            ]
+        })
+        .collect();
+    csv_bytes(&DIFFERENCE_COLUMNS, rows)
+}
+
 /// summary.json: the whole report, pretty-printed, non-finite numbers as null.
 pub fn summary_json(report: &RunReport) -> Vec<u8> {
     let mut bytes = serde_json::to_vec_pretty(report).expect("report serialises: no maps with non-string keys");
