@@ -23,7 +23,7 @@ enum Command {
     Run {
         /// Scenario file (TOML).
         file: Option<PathBuf>,
-        /// Directory for summary.csv, timeseries.csv and summary.json.
+        /// Directory for summary.csv, timeseries.csv, differences.csv and summary.json.
         #[arg(long, default_value = "results/")]
         out: PathBuf,
         /// Replications, overriding the file.
