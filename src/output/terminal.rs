@@ -49,6 +49,41 @@ pub fn summary_table(report: &RunReport) -> String {
             pct(s.excluded_share)
         );
     }
+    if report.arms.len() > 1 {
+        let _ = writeln!(
+            out,
+            "differences from the first arm ({}), paired by replication, 95%:",
+            report.arms[0].arm.label
+        );
+        let _ = writeln!(
+            out,
+            "{:<width$}  {:>22}  {:>22}  {:>22}",
+            "arm", "group repaid (pp)", "loss rate (pp)", "served share (pp)"
+        );
+        for a in &report.arms[1..] {
+            let show = |metric: &str| {
+                report
+                    .differences
+                    .iter()
+                    .find(|d| d.arm == a.arm.label && d.metric == metric)
+                    .map_or_else(
+                        || "-".to_string(),
+                        |d| match d.standard_error {
+                            Some(se) => format!("{:+.3} ±{:.3}", 100.0 * d.difference, 100.0 * 1.959964 * se),
+                            None => format!("{:+.3}", 100.0 * d.difference),
+                        },
+                    )
+            };
+            let _ = writeln!(
+                out,
+                "{:<width$}  {:>22}  {:>22}  {:>22}",
+                a.arm.label,
+                show("group_repayment_rate"),
+                show("loss_rate"),
+                show("served_share")
+            );
+        }
+    }
     if let Some(reason) = &report.analytic_out_of_class {
         let _ = writeln!(out, "exact values: none, outside the one-factor class ({reason})");
     }
