@@ -14,7 +14,7 @@ use super::{AnalyticError, bad};
 /// outer nodes and the doubling search falls back to adaptive integration anyway.
 pub const MAX_HERMITE_NODES: usize = 512;
 
-/// A Gauss-Hermite rule for E[f(Z)], Z standard normal: sum of weights[i] * f(nodes[i]).
+/// A Gauss-Hermite rule for E[f(Z)], Z standard normal: sum of `weights[i] * f(nodes[i])`.
 #[derive(Debug, Clone, PartialEq)]
 pub struct GaussHermite {
     /// Nodes in increasing order.
@@ -278,7 +278,7 @@ fn kronrod_pass(a: f64, b: f64, dim: usize, f: &mut impl FnMut(f64, &mut [f64]))
     (kronrod, error)
 }
 
-/// Integral of a vector-valued f over [breaks[0], breaks[last]], adaptively bisecting the piece with
+/// Integral of a vector-valued f over `[breaks[0], breaks[last]]`, adaptively bisecting the piece with
 /// the largest error estimate until the summed estimates fall below `tolerance` (absolute, per
 /// component). Putting a steep feature of the integrand at a break point lets the rule see it at once.
 pub fn kronrod_adaptive(
