@@ -243,8 +243,6 @@ fn check_refuses_every_bad_fixture_with_its_expected_message() {
     }
 }
 
-}
-
 #[test]
 fn run_refuses_every_bad_fixture_and_writes_nothing() {
     let tmp = tempdir();
