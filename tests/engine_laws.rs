@@ -246,3 +246,156 @@ fn individual_liability_defaults_member_by_member() {
         "peers never rescue under individual liability"
     );
 }
+
+/// Unit-scope shocks: a struck unit hits each served member with probability `reach`, severity 1,
+/// incomes equal to the amount due and no cover, so a group repays iff none of its members is hit:
+/// P = 1 - p + p (1 - reach)^k for group, village and portfolio scope alike (law of total
+/// probability over the strike, binomial law within it).
+#[test]
+fn unit_scope_shocks_follow_the_strike_and_reach_law() {
+    let (p, reach, k) = (0.2f64, 0.3f64, 4);
+    let reference = 1.0 - p + p * (1.0 - reach).powi(k);
+    for (scope, seed, replications, max_se) in [
+        ("group", 61u64, 100, 0.003),
+        ("village", 62, 100, 0.01),
+        ("portfolio", 63, 400, 0.01),
+    ] {
+        let s = scenario(&format!(
+            r#"
+            seed = {seed}
+            replications = {replications}
+            cycles = 30
+            [portfolio]
+            borrowers = 800
+            villages = 10
+            [loan]
+            principal = 100
+            [[shock]]
+            name = "flood"
+            scope = "{scope}"
+            probability = {p}
+            reach = {reach}
+            [policy]
+            group_size = {k}
+            "#
+        ));
+        let results = simulate(&s);
+        let g = arm_summary(&s, &results, 0).group_repayment.unwrap();
+        assert_within(
+            &format!("{scope} scope"),
+            g.rate,
+            g.standard_error.unwrap(),
+            reference,
+            max_se,
+        );
+    }
+}
+
+/// A stress window replaces the shock's probability in its cycles only: per-cycle group repayment
+/// is (1 - 0.3)^k inside cycles 5..=6 and (1 - 0.02)^k outside (binomial law), checked on the
+/// per-replication rates of those cycles.
+#[test]
+fn stress_windows_apply_to_their_cycles_only() {
+    let k = 3;
+    let s = scenario(&format!(
+        r#"
+        seed = 64
+        replications = 100
+        cycles = 8
+        [portfolio]
+        borrowers = 900
+        [loan]
+        principal = 100
+        [[shock]]
+        name = "drought"
+        scope = "member"
+        probability = 0.02
+        stress = [ {{ from = 5, to = 6, probability = 0.3 }} ]
+        [policy]
+        group_size = {k}
+        "#
+    ));
+    let results = simulate(&s);
+    for cycle in 1..=8usize {
+        let p: f64 = if (5..=6).contains(&cycle) { 0.3 } else { 0.02 };
+        let (rate, se) = loancycle::stats::estimate::ratio(results.arms[0].replications.iter().map(|r| {
+            let c = &r.cycles[cycle - 1];
+            (f64::from(c.groups_repaid), f64::from(c.groups))
+        }))
+        .map(|r| (r.rate, r.standard_error.unwrap()))
+        .unwrap();
+        assert_within(&format!("cycle {cycle}"), rate, se, (1.0 - p).powi(k), 0.01);
+    }
+}
+
+/// Without replacement, each member leaves after a cycle with probability d, so the share of
+/// occupied slots at formation of cycle t is (1 - d)^(t - 1) (geometric survival); the mean empty
+/// share over cycles 1..=T is 1 - (1/T) sum (1 - d)^(t - 1). With replacement nothing stays empty.
+#[test]
+fn dropout_empties_slots_geometrically_unless_replaced() {
+    let (d, cycles) = (0.05f64, 20);
+    for replace in [false, true] {
+        let s = scenario(&format!(
+            r#"
+            seed = 65
+            replications = 100
+            cycles = {cycles}
+            [portfolio]
+            borrowers = 500
+            [loan]
+            principal = 100
+            [policy]
+            group_size = 1
+            [pool]
+            dropout = {d}
+            replace_departures = {replace}
+            "#
+        ));
+        let results = simulate(&s);
+        let (empty, se) = replication_ratio(&results, 0, |r| (r.empty_slot_cycles as f64, r.slot_cycles() as f64));
+        if replace {
+            assert_eq!(empty, 0.0);
+        } else {
+            let reference = 1.0 - (0..cycles).map(|t| (1.0 - d).powi(t)).sum::<f64>() / f64::from(cycles);
+            assert_within("empty share", empty, se, reference, 0.002);
+        }
+    }
+}
+
+/// Heterogeneous risk and random severity: with u ~ Uniform(0, 2) and p = 0.1, a member is hit
+/// with probability E[min(1, u p)] = p whatever the factor loading (the factor model keeps each
+/// member's marginal hit probability); with income 1.5 D and severity ~ Uniform(0.2, 0.8), a hit
+/// member is short iff 1.5 (1 - s) < 1, i.e. s > 1/3, with probability (0.8 - 1/3) / 0.6 (uniform
+/// law). So the member shortfall rate is 0.1 x 7/9.
+#[test]
+fn risk_multipliers_and_severities_enter_as_specified() {
+    let reference = 0.1 * (0.8 - 1.0 / 3.0) / 0.6;
+    for (rho, seed) in [(0.0, 66u64), (0.25, 67)] {
+        let s = scenario(&format!(
+            r#"
+            seed = {seed}
+            replications = 100
+            cycles = 20
+            [portfolio]
+            borrowers = 1000
+            villages = 10
+            [loan]
+            principal = 100
+            [borrowers]
+            income = 1.5
+            risk = {{ kind = "uniform", low = 0.0, high = 2.0 }}
+            [[shock]]
+            name = "illness"
+            scope = "member"
+            probability = 0.1
+            village_correlation = {rho}
+            severity = {{ kind = "uniform", low = 0.2, high = 0.8 }}
+            [policy]
+            group_size = 5
+            "#
+        ));
+        let results = simulate(&s);
+        let (rate, se) = replication_ratio(&results, 0, |r| (r.member_shortfalls as f64, r.member_loans as f64));
+        assert_within(&format!("shortfall rate, rho = {rho}"), rate, se, reference, 0.003);
+    }
+}
