@@ -58,23 +58,9 @@ pub fn prepare_destination(dir: &Path, force: bool) -> Result<(), OutputError> {
     std::fs::create_dir_all(dir).map_err(|e| io_error(dir, e))
 }
 
-/// Writes `bytes` to `dir/name` through a temporary file renamed into place, so a reader never
-/// sees a half-written file.
-pub fn write_atomically(dir: &Path, name: &str, bytes: &[u8]) -> Result<PathBuf, OutputError> {
-    let final_path = dir.join(name);
-    let tmp = dir.join(format!(".{name}.partial-{}", std::process::id()));
-    std::fs::write(&tmp, bytes).map_err(|e| io_error(&tmp, e))?;
-    std::fs::rename(&tmp, &final_path).map_err(|e| {
-        let _ = std::fs::remove_file(&tmp);
-        io_error(&final_path, e)
-    })?;
-    Ok(final_path)
-}
-
 /// Writes summary.csv, timeseries.csv, differences.csv and summary.json into `dir` (created if missing).
 pub fn write_all(dir: &Path, report: &RunReport, force: bool) -> Result<Vec<PathBuf>, OutputError> {
-    check_destination(dir, force)?;
-    std::fs::create_dir_all(dir).map_err(|e| io_error(dir, e))?;
+    prepare_destination(dir, force)?;
     // Render everything first so a rendering problem cannot leave a partial set of files.
     let files = [
         ("summary.csv", tables::summary_csv(report)),

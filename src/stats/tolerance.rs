@@ -6,6 +6,3 @@ pub const STANDARD_ERRORS: f64 = 4.0;
 
 /// The 97.5% standard normal quantile, for two-sided 95% intervals.
 pub const Z_95: f64 = 1.959964;
-
-/// Absolute slack used when comparing money amounts that should be equal up to rounding.
-pub const MONEY_EPSILON: f64 = 1e-9;
