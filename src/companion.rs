@@ -25,15 +25,21 @@ pub struct SimulationCompanion {
 impl SimulationCompanion {
     /// Computes what theory can say about each arm of `scenario`.
     pub fn new(scenario: &Scenario) -> Self {
-        let class = one_factor::class_check(scenario);
-        let (exact, out_of_class) = match &class {
-            Ok(_) => (
-                (0..scenario.arms.len())
-                    .map(|a| one_factor::exact_for_arm(scenario, a).ok().map(|r| r.group_repayment))
+        let (exact, out_of_class) = match one_factor::class_check(scenario) {
+            Ok(model) => (
+                scenario
+                    .arms
+                    .iter()
+                    .map(|arm| {
+                        let p = &arm.policy;
+                        one_factor::group_repayment(&model, p.group_size, p.liability, p.peer_cover)
+                            .ok()
+                            .map(|r| r.group_repayment)
+                    })
                     .collect(),
                 None,
             ),
-            Err(reason) => (vec![None; scenario.arms.len()], Some(reason.reason.clone())),
+            Err(reason) => (vec![None; scenario.arms.len()], Some(reason.reason)),
         };
         SimulationCompanion {
             exact,

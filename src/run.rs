@@ -108,7 +108,7 @@ pub fn apply_overrides(scenario: &mut Scenario, replications: Option<u32>, seed:
 /// Refuses runs whose per-cycle records would not fit in memory (checked before any work, and again
 /// after command-line overrides of the replication count).
 pub fn check_size(scenario: &Scenario) -> Result<(), RunError> {
-    let records = u64::from(scenario.replications) * u64::from(scenario.cycles) * scenario.arms.len() as u64;
+    let records = scenario.cycle_records();
     let max = crate::scenario::limits::MAX_CYCLE_RECORDS;
     if records > max {
         return Err(RunError::TooLarge {

@@ -245,6 +245,12 @@ impl Scenario {
         self.warmup_cycles + self.cycles
     }
 
+    /// Per-cycle records a run keeps: replications x counted cycles x arms (see
+    /// `limits::MAX_CYCLE_RECORDS`).
+    pub fn cycle_records(&self) -> u64 {
+        u64::from(self.replications) * u64::from(self.cycles) * self.arms.len() as u64
+    }
+
     /// Number of slots in village `v`.
     pub fn village_size(&self, v: u32) -> u32 {
         let (n, vs) = (self.borrowers, self.villages);

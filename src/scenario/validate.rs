@@ -20,7 +20,7 @@ type Result<T> = std::result::Result<T, ScenarioError>;
 /// Checks `raw` and builds the scenario; `origin` names the file in error messages.
 pub fn validate(raw: RawScenario, origin: &str) -> Result<Scenario> {
     let scenario = Checker { file: origin }.scenario(raw)?;
-    let records = u64::from(scenario.replications) * u64::from(scenario.cycles) * scenario.arms.len() as u64;
+    let records = scenario.cycle_records();
     if records > limits::MAX_CYCLE_RECORDS {
         return Err(ScenarioError::Invalid {
             file: origin.to_string(),
