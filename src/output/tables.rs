@@ -156,16 +156,18 @@ pub fn summary_csv(report: &RunReport) -> Vec<u8> {
     csv_bytes(&SUMMARY_COLUMNS, rows)
 }
 
+/// Columns of timeseries.csv, in order.
+pub const TIMESERIES_COLUMNS: [&str; 6] = [
+    "arm",
+    "cycle",
+    "served_share",
+    "group_repayment_rate",
+    "loss_rate",
+    "excluded_share",
+];
+
 /// timeseries.csv: per arm and counted cycle, means over replications.
 pub fn timeseries_csv(report: &RunReport) -> Vec<u8> {
-    let header = [
-        "arm",
-        "cycle",
-        "served_share",
-        "group_repayment_rate",
-        "loss_rate",
-        "excluded_share",
-    ];
     let rows = report
         .arms
         .iter()
@@ -182,7 +184,7 @@ pub fn timeseries_csv(report: &RunReport) -> Vec<u8> {
             })
         })
         .collect();
-    csv_bytes(&header, rows)
+    csv_bytes(&TIMESERIES_COLUMNS, rows)
 }
 
 /// Columns of differences.csv, in order.

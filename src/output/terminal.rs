@@ -1,10 +1,25 @@
 //! The short readable table printed at the end of a run.
 
 use crate::report::RunReport;
+use crate::stats::tolerance::Z_95;
 use std::fmt::Write;
 
 fn pct(x: Option<f64>) -> String {
     x.map_or_else(|| "-".into(), |v| format!("{:.2}%", 100.0 * v))
+}
+
+/// A share in per cent (or percentage points) with its 95% half-width, e.g. `95.70% ±0.06`;
+/// `signed` prints the sign of differences.
+fn with_interval(share: f64, standard_error: Option<f64>, decimals: usize, unit: &str, signed: bool) -> String {
+    let value = if signed {
+        format!("{:+.decimals$}", 100.0 * share)
+    } else {
+        format!("{:.decimals$}", 100.0 * share)
+    };
+    match standard_error {
+        Some(se) => format!("{value}{unit} ±{:.decimals$}", 100.0 * Z_95 * se),
+        None => format!("{value}{unit}"),
+    }
 }
 
 /// A table of the main figures per arm, the best arm, warnings and the caution.
@@ -28,14 +43,12 @@ pub fn summary_table(report: &RunReport) -> String {
     );
     for a in &report.arms {
         let s = &a.summary;
-        let g = s.group_repayment.map_or("-".into(), |g| match g.standard_error {
-            Some(se) => format!("{:.2}% ±{:.2}", 100.0 * g.rate, 100.0 * 1.959964 * se),
-            None => format!("{:.2}%", 100.0 * g.rate),
-        });
-        let l = s.loss_rate.map_or("-".into(), |l| match l.standard_error {
-            Some(se) => format!("{:.3}% ±{:.3}", 100.0 * l.rate, 100.0 * 1.959964 * se),
-            None => format!("{:.3}%", 100.0 * l.rate),
-        });
+        let g = s
+            .group_repayment
+            .map_or("-".into(), |g| with_interval(g.rate, g.standard_error, 2, "%", false));
+        let l = s
+            .loss_rate
+            .map_or("-".into(), |l| with_interval(l.rate, l.standard_error, 3, "%", false));
         let _ = writeln!(
             out,
             "{:<width$}  {:>18}  {:>9}  {:>9}  {:>18}  {:>9}  {:>9}  {:>9}",
@@ -68,10 +81,7 @@ pub fn summary_table(report: &RunReport) -> String {
                     .find(|d| d.arm == a.arm.label && d.metric == metric)
                     .map_or_else(
                         || "-".to_string(),
-                        |d| match d.standard_error {
-                            Some(se) => format!("{:+.3} ±{:.3}", 100.0 * d.difference, 100.0 * 1.959964 * se),
-                            None => format!("{:+.3}", 100.0 * d.difference),
-                        },
+                        |d| with_interval(d.difference, d.standard_error, 3, "", true),
                     )
             };
             let _ = writeln!(
