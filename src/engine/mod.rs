@@ -14,7 +14,7 @@ use crate::analytic::normal;
 use crate::scenario::{Exclusion, ExclusionScope, Formation, Liability, Matching, Policy, Scenario, ShockScope};
 use crate::stats::{CycleRecord, ReplicationTally};
 use rand_distr::{Distribution as _, StandardNormal};
-use streams::{DenseBlocks, Purpose, SlotDraws, cycle_stream_id, dense_u64, fill_dense, unit_f64};
+use streams::{DenseBlocks, Purpose, SlotDraws, cycle_stream_id, unit_f64};
 
 /// Slack of the joint repayment test, relative to the group's amount due: absorbs rounding only.
 const REPAYMENT_SLACK: f64 = 1e-9;
@@ -240,7 +240,7 @@ impl<'a> ArmReplication<'a> {
             };
             if let (Some(purpose), true) = (village_purpose, active) {
                 let id = cycle_stream_id(purpose, cycle, si, 0);
-                fill_dense(&self.key, id, self.villages, 2, &mut self.village_draws[si]);
+                self.village_draws[si].fill(&self.key, id, self.villages, 2);
             }
             self.shock_cycle.push(ShockCycle {
                 probability: p,
@@ -356,7 +356,7 @@ impl<'a> ArmReplication<'a> {
         let needs_keys = k > 1;
         if needs_keys {
             let id = cycle_stream_id(Purpose::Formation, cycle, 0, v as u32);
-            fill_dense(&self.key, id, size, 2, &mut self.dense);
+            self.dense.fill(&self.key, id, size, 2);
         }
         match self.policy.matching {
             Matching::Random => {
@@ -402,11 +402,7 @@ impl<'a> ArmReplication<'a> {
                 for m in 0..size {
                     let i = start + m;
                     if !self.pool.assigned[i] && self.eligible(i, cycle) {
-                        let random = if needs_keys {
-                            dense_u64(&self.dense, m as u32)
-                        } else {
-                            0
-                        };
+                        let random = if needs_keys { self.dense.u64_at(m as u32) } else { 0 };
                         self.assortative.push((self.pool.risk[i], random, i as u32));
                     }
                 }
@@ -476,11 +472,11 @@ impl<'a> ArmReplication<'a> {
                 let common = rv.sqrt() * village_factor + rp.sqrt() * portfolio_factor;
                 let idiosyncratic = (1.0 - rv - rp).sqrt();
                 let id = cycle_stream_id(Purpose::MemberShock, cycle, si, v as u32);
-                fill_dense(key, id, size, 2, &mut self.dense);
+                self.dense.fill(key, id, size, 2);
                 let row = threshold_row * self.n..(threshold_row + 1) * self.n;
                 let hit_probability = &self.pool.hit_probability[row.clone()];
                 let thresholds = &self.pool.threshold[row];
-                let draw = |i: u32| unit_f64(dense_u64(&self.dense, i - start as u32));
+                let draw = |i: u32| unit_f64(self.dense.u64_at(i - start as u32));
                 if rv == 0.0 && rp == 0.0 {
                     for &i in members {
                         if draw(i) < hit_probability[i as usize] {
@@ -512,28 +508,28 @@ impl<'a> ArmReplication<'a> {
                 }
             }
             ShockScope::Group | ShockScope::Village | ShockScope::Portfolio => {
-                if shock.scope == ShockScope::Village && unit_f64(dense_u64(&self.village_draws[si], v as u32)) >= p {
+                if shock.scope == ShockScope::Village && unit_f64(self.village_draws[si].u64_at(v as u32)) >= p {
                     return;
                 }
                 let reach = shock.reach;
                 if reach < 1.0 {
                     let id = cycle_stream_id(Purpose::Reach, cycle, si, v as u32);
-                    fill_dense(key, id, size, 2, &mut self.dense_reach);
+                    self.dense_reach.fill(key, id, size, 2);
                 }
                 if shock.scope == ShockScope::Group {
                     let id = cycle_stream_id(Purpose::GroupStrike, cycle, si, v as u32);
-                    fill_dense(key, id, size, 2, &mut self.dense);
+                    self.dense.fill(key, id, size, 2);
                 }
                 for group in members.chunks_exact(k) {
                     if shock.scope == ShockScope::Group {
                         // a group's strike is keyed by its lowest slot, the lowest index in the village
                         let lowest = *group.iter().min().expect("k >= 1") - start as u32;
-                        if unit_f64(dense_u64(&self.dense, lowest)) >= p {
+                        if unit_f64(self.dense.u64_at(lowest)) >= p {
                             continue;
                         }
                     }
                     for &i in group {
-                        if reach >= 1.0 || unit_f64(dense_u64(&self.dense_reach, i - start as u32)) < reach {
+                        if reach >= 1.0 || unit_f64(self.dense_reach.u64_at(i - start as u32)) < reach {
                             hit(i);
                         }
                     }
@@ -560,7 +556,7 @@ impl<'a> ArmReplication<'a> {
         // a seek generates 64 words; a dense fill 4 per slot
         let dense = self.hits.len() * 16 > size;
         if dense {
-            fill_dense(&self.key, id, size, 4, &mut self.dense);
+            self.dense.fill(&self.key, id, size, 4);
         }
         for &i in &self.hits {
             let s = if dense {
@@ -671,15 +667,14 @@ impl<'a> ArmReplication<'a> {
         }
         let start = self.village_start[v];
         let size = self.village_start[v + 1] - start;
-        fill_dense(
+        self.dense.fill(
             &self.key,
             cycle_stream_id(Purpose::Dropout, cycle, 0, v as u32),
             size,
             2,
-            &mut self.dense,
         );
         for m in 0..size {
-            if self.pool.occupied[start + m] && unit_f64(dense_u64(&self.dense, m as u32)) < q {
+            if self.pool.occupied[start + m] && unit_f64(self.dense.u64_at(m as u32)) < q {
                 self.pool.occupied[start + m] = false;
             }
         }
@@ -823,8 +818,8 @@ mod tests {
         let key = streams::replication_key(5, 0);
         let mut buf = DenseBlocks::default();
         for n in [0usize, 1, 2, 3, 17, 200, 1000] {
-            fill_dense(&key, n as u64, n, 2, &mut buf);
-            let mut keys: Vec<u64> = (0..n as u32).map(|m| dense_u64(&buf, m)).collect();
+            buf.fill(&key, n as u64, n, 2);
+            let mut keys: Vec<u64> = (0..n as u32).map(|m| buf.u64_at(m)).collect();
             // a few duplicates and small values exercise ties and the lowest bucket
             if n > 3 {
                 keys[1] = keys[0];

@@ -118,11 +118,6 @@ impl DenseBlocks {
     }
 }
 
-/// Fills `buf` with the blocks of `slots` consecutive slot indices (from 0), `width` words each.
-pub fn fill_dense(key: &[u8; 32], stream_id: u64, slots: usize, width: usize, buf: &mut DenseBlocks) {
-    buf.fill(key, stream_id, slots, width);
-}
-
 /// The draws of one slot: its fixed block of words, then its private fallback region.
 ///
 /// Implements `RngCore`, so any sampler can consume it; a sampler that needs more words than the
@@ -203,12 +198,6 @@ impl<const W: usize> RngCore for SlotDraws<'_, W> {
     }
 }
 
-/// Reads the `index`-th 64-bit value of a dense run of 2-word blocks.
-#[inline]
-pub fn dense_u64(dense: &DenseBlocks, index: u32) -> u64 {
-    dense.u64_at(index)
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -219,7 +208,7 @@ mod tests {
         let key = replication_key(42, 3);
         let id = cycle_stream_id(Purpose::MemberShock, 7, 1, 5);
         let mut dense = DenseBlocks::default();
-        fill_dense(&key, id, 100, 4, &mut dense);
+        dense.fill(&key, id, 100, 4);
         for m in [0u32, 1, 17, 99] {
             let mut a = SlotDraws::<4>::from_dense(&key, id, &dense, m);
             let mut b = SlotDraws::<4>::seek(&key, id, m);
