@@ -37,6 +37,8 @@ pub struct ReplicationTally {
     pub groups_repaid: u64,
     /// Groups with a shortfall that repaid in full thanks to peers.
     pub groups_rescued: u64,
+    /// Groups none of whose members had a shortfall (S_i = 0 for every member).
+    pub shortfall_free_groups: u64,
     /// Member loans served.
     pub member_loans: u64,
     /// Member loans whose borrower had a shortfall (S_i > 0).
