@@ -5,6 +5,7 @@
 //! replication share village factors and members, so treating them as independent would understate
 //! the error.
 
+pub mod compare;
 pub mod estimate;
 pub mod summary;
 pub mod tally;
