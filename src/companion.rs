@@ -5,8 +5,8 @@
 //! assembles), so the rule deciding when a simulated figure contradicts theory is in one place.
 
 use crate::analytic::{normal, one_factor, optimum};
-use crate::stats::summary::ArmSummary;
 use crate::scenario::{Scenario, ShockProbability, ShockScope};
+use crate::stats::summary::ArmSummary;
 
 /// Fewest replications for the self-check: below it the between-replication standard error is too
 /// unreliable to call a difference a contradiction.

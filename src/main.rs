@@ -4,9 +4,9 @@ use clap::{Parser, Subcommand};
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 use loancycle::analytic::{self, optimum};
 use loancycle::output::{self, terminal};
-use signal_hook::consts::{SIGINT, SIGTERM};
 use loancycle::scenario::Scenario;
 use loancycle::{demo, report, run};
+use signal_hook::consts::{SIGINT, SIGTERM};
 use std::path::PathBuf;
 use std::process::ExitCode;
 use std::sync::Arc;
@@ -114,7 +114,11 @@ impl Failure {
         match self {
             Failure::BadInput(m) | Failure::Running(m) => format!("error: {m}"),
             Failure::Interrupted(signal) => {
-                let name = if *signal == SIGTERM as usize { "SIGTERM" } else { "SIGINT" };
+                let name = if *signal == SIGTERM as usize {
+                    "SIGTERM"
+                } else {
+                    "SIGINT"
+                };
                 format!("interrupted by {name}: no results were written")
             }
         }

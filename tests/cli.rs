@@ -824,7 +824,10 @@ fn summary_rows_keep_their_column_names_and_value_spellings() {
     }
     let k = 5.0f64;
     let iid = (1.0 - number("member_shortfall_rate")).powf(k);
-    assert!((number("iid_shortfall_free") - iid).abs() < 1e-12, "(1 - q)^k by definition");
+    assert!(
+        (number("iid_shortfall_free") - iid).abs() < 1e-12,
+        "(1 - q)^k by definition"
+    );
 
     let dir = tmp.path().join("exclusion");
     loancycle([
@@ -869,7 +872,11 @@ fn a_single_arm_run_names_no_best_arm() {
     assert!(!out.stdout.contains("best arm"), "{}", out.describe());
     assert!(!out.stdout.contains("no arm served"), "{}", out.describe());
     let json = read_json(&dir.join("summary.json"));
-    assert!(json.get("best").is_some_and(serde_json::Value::is_null), "{}", json["best"]);
+    assert!(
+        json.get("best").is_some_and(serde_json::Value::is_null),
+        "{}",
+        json["best"]
+    );
     assert_eq!(
         read_text(&dir.join("differences.csv")),
         "arm,reference_arm,metric,difference,se,ci_low,ci_high\n"

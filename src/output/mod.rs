@@ -208,7 +208,10 @@ mod tests {
     fn a_full_disk_is_a_failure_while_running_not_bad_input() {
         let full = io_error(Path::new("x"), std::io::Error::from(std::io::ErrorKind::StorageFull));
         assert!(!full.is_bad_destination());
-        let denied = not_writable(Path::new("x"), std::io::Error::from(std::io::ErrorKind::PermissionDenied));
+        let denied = not_writable(
+            Path::new("x"),
+            std::io::Error::from(std::io::ErrorKind::PermissionDenied),
+        );
         assert!(denied.is_bad_destination());
     }
 }

@@ -32,134 +32,134 @@ fn join_ints(v: &[u32]) -> String {
 
 /// A readable terminal table.
 pub fn table(report: &OptimumReport) -> String {
-        let mut out = String::new();
-        let c = &report.continuous;
-        let _ = writeln!(out, "Best group size, independent members, no peer cover");
-        let _ = writeln!(out, "  {}", curve_text(&report.curve));
-        let _ = writeln!(
-            out,
-            "  objective: x ln(1 - phi(x)); a group of k repays with probability (1 - phi(k))^k"
-        );
-        let range_text = format!("[{}, {:e}]", c.scan_start, c.scan_end);
-        match c.kind {
-            MaximiserKind::Interior | MaximiserKind::DomainStart => {
-                let where_text = if c.kind == MaximiserKind::DomainStart {
-                    ", at the smallest admissible size"
-                } else {
-                    ""
-                };
-                let uniq = if c.unique { "unique" } else { "not unique" };
-                let _ = writeln!(
-                    out,
-                    "  continuous optimum x* = {}{where_text} ({uniq} on {range_text})",
-                    opt_num(c.x_star, 4)
-                );
-                let _ = writeln!(out, "  repayment at x*       = {}", opt_num(c.repayment_at_x_star, 6));
-                if !c.unique && c.local_maxima.len() > 1 {
-                    let list: Vec<String> = c.local_maxima.iter().map(|x| format!("{x:.4}")).collect();
-                    let _ = writeln!(out, "  local maxima at {}", list.join(", "));
-                }
-            }
-            MaximiserKind::RisingToEnd => {
-                let _ = writeln!(
-                    out,
-                    "  no finite maximiser: the objective keeps rising to x = {:e} (repayment {} there)",
-                    c.scan_end,
-                    opt_num(c.repayment_at_scan_end, 6)
-                );
-            }
-            MaximiserKind::Flat => {
-                let _ = writeln!(out, "  no maximiser: every group size repays with the same probability");
-            }
-            MaximiserKind::IntegerOnly => {
-                let _ = writeln!(
-                    out,
-                    "  a table curve is defined at integer sizes only: see the best integer below"
-                );
-            }
-        }
-        match (report.best_integer, report.repayment_at_best_integer) {
-            (Some(k), Some(r)) => {
-                let _ = writeln!(
-                    out,
-                    "  best integer in {}..{}: k = {k} (repayment {r:.6})",
-                    report.range.0, report.range.1
-                );
-            }
-            _ => {
-                let _ = writeln!(
-                    out,
-                    "  the curve is defined at no size in {}..{}",
-                    report.range.0, report.range.1
-                );
-            }
-        }
-        let _ = writeln!(out);
-        let _ = writeln!(out, "  {:>8}  {:>12}  {:>14}", "k", "phi(k)", "P(group repays)");
-        for row in &report.by_integer {
-            let mark = if Some(row.group_size) == report.best_integer {
-                "  <- best"
+    let mut out = String::new();
+    let c = &report.continuous;
+    let _ = writeln!(out, "Best group size, independent members, no peer cover");
+    let _ = writeln!(out, "  {}", curve_text(&report.curve));
+    let _ = writeln!(
+        out,
+        "  objective: x ln(1 - phi(x)); a group of k repays with probability (1 - phi(k))^k"
+    );
+    let range_text = format!("[{}, {:e}]", c.scan_start, c.scan_end);
+    match c.kind {
+        MaximiserKind::Interior | MaximiserKind::DomainStart => {
+            let where_text = if c.kind == MaximiserKind::DomainStart {
+                ", at the smallest admissible size"
             } else {
                 ""
             };
-            match (row.phi, row.repayment) {
-                (Some(phi), Some(r)) => {
-                    let _ = writeln!(out, "  {:>8}  {phi:>12.6}  {r:>15.6}{mark}", row.group_size);
-                }
-                _ => {
-                    let _ = writeln!(out, "  {:>8}  {:>12}  {:>15}", row.group_size, "undefined", "-");
-                }
-            }
-        }
-        if let Some(band) = &report.band {
-            let _ = writeln!(out);
+            let uniq = if c.unique { "unique" } else { "not unique" };
             let _ = writeln!(
                 out,
-                "  band p in [{}, {}] ({} values):",
-                band.p_from,
-                band.p_to,
-                band.points.len()
+                "  continuous optimum x* = {}{where_text} ({uniq} on {range_text})",
+                opt_num(c.x_star, 4)
             );
-            match (band.min_x_star, band.max_x_star) {
-                (Some(lo), Some(hi)) => {
-                    let _ = writeln!(out, "    smallest x* = {:.4} at p = {:.4}", lo.x_star, lo.p);
-                    let _ = writeln!(out, "    largest  x* = {:.4} at p = {:.4}", hi.x_star, hi.p);
-                    let _ = writeln!(
-                        out,
-                        "    integers inside [smallest x*, largest x*]: {}",
-                        join_ints(&band.integers_inside)
-                    );
-                }
-                _ => {
-                    let _ = writeln!(out, "    no value of p in the band has a finite maximiser");
-                }
-            }
-            let _ = writeln!(
-                out,
-                "    best integers across the band: {}",
-                join_ints(&band.best_integers)
-            );
-            if !band.without_finite_maximiser.is_empty() {
-                let n = band.without_finite_maximiser.len();
-                let first = band.without_finite_maximiser[0];
-                let _ = writeln!(
-                    out,
-                    "    {n} value(s) of p have no finite maximiser (the first is p = {first});"
-                );
-                let _ = writeln!(
-                    out,
-                    "    x* can grow without bound as p nears them, so the extremes above cover the other values only"
-                );
+            let _ = writeln!(out, "  repayment at x*       = {}", opt_num(c.repayment_at_x_star, 6));
+            if !c.unique && c.local_maxima.len() > 1 {
+                let list: Vec<String> = c.local_maxima.iter().map(|x| format!("{x:.4}")).collect();
+                let _ = writeln!(out, "  local maxima at {}", list.join(", "));
             }
         }
-        let _ = writeln!(out, "\n{}", crate::CAUTION);
-        out
+        MaximiserKind::RisingToEnd => {
+            let _ = writeln!(
+                out,
+                "  no finite maximiser: the objective keeps rising to x = {:e} (repayment {} there)",
+                c.scan_end,
+                opt_num(c.repayment_at_scan_end, 6)
+            );
+        }
+        MaximiserKind::Flat => {
+            let _ = writeln!(out, "  no maximiser: every group size repays with the same probability");
+        }
+        MaximiserKind::IntegerOnly => {
+            let _ = writeln!(
+                out,
+                "  a table curve is defined at integer sizes only: see the best integer below"
+            );
+        }
     }
+    match (report.best_integer, report.repayment_at_best_integer) {
+        (Some(k), Some(r)) => {
+            let _ = writeln!(
+                out,
+                "  best integer in {}..{}: k = {k} (repayment {r:.6})",
+                report.range.0, report.range.1
+            );
+        }
+        _ => {
+            let _ = writeln!(
+                out,
+                "  the curve is defined at no size in {}..{}",
+                report.range.0, report.range.1
+            );
+        }
+    }
+    let _ = writeln!(out);
+    let _ = writeln!(out, "  {:>8}  {:>12}  {:>14}", "k", "phi(k)", "P(group repays)");
+    for row in &report.by_integer {
+        let mark = if Some(row.group_size) == report.best_integer {
+            "  <- best"
+        } else {
+            ""
+        };
+        match (row.phi, row.repayment) {
+            (Some(phi), Some(r)) => {
+                let _ = writeln!(out, "  {:>8}  {phi:>12.6}  {r:>15.6}{mark}", row.group_size);
+            }
+            _ => {
+                let _ = writeln!(out, "  {:>8}  {:>12}  {:>15}", row.group_size, "undefined", "-");
+            }
+        }
+    }
+    if let Some(band) = &report.band {
+        let _ = writeln!(out);
+        let _ = writeln!(
+            out,
+            "  band p in [{}, {}] ({} values):",
+            band.p_from,
+            band.p_to,
+            band.points.len()
+        );
+        match (band.min_x_star, band.max_x_star) {
+            (Some(lo), Some(hi)) => {
+                let _ = writeln!(out, "    smallest x* = {:.4} at p = {:.4}", lo.x_star, lo.p);
+                let _ = writeln!(out, "    largest  x* = {:.4} at p = {:.4}", hi.x_star, hi.p);
+                let _ = writeln!(
+                    out,
+                    "    integers inside [smallest x*, largest x*]: {}",
+                    join_ints(&band.integers_inside)
+                );
+            }
+            _ => {
+                let _ = writeln!(out, "    no value of p in the band has a finite maximiser");
+            }
+        }
+        let _ = writeln!(
+            out,
+            "    best integers across the band: {}",
+            join_ints(&band.best_integers)
+        );
+        if !band.without_finite_maximiser.is_empty() {
+            let n = band.without_finite_maximiser.len();
+            let first = band.without_finite_maximiser[0];
+            let _ = writeln!(
+                out,
+                "    {n} value(s) of p have no finite maximiser (the first is p = {first});"
+            );
+            let _ = writeln!(
+                out,
+                "    x* can grow without bound as p nears them, so the extremes above cover the other values only"
+            );
+        }
+    }
+    let _ = writeln!(out, "\n{}", crate::CAUTION);
+    out
+}
 
 /// The report as pretty-printed JSON; `x_star` is null when there is no finite maximiser.
 pub fn json(report: &OptimumReport) -> String {
-        serde_json::to_string_pretty(report)
-            .unwrap_or_else(|e| format!("{{\"error\": \"cannot serialise the report: {e}\"}}"))
+    serde_json::to_string_pretty(report)
+        .unwrap_or_else(|e| format!("{{\"error\": \"cannot serialise the report: {e}\"}}"))
 }
 
 /// One row of the per-size CSV: the field names are the column names.
