@@ -218,7 +218,14 @@ fn execute(command: Command, stop: &AtomicUsize) -> Result<(), Failure> {
         Command::Analyze { file, json } => {
             let (scenario, _, _) = load(Some(&file))?;
             let report = analytic::report::analyze(&scenario);
-            print!("{}", if json { report.to_json() } else { report.to_table() });
+            print!(
+                "{}",
+                if json {
+                    output::analysis::json(&report)
+                } else {
+                    output::analysis::table(&report)
+                }
+            );
             Ok(())
         }
         Command::DemoScenario => {

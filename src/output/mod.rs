@@ -1,6 +1,7 @@
 //! Writers: turn a finished `RunReport` into bytes (CSV, JSON, terminal text) and put files in place
 //! atomically. They compute nothing: every figure comes from the report.
 
+pub mod analysis;
 pub mod optimum;
 pub mod tables;
 pub mod terminal;
