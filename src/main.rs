@@ -176,10 +176,8 @@ fn optimum_request(
 }
 
 fn main() -> ExitCode {
-    // First of all, so that a signal arriving at any later point is handled, not fatal.
-    let stop = install_stop_signals();
     let cli = Cli::parse();
-    match execute(cli.command, &stop) {
+    match execute(cli.command) {
         Ok(()) => ExitCode::SUCCESS,
         Err(failure) => {
             eprintln!("{}", failure.message());
@@ -188,7 +186,7 @@ fn main() -> ExitCode {
     }
 }
 
-fn execute(command: Command, stop: &AtomicUsize) -> Result<(), Failure> {
+fn execute(command: Command) -> Result<(), Failure> {
     match command {
         Command::Optimum {
             curve,
@@ -246,6 +244,9 @@ fn execute(command: Command, stop: &AtomicUsize) -> Result<(), Failure> {
             quiet,
             force,
         } => {
+            // Only `run` catches signals: it has files to protect. The other commands write nothing
+            // and keep the default action, so Ctrl-C ends them at once.
+            let stop = install_stop_signals();
             let (mut scenario, text, origin) = load(file.as_ref())?;
             if file.is_none() && !quiet {
                 eprintln!("no scenario file given: running the built-in baseline demo, {origin}");
