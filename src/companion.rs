@@ -5,8 +5,8 @@
 //! assembles), so the rule deciding when a simulated figure contradicts theory is in one place.
 
 use crate::analytic::{normal, one_factor, optimum};
-use crate::report::ArmReport;
 use crate::scenario::{Scenario, ShockProbability, ShockScope};
+use crate::stats::summary::ArmSummary;
 
 /// Fewest replications for the self-check: below it the between-replication standard error is too
 /// unreliable to call a difference a contradiction.
@@ -65,16 +65,16 @@ impl SimulationCompanion {
 
     /// Warnings where a simulated group repayment rate lies outside the Bonferroni-adjusted 99.9%
     /// band around its exact value (only in the class and with enough replications to trust the
-    /// standard error).
-    pub fn self_check(&self, scenario: &Scenario, arms: &[ArmReport]) -> Vec<String> {
+    /// standard error). `summaries` are the arms' figures in arm order.
+    pub fn self_check(&self, scenario: &Scenario, summaries: &[ArmSummary]) -> Vec<String> {
         if scenario.replications < SELF_CHECK_MIN_REPLICATIONS || self.exact.iter().all(Option::is_none) {
             return Vec::new();
         }
-        let tail = (1.0 - SELF_CHECK_LEVEL) / (2.0 * arms.len().max(1) as f64);
+        let tail = (1.0 - SELF_CHECK_LEVEL) / (2.0 * summaries.len().max(1) as f64);
         let z = normal::inv_cdf(1.0 - tail);
         let mut warnings = Vec::new();
-        for (i, arm) in arms.iter().enumerate() {
-            let (Some(exact), Some(sim)) = (self.group_repayment(i), arm.summary.group_repayment) else {
+        for (i, (summary, arm)) in summaries.iter().zip(&scenario.arms).enumerate() {
+            let (Some(exact), Some(sim)) = (self.group_repayment(i), summary.group_repayment) else {
                 continue;
             };
             let Some(se) = sim.standard_error else { continue };
@@ -84,12 +84,12 @@ impl SimulationCompanion {
                 warnings.push(format!(
                     "self-check: arm {} simulated group repayment {:.6} differs from the exact {:.6} by {:.1} standard \
                      errors (band: {:.2}, 99.9% Bonferroni over {} arms)",
-                    arm.arm.label,
+                    arm.label,
                     sim.rate,
                     exact,
                     if se > 0.0 { distance / se } else { f64::INFINITY },
                     z,
-                    arms.len()
+                    summaries.len()
                 ));
             }
         }
@@ -114,6 +114,7 @@ fn curve_optimum(scenario: &Scenario) -> Option<f64> {
 mod tests {
     use super::*;
     use crate::run::{RunOptions, simulate};
+    use crate::stats::summary::summarize_arm;
 
     const IN_CLASS: &str = r#"
         seed = 8
@@ -137,37 +138,41 @@ mod tests {
         group_size = [2, 5]
     "#;
 
-    fn report_with(companion_exact: Option<Vec<Option<f64>>>) -> crate::report::RunReport {
+    /// The in-class scenario, its simulated summaries and its companion.
+    fn simulated() -> (Scenario, Vec<ArmSummary>, SimulationCompanion) {
         let s = Scenario::from_toml_str(IN_CLASS, "inline").unwrap();
         let results = simulate(&s, RunOptions::default(), &mut |_| {}).unwrap();
-        let mut report = crate::report::build(&s, IN_CLASS, "inline", &results);
-        if let Some(exact) = companion_exact {
-            let fake = SimulationCompanion {
-                exact,
-                optimum: None,
-                out_of_class: None,
-            };
-            report.warnings = fake.self_check(&s, &report.arms);
-        }
-        report
+        let summaries = s
+            .arms
+            .iter()
+            .zip(&results.arms)
+            .map(|(a, t)| summarize_arm(t, a.policy.group_size))
+            .collect();
+        let companion = SimulationCompanion::new(&s);
+        (s, summaries, companion)
     }
 
     #[test]
     fn exact_values_agree_with_the_simulation_without_warnings() {
-        let report = report_with(None);
-        assert!(report.warnings.is_empty(), "{:?}", report.warnings);
-        assert!(report.arms.iter().all(|a| a.analytic_group_repayment.is_some()));
+        let (s, summaries, companion) = simulated();
+        assert!((0..s.arms.len()).all(|i| companion.group_repayment(i).is_some()));
+        let warnings = companion.self_check(&s, &summaries);
+        assert!(warnings.is_empty(), "{warnings:?}");
     }
 
     #[test]
     fn a_wrong_exact_value_raises_a_self_check_warning() {
-        let truth = report_with(None);
-        let exact: Vec<Option<f64>> = truth.arms.iter().map(|a| a.analytic_group_repayment).collect();
-        let mut wrong = exact.clone();
+        let (s, summaries, truth) = simulated();
+        let mut wrong = truth.exact.clone();
         wrong[1] = wrong[1].map(|g| g - 0.05);
-        let report = report_with(Some(wrong));
-        assert_eq!(report.warnings.len(), 1, "{:?}", report.warnings);
-        assert!(report.warnings[0].contains("group_size=5"));
+        let fake = SimulationCompanion {
+            exact: wrong,
+            optimum: None,
+            out_of_class: None,
+        };
+        let warnings = fake.self_check(&s, &summaries);
+        assert_eq!(warnings.len(), 1, "{warnings:?}");
+        assert!(warnings[0].contains("group_size=5"));
     }
 
     #[test]

@@ -6,8 +6,11 @@ use loancycle::analytic::{self, optimum};
 use loancycle::output::{self, terminal};
 use loancycle::scenario::Scenario;
 use loancycle::{demo, report, run};
+use signal_hook::consts::{SIGINT, SIGTERM};
 use std::path::PathBuf;
 use std::process::ExitCode;
+use std::sync::Arc;
+use std::sync::atomic::{AtomicUsize, Ordering};
 
 /// Monte Carlo simulation of repeated joint-liability loan cycles.
 #[derive(Parser)]
@@ -87,17 +90,60 @@ enum Command {
     },
 }
 
-/// Exit code for invalid input (scenario, flags, output directory).
-const BAD_INPUT: u8 = 2;
+/// Why a command ended without success. The exit code is decided here and nowhere else.
+enum Failure {
+    /// Invalid input: scenario, flags, output directory. Exit 2.
+    BadInput(String),
+    /// A failure while running, such as a full disk or an unwritable file. Exit 1.
+    Running(String),
+    /// Stopped by a signal before results were written. Exit 128 + the signal number.
+    Interrupted(usize),
+}
 
-fn load(file: Option<&PathBuf>) -> Result<(Scenario, String, String), String> {
+impl Failure {
+    fn exit_code(&self) -> u8 {
+        match self {
+            Failure::BadInput(_) => 2,
+            Failure::Running(_) => 1,
+            // 130 for SIGINT and 143 for SIGTERM, the shells' convention for death by signal.
+            Failure::Interrupted(signal) => u8::try_from(128 + signal).unwrap_or(1),
+        }
+    }
+
+    fn message(&self) -> String {
+        match self {
+            Failure::BadInput(m) | Failure::Running(m) => format!("error: {m}"),
+            Failure::Interrupted(signal) => {
+                let name = if *signal == SIGTERM as usize {
+                    "SIGTERM"
+                } else {
+                    "SIGINT"
+                };
+                format!("interrupted by {name}: no results were written")
+            }
+        }
+    }
+}
+
+/// The signal that asked the process to stop, 0 while none has. SIGINT and SIGTERM no longer kill
+/// the process: a run notices, stops cleanly and leaves no half-written file.
+fn install_stop_signals() -> Arc<AtomicUsize> {
+    let stop = Arc::new(AtomicUsize::new(0));
+    for signal in [SIGINT, SIGTERM] {
+        // Registration fails only for forbidden signals; then the default action (death) remains.
+        let _ = signal_hook::flag::register_usize(signal, Arc::clone(&stop), signal as usize);
+    }
+    stop
+}
+
+fn load(file: Option<&PathBuf>) -> Result<(Scenario, String, String), Failure> {
     match file {
         Some(path) => Scenario::load(path)
             .map(|(s, text)| (s, text, path.display().to_string()))
-            .map_err(|e| e.to_string()),
+            .map_err(|e| Failure::BadInput(e.to_string())),
         None => Scenario::from_toml_str(demo::BASELINE, demo::BASELINE_ORIGIN)
             .map(|s| (s, demo::BASELINE.to_string(), demo::BASELINE_ORIGIN.to_string()))
-            .map_err(|e| e.to_string()),
+            .map_err(|e| Failure::BadInput(e.to_string())),
     }
 }
 
@@ -131,7 +177,17 @@ fn optimum_request(
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
-    match cli.command {
+    match execute(cli.command) {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(failure) => {
+            eprintln!("{}", failure.message());
+            ExitCode::from(failure.exit_code())
+        }
+    }
+}
+
+fn execute(command: Command) -> Result<(), Failure> {
+    match command {
         Command::Optimum {
             curve,
             p,
@@ -143,52 +199,42 @@ fn main() -> ExitCode {
             csv,
         } => {
             let report = optimum_request(&curve, p.as_deref(), value, values.as_deref(), steps, &range)
-                .and_then(|req| optimum::solve(&req).map_err(|e| e.to_string()));
-            match report {
-                Ok(r) => {
-                    print!(
-                        "{}",
-                        if json {
-                            r.to_json()
-                        } else if csv {
-                            r.to_csv()
-                        } else {
-                            r.to_table()
-                        }
-                    );
-                    ExitCode::SUCCESS
+                .and_then(|req| optimum::solve(&req).map_err(|e| e.to_string()))
+                .map_err(Failure::BadInput)?;
+            print!(
+                "{}",
+                if json {
+                    output::optimum::json(&report)
+                } else if csv {
+                    output::optimum::csv(&report)
+                } else {
+                    output::optimum::table(&report)
                 }
-                Err(e) => {
-                    eprintln!("error: {e}");
-                    ExitCode::from(BAD_INPUT)
-                }
-            }
+            );
+            Ok(())
         }
-        Command::Analyze { file, json } => match load(Some(&file)) {
-            Ok((scenario, _, _)) => {
-                let report = analytic::report::analyze(&scenario);
-                print!("{}", if json { report.to_json() } else { report.to_table() });
-                ExitCode::SUCCESS
-            }
-            Err(e) => {
-                eprintln!("error: {e}");
-                ExitCode::from(BAD_INPUT)
-            }
-        },
+        Command::Analyze { file, json } => {
+            let (scenario, _, _) = load(Some(&file))?;
+            let report = analytic::report::analyze(&scenario);
+            print!(
+                "{}",
+                if json {
+                    output::analysis::json(&report)
+                } else {
+                    output::analysis::table(&report)
+                }
+            );
+            Ok(())
+        }
         Command::DemoScenario => {
             print!("{}", demo::BASELINE);
-            ExitCode::SUCCESS
+            Ok(())
         }
-        Command::Check { file } => match load(Some(&file)) {
-            Ok((scenario, _, origin)) => {
-                print!("{}", terminal::arms_listing(&scenario, &origin));
-                ExitCode::SUCCESS
-            }
-            Err(e) => {
-                eprintln!("error: {e}");
-                ExitCode::from(BAD_INPUT)
-            }
-        },
+        Command::Check { file } => {
+            let (scenario, _, origin) = load(Some(&file))?;
+            print!("{}", terminal::arms_listing(&scenario, &origin));
+            Ok(())
+        }
         Command::Run {
             file,
             out,
@@ -198,25 +244,27 @@ fn main() -> ExitCode {
             quiet,
             force,
         } => {
-            let (mut scenario, text, origin) = match load(file.as_ref()) {
-                Ok(x) => x,
-                Err(e) => {
-                    eprintln!("error: {e}");
-                    return ExitCode::from(BAD_INPUT);
-                }
-            };
+            // Only `run` catches signals: it has files to protect. The other commands write nothing
+            // and keep the default action, so Ctrl-C ends them at once.
+            let stop = install_stop_signals();
+            let (mut scenario, text, origin) = load(file.as_ref())?;
             if file.is_none() && !quiet {
                 eprintln!("no scenario file given: running the built-in baseline demo, {origin}");
             }
             run::apply_overrides(&mut scenario, replications, seed);
-            if let Err(e) = run::check_size(&scenario) {
-                eprintln!("error: {origin}: {e}");
-                return ExitCode::from(BAD_INPUT);
-            }
-            if let Err(e) = output::prepare_destination(&out, force) {
-                eprintln!("error: {e}");
-                return ExitCode::from(BAD_INPUT);
-            }
+            run::check_size(&scenario).map_err(|e| Failure::BadInput(format!("{origin}: {e}")))?;
+            let created = output::prepare_destination(&out, force).map_err(|e| {
+                if e.is_bad_destination() {
+                    Failure::BadInput(e.to_string())
+                } else {
+                    Failure::Running(e.to_string())
+                }
+            })?;
+            let stopped = || stop.load(Ordering::Relaxed) != 0;
+            let interrupted = || {
+                output::abandon_destination(&out, created);
+                Failure::Interrupted(stop.load(Ordering::Relaxed))
+            };
             let tasks = u64::from(scenario.replications) * scenario.arms.len() as u64;
             let bar = if quiet {
                 ProgressBar::with_draw_target(Some(tasks), ProgressDrawTarget::hidden())
@@ -232,42 +280,43 @@ fn main() -> ExitCode {
             let options = run::RunOptions {
                 threads: threads.map(usize::from),
             };
-            let results = match run::simulate(&scenario, options, &mut |done| bar.set_position(done)) {
+            let simulated = run::simulate_until(&scenario, options, &stopped, &mut |done| bar.set_position(done));
+            bar.finish_and_clear();
+            let results = match simulated {
                 Ok(r) => r,
+                Err(run::RunError::Interrupted) => return Err(interrupted()),
                 Err(e) => {
-                    bar.finish_and_clear();
-                    eprintln!("error: {e}");
-                    return ExitCode::FAILURE;
+                    output::abandon_destination(&out, created);
+                    return Err(Failure::Running(e.to_string()));
                 }
             };
-            bar.finish_and_clear();
             let seconds = started.elapsed().as_secs_f64();
             let report = report::build(&scenario, &text, &origin, &results);
-            match output::write_all(&out, &report, force) {
-                Ok(paths) => {
-                    if !quiet {
-                        print!("{}", terminal::summary_table(&report));
-                        for p in paths {
-                            println!("wrote {}", p.display());
-                        }
-                        eprintln!(
-                            "simulated {} served member-cycles in {:.2} s ({:.1} million per second)",
-                            results.served_member_cycles,
-                            seconds,
-                            results.served_member_cycles as f64 / seconds / 1e6
-                        );
-                    } else {
-                        for w in &report.warnings {
-                            eprintln!("warning: {w}");
-                        }
-                    }
-                    ExitCode::SUCCESS
-                }
+            let paths = match output::write_all(&out, &report, force, &stopped) {
+                Ok(paths) => paths,
+                Err(output::OutputError::Interrupted) => return Err(interrupted()),
                 Err(e) => {
-                    eprintln!("error: {e}");
-                    ExitCode::from(BAD_INPUT)
+                    output::abandon_destination(&out, created);
+                    return Err(Failure::Running(e.to_string()));
+                }
+            };
+            if !quiet {
+                print!("{}", terminal::summary_table(&report));
+                for p in paths {
+                    println!("wrote {}", p.display());
+                }
+                eprintln!(
+                    "simulated {} served member-cycles in {:.2} s ({:.1} million per second)",
+                    results.served_member_cycles,
+                    seconds,
+                    results.served_member_cycles as f64 / seconds / 1e6
+                );
+            } else {
+                for w in &report.warnings {
+                    eprintln!("warning: {w}");
                 }
             }
+            Ok(())
         }
     }
 }

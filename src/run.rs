@@ -33,6 +33,9 @@ pub enum RunError {
     /// The thread pool could not be built.
     #[error("cannot start {threads} worker threads: {reason}")]
     ThreadPool { threads: usize, reason: String },
+    /// The caller asked the run to stop (an interrupt) before it finished.
+    #[error("interrupted before the simulation finished")]
+    Interrupted,
 }
 
 /// What a run produced: one tally per arm, in arm order.
@@ -49,6 +52,18 @@ pub struct RunResults {
 pub fn simulate(
     scenario: &Scenario,
     options: RunOptions,
+    progress: &mut dyn FnMut(u64),
+) -> Result<RunResults, RunError> {
+    simulate_until(scenario, options, &|| false, progress)
+}
+
+/// As [`simulate`], but gives up with [`RunError::Interrupted`] as soon as `stop` returns true.
+/// Every task asks before it starts, so an interrupt waits for at most one replication of one arm
+/// per worker, and a stopped run returns no partial results.
+pub fn simulate_until(
+    scenario: &Scenario,
+    options: RunOptions,
+    stop: &(dyn Fn() -> bool + Sync),
     progress: &mut dyn FnMut(u64),
 ) -> Result<RunResults, RunError> {
     let threads = options
@@ -70,12 +85,13 @@ pub fn simulate(
     while first < scenario.replications {
         let last = (first + batch_replications).min(scenario.replications);
         let tasks: Vec<(u32, usize)> = (first..last).flat_map(|r| (0..arms).map(move |a| (r, a))).collect();
-        let results: Vec<ReplicationTally> = pool.install(|| {
+        let results: Option<Vec<ReplicationTally>> = pool.install(|| {
             tasks
                 .par_iter()
-                .map(|&(r, a)| engine::simulate_replication(scenario, a, r))
+                .map(|&(r, a)| (!stop()).then(|| engine::simulate_replication(scenario, a, r)))
                 .collect()
         });
+        let results = results.ok_or(RunError::Interrupted)?;
         for ((_, a), tally) in tasks.iter().zip(results) {
             tallies[*a].push(tally);
         }

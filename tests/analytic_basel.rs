@@ -53,14 +53,31 @@ fn every_published_row_at_lgd_45_and_85_per_cent() {
     }
 }
 
+/// The capital requirement and the 99.9% conditional hit probability behind each published risk
+/// weight. The framework defines RWA = 12.5 K (para 329) and K = LGD (conditional probability - PD)
+/// (para 328), so each published weight fixes K and the conditional probability; the tolerance is the
+/// published weight's rounding carried through those two relations.
 #[test]
-fn risk_weight_is_twelve_and_a_half_times_capital() {
+fn capital_and_conditional_probability_behind_every_published_row() {
     for row in published_rows() {
         let pd = row.pd_percent / 100.0;
-        let k = basel::capital_requirement(pd, 0.45).unwrap();
-        assert!((basel::risk_weight(pd, 0.45).unwrap() - 12.5 * k).abs() < 1e-15);
-        // K = LGD (conditional hit probability - PD): Basel II framework (June 2006), paras 328-330.
-        let conditional = basel::conditional_hit_probability(pd).unwrap();
-        assert!((k - 0.45 * (conditional - pd)).abs() < 1e-15);
+        for (lgd, published_percent) in [(0.45, row.lgd45_percent), (0.85, row.lgd85_percent)] {
+            // Published value: Basel II framework (June 2006), Annex 5, other retail exposures.
+            let published_k = published_percent / 100.0 / 12.5;
+            let k_tolerance = BASEL_RISK_WEIGHT_PP / 100.0 / 12.5;
+            let k = basel::capital_requirement(pd, lgd).unwrap();
+            assert!(
+                (k - published_k).abs() <= k_tolerance,
+                "PD {}%, LGD {lgd}: K {k}, published {published_k}",
+                row.pd_percent
+            );
+            let published_conditional = published_k / lgd + pd;
+            let conditional = basel::conditional_hit_probability(pd).unwrap();
+            assert!(
+                (conditional - published_conditional).abs() <= k_tolerance / lgd,
+                "PD {}%, LGD {lgd}: conditional {conditional}, published {published_conditional}",
+                row.pd_percent
+            );
+        }
     }
 }

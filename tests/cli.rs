@@ -5,7 +5,6 @@
 //! `--replications 2`, so the whole file takes a few seconds. Output always goes to a fresh
 //! temporary directory.
 
-use loancycle::output::tables::SUMMARY_COLUMNS;
 use loancycle::scenario::Scenario;
 use sha2::{Digest, Sha256};
 use std::collections::BTreeMap;
@@ -15,6 +14,53 @@ use std::process::Command;
 
 /// Exit code the binary uses for invalid input (scenario, flags, output directory).
 const BAD_INPUT: i32 = 2;
+
+/// The columns of summary.csv as users' scripts know them, spelled out here rather than taken from
+/// the writer, so a renamed or reordered column fails this file.
+const SUMMARY_COLUMNS: [&str; 42] = [
+    "arm",
+    "group_size",
+    "liability",
+    "peer_cover",
+    "exclusion_cycles",
+    "exclusion_scope",
+    "formation",
+    "matching",
+    "replications",
+    "group_cycles",
+    "group_repayment_rate",
+    "group_repayment_ci_low",
+    "group_repayment_ci_high",
+    "member_loans",
+    "member_shortfall_rate",
+    "member_default_rate",
+    "shortfall_free_group_rate",
+    "iid_shortfall_free",
+    "implied_member_failure",
+    "rescued_rate",
+    "value_repayment_rate",
+    "loss_rate",
+    "loss_rate_ci_low",
+    "loss_rate_ci_high",
+    "net_yield",
+    "served_share",
+    "excluded_share",
+    "waiting_share",
+    "empty_share",
+    "loss_p50",
+    "loss_p95",
+    "loss_p99",
+    "loss_p999",
+    "loss_es99",
+    "loss_cycle_p99",
+    "loss_cycle_p999",
+    "analytic_group_repayment",
+    "dependence_ratio",
+    "shortfall_icc",
+    "closed_form_optimum",
+    "group_repayment_se",
+    "loss_rate_se",
+];
 
 const OUTPUTS: [&str; 4] = ["differences.csv", "summary.csv", "summary.json", "timeseries.csv"];
 
@@ -723,4 +769,214 @@ fn an_oversized_replication_override_is_refused_before_simulating() {
     let line = out.one_error_line();
     assert!(line.contains("replications = 4000000000 is not allowed"), "{line}");
     assert!(!out_dir.exists());
+}
+
+/// Header and values as users' scripts read them: a row of today's demo keeps its column names and
+/// the scenario-file spelling of every policy value, and `permanent` stays a word in
+/// `exclusion_cycles`.
+#[test]
+fn summary_rows_keep_their_column_names_and_value_spellings() {
+    let tmp = tempdir();
+    let dir = tmp.path().join("baseline");
+    loancycle([
+        OsStr::new("run"),
+        OsStr::new("scenarios-demo/baseline.toml"),
+        OsStr::new("--replications"),
+        OsStr::new("2"),
+        OsStr::new("--quiet"),
+        OsStr::new("--out"),
+        dir.as_os_str(),
+    ])
+    .ok();
+    let (header, rows) = read_csv(&dir.join("summary.csv"));
+    assert_eq!(header, SUMMARY_COLUMNS);
+    let col = |name: &str| header.iter().position(|c| c == name).expect("column");
+    let row = rows.iter().find(|r| r[0] == "group_size=5").expect("arm group_size=5");
+    // The policy of scenarios-demo/baseline.toml, as written there.
+    for (name, value) in [
+        ("group_size", "5"),
+        ("liability", "joint"),
+        ("peer_cover", "0.5"),
+        ("exclusion_cycles", "2"),
+        ("exclusion_scope", "group"),
+        ("formation", "reshuffle"),
+        ("matching", "random"),
+        ("replications", "2"),
+    ] {
+        assert_eq!(row[col(name)], value, "column {name}");
+    }
+    // Counts are whole numbers, rates plain decimals, intervals around their rate.
+    for name in ["group_cycles", "member_loans"] {
+        assert!(row[col(name)].parse::<u64>().is_ok(), "{name} = {:?}", row[col(name)]);
+    }
+    let number = |name: &str| -> f64 { row[col(name)].parse().unwrap_or_else(|e| panic!("{name}: {e}")) };
+    for (rate, low, high, se) in [
+        (
+            "group_repayment_rate",
+            "group_repayment_ci_low",
+            "group_repayment_ci_high",
+            "group_repayment_se",
+        ),
+        ("loss_rate", "loss_rate_ci_low", "loss_rate_ci_high", "loss_rate_se"),
+    ] {
+        assert!(number(low) <= number(rate) && number(rate) <= number(high), "{rate}");
+        assert!(number(se) >= 0.0, "{se}");
+    }
+    let k = 5.0f64;
+    let iid = (1.0 - number("member_shortfall_rate")).powf(k);
+    assert!(
+        (number("iid_shortfall_free") - iid).abs() < 1e-12,
+        "(1 - q)^k by definition"
+    );
+
+    let dir = tmp.path().join("exclusion");
+    loancycle([
+        OsStr::new("run"),
+        OsStr::new("scenarios-demo/exclusion.toml"),
+        OsStr::new("--replications"),
+        OsStr::new("2"),
+        OsStr::new("--quiet"),
+        OsStr::new("--out"),
+        dir.as_os_str(),
+    ])
+    .ok();
+    let (header, rows) = read_csv(&dir.join("summary.csv"));
+    assert_eq!(header, SUMMARY_COLUMNS);
+    let exclusion = header.iter().position(|c| c == "exclusion_cycles").expect("column");
+    let scope = header.iter().position(|c| c == "exclusion_scope").expect("column");
+    let values: Vec<(&str, &str)> = rows
+        .iter()
+        .map(|r| (r[exclusion].as_str(), r[scope].as_str()))
+        .collect();
+    assert_eq!(values[8], ("permanent", "group"));
+    assert_eq!(values[9], ("permanent", "defaulters"));
+}
+
+/// With one arm there is nothing to choose: no best-arm line, `best: null`, and differences.csv
+/// holds only its header.
+#[test]
+fn a_single_arm_run_names_no_best_arm() {
+    let tmp = tempdir();
+    let text = read_text(&tiny()).replace("[sweep]\ngroup_size = [2, 4]", "");
+    assert!(!text.contains("[sweep]"));
+    let file = tmp.path().join("single.toml");
+    std::fs::write(&file, text).expect("write scenario");
+    let dir = tmp.path().join("out");
+    let out = loancycle([
+        OsStr::new("run"),
+        file.as_os_str(),
+        OsStr::new("--out"),
+        dir.as_os_str(),
+    ])
+    .ok();
+    assert!(!out.stdout.contains("best arm"), "{}", out.describe());
+    assert!(!out.stdout.contains("no arm served"), "{}", out.describe());
+    let json = read_json(&dir.join("summary.json"));
+    assert!(
+        json.get("best").is_some_and(serde_json::Value::is_null),
+        "{}",
+        json["best"]
+    );
+    assert_eq!(
+        read_text(&dir.join("differences.csv")),
+        "arm,reference_arm,metric,difference,se,ci_low,ci_high\n"
+    );
+}
+
+/// An output directory the user may not write to is refused before simulating, naming it, with
+/// exit code 2. sysfs refuses new files even to root.
+#[test]
+fn an_unwritable_output_directory_is_refused_before_simulating() {
+    let dir = Path::new("/sys/kernel");
+    if !dir.is_dir() {
+        return;
+    }
+    let out = loancycle([
+        OsStr::new("run"),
+        tiny().as_os_str(),
+        OsStr::new("--out"),
+        dir.as_os_str(),
+    ])
+    .refused();
+    let line = out.one_error_line();
+    assert!(
+        line.contains("output directory /sys/kernel cannot be written to"),
+        "{line}"
+    );
+}
+
+/// Sends `signal` to a `run` of the baseline that would take minutes, once it has prepared its
+/// output directory, and returns what it did.
+fn interrupted_run(signal: &str, dir: &Path, extra: &[&str]) -> Outcome {
+    let mut args: Vec<OsString> = vec![
+        "run".into(),
+        "scenarios-demo/baseline.toml".into(),
+        "--replications".into(),
+        "20000".into(),
+        "--quiet".into(),
+        "--out".into(),
+        dir.into(),
+    ];
+    args.extend(extra.iter().map(OsString::from));
+    let child = Command::new(env!("CARGO_BIN_EXE_loancycle"))
+        .args(&args)
+        .current_dir(root())
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .expect("the loancycle binary starts");
+    // The directory (or its writability probe) is prepared right before simulating; wait for it,
+    // then a little more so the simulation is under way.
+    let mut waited = 0;
+    while !dir.is_dir() && waited < 600 {
+        std::thread::sleep(std::time::Duration::from_millis(50));
+        waited += 1;
+    }
+    std::thread::sleep(std::time::Duration::from_millis(300));
+    let status = Command::new("kill")
+        .args(["-s", signal, &child.id().to_string()])
+        .status()
+        .expect("kill runs");
+    assert!(status.success(), "kill -s {signal} failed");
+    let out = child.wait_with_output().expect("the run ends");
+    Outcome {
+        code: out.status.code(),
+        stdout: String::from_utf8(out.stdout).expect("stdout is UTF-8"),
+        stderr: String::from_utf8(out.stderr).expect("stderr is UTF-8"),
+    }
+}
+
+/// SIGINT and SIGTERM stop a run cleanly: exit 130 and 143 (128 + the signal number), one line
+/// saying so, and no output file: a directory the run created is removed again, and earlier
+/// results replaced with --force are left exactly as they were.
+#[test]
+fn an_interrupted_run_exits_130_or_143_and_writes_nothing() {
+    let tmp = tempdir();
+    for (signal, code) in [("INT", 130), ("TERM", 143)] {
+        let dir = tmp.path().join(format!("fresh-{signal}"));
+        let out = interrupted_run(signal, &dir, &[]);
+        assert_eq!(out.code, Some(code), "{}", out.describe());
+        assert_eq!(
+            out.stderr,
+            format!("interrupted by SIG{signal}: no results were written\n"),
+            "{}",
+            out.describe()
+        );
+        assert!(out.stdout.is_empty(), "{}", out.describe());
+        assert!(!dir.exists(), "SIG{signal}: {} left behind", dir.display());
+    }
+
+    let dir = tmp.path().join("earlier");
+    loancycle([
+        OsStr::new("run"),
+        tiny().as_os_str(),
+        OsStr::new("--out"),
+        dir.as_os_str(),
+        OsStr::new("--quiet"),
+    ])
+    .ok();
+    let before = assert_only_outputs(&dir);
+    let out = interrupted_run("INT", &dir, &["--force"]);
+    assert_eq!(out.code, Some(130), "{}", out.describe());
+    assert_eq!(dir_contents(&dir), before, "an interrupted run changed earlier results");
 }

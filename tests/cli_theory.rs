@@ -65,6 +65,8 @@ fn optimum_band_lists_the_admitted_integers() {
     );
 }
 
+/// The per-size CSV of a table curve: (1 - phi(k))^k at each size, by arithmetic: 0.92^2 = 0.8464,
+/// 0.94^3 = 0.830584, 0.95^4 = 0.81450625, so the smallest group is the one marked best.
 #[test]
 fn optimum_csv_and_table_curve() {
     let out = loancycle(&[
@@ -79,7 +81,20 @@ fn optimum_csv_and_table_curve() {
     ]);
     assert!(out.status.success());
     let text = String::from_utf8_lossy(&out.stdout);
-    assert_eq!(text.lines().count(), 4, "{text}");
+    let mut lines = text.lines();
+    assert_eq!(lines.next(), Some("group_size,phi,repayment_probability,best"));
+    let rows: Vec<Vec<&str>> = lines.map(|l| l.split(',').collect()).collect();
+    let expected = [
+        ("2", "0.08", 0.8464, "true"),
+        ("3", "0.06", 0.830584, "false"),
+        ("4", "0.05", 0.81450625, "false"),
+    ];
+    assert_eq!(rows.len(), expected.len(), "{text}");
+    for (row, (k, phi, repayment, best)) in rows.iter().zip(expected) {
+        assert_eq!((row[0], row[1], row[3]), (k, phi, best), "{text}");
+        let r: f64 = row[2].parse().expect("a number");
+        assert!((r - repayment).abs() < 1e-12, "k = {k}: {r}");
+    }
 }
 
 #[test]
@@ -108,7 +123,18 @@ fn analyze_reports_exact_values_in_class_and_the_reason_outside() {
     let theory = format!("{root}/scenarios-demo/theory.toml");
     let v = json(&loancycle(&["analyze", &theory, "--json"]));
     assert!(v["out_of_class"].is_null());
-    assert_eq!(v["arms"].as_array().map(Vec::len), Some(18));
+    // Every arm of the theory demo (group sizes 2..=10, each without and with full cover), in order,
+    // each with an exact probability strictly between 0 and 1.
+    let arms = v["arms"].as_array().expect("arms");
+    let expected: Vec<String> = (2..=10)
+        .flat_map(|k| [0.0, 1.0].map(|c| format!("group_size={k},peer_cover={c}")))
+        .collect();
+    let labels: Vec<&str> = arms.iter().map(|a| a["label"].as_str().unwrap_or("")).collect();
+    assert_eq!(labels, expected);
+    for arm in arms {
+        let g = arm["exact"]["group_repayment"].as_f64().expect("exact value");
+        assert!(g > 0.0 && g < 1.0, "{}: {g}", arm["label"]);
+    }
     let baseline = format!("{root}/scenarios-demo/baseline.toml");
     let out = loancycle(&["analyze", &baseline]);
     let text = String::from_utf8_lossy(&out.stdout);

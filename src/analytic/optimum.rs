@@ -10,7 +10,6 @@ use super::{AnalyticError, bad};
 use crate::curve::{CurveError, GroupSizeCurve};
 use serde::Serialize;
 use std::collections::{BTreeMap, BTreeSet};
-use std::fmt::Write as _;
 
 /// Right end of the scanned range of real group sizes.
 pub const SCAN_END: f64 = 1e6;
@@ -599,172 +598,9 @@ pub fn solve(request: &OptimumRequest) -> Result<OptimumReport, AnalyticError> {
     })
 }
 
-fn curve_text(curve: &GroupSizeCurve) -> String {
-    match curve {
-        GroupSizeCurve::Constant { value } => format!("constant curve, phi = {value}"),
-        GroupSizeCurve::Power { p } => format!("power curve phi(k) = k^-p, p = {p}"),
-        GroupSizeCurve::PowerPlusLog { p } => format!("power_plus_log curve phi(k) = 1/(k^p + (ln k)^(1/p)), p = {p}"),
-        GroupSizeCurve::Table { values } => format!("table curve with {} sizes", values.len()),
-    }
-}
-
-fn opt_num(v: Option<f64>, decimals: usize) -> String {
-    v.map_or_else(|| "-".to_string(), |x| format!("{x:.decimals$}"))
-}
-
-fn join_ints(v: &[u32]) -> String {
-    if v.is_empty() {
-        "none".into()
-    } else {
-        v.iter().map(u32::to_string).collect::<Vec<_>>().join(", ")
-    }
-}
-
-impl OptimumReport {
-    /// A readable terminal table.
-    pub fn to_table(&self) -> String {
-        let mut out = String::new();
-        let c = &self.continuous;
-        let _ = writeln!(out, "Best group size, independent members, no peer cover");
-        let _ = writeln!(out, "  {}", curve_text(&self.curve));
-        let _ = writeln!(
-            out,
-            "  objective: x ln(1 - phi(x)); a group of k repays with probability (1 - phi(k))^k"
-        );
-        let range_text = format!("[{}, {:e}]", c.scan_start, c.scan_end);
-        match c.kind {
-            MaximiserKind::Interior | MaximiserKind::DomainStart => {
-                let where_text = if c.kind == MaximiserKind::DomainStart {
-                    ", at the smallest admissible size"
-                } else {
-                    ""
-                };
-                let uniq = if c.unique { "unique" } else { "not unique" };
-                let _ = writeln!(
-                    out,
-                    "  continuous optimum x* = {}{where_text} ({uniq} on {range_text})",
-                    opt_num(c.x_star, 4)
-                );
-                let _ = writeln!(out, "  repayment at x*       = {}", opt_num(c.repayment_at_x_star, 6));
-                if !c.unique && c.local_maxima.len() > 1 {
-                    let list: Vec<String> = c.local_maxima.iter().map(|x| format!("{x:.4}")).collect();
-                    let _ = writeln!(out, "  local maxima at {}", list.join(", "));
-                }
-            }
-            MaximiserKind::RisingToEnd => {
-                let _ = writeln!(
-                    out,
-                    "  no finite maximiser: the objective keeps rising to x = {:e} (repayment {} there)",
-                    c.scan_end,
-                    opt_num(c.repayment_at_scan_end, 6)
-                );
-            }
-            MaximiserKind::Flat => {
-                let _ = writeln!(out, "  no maximiser: every group size repays with the same probability");
-            }
-            MaximiserKind::IntegerOnly => {
-                let _ = writeln!(
-                    out,
-                    "  a table curve is defined at integer sizes only: see the best integer below"
-                );
-            }
-        }
-        match (self.best_integer, self.repayment_at_best_integer) {
-            (Some(k), Some(r)) => {
-                let _ = writeln!(
-                    out,
-                    "  best integer in {}..{}: k = {k} (repayment {r:.6})",
-                    self.range.0, self.range.1
-                );
-            }
-            _ => {
-                let _ = writeln!(
-                    out,
-                    "  the curve is defined at no size in {}..{}",
-                    self.range.0, self.range.1
-                );
-            }
-        }
-        let _ = writeln!(out);
-        let _ = writeln!(out, "  {:>8}  {:>12}  {:>14}", "k", "phi(k)", "P(group repays)");
-        for row in &self.by_integer {
-            let mark = if Some(row.group_size) == self.best_integer {
-                "  <- best"
-            } else {
-                ""
-            };
-            match (row.phi, row.repayment) {
-                (Some(phi), Some(r)) => {
-                    let _ = writeln!(out, "  {:>8}  {phi:>12.6}  {r:>15.6}{mark}", row.group_size);
-                }
-                _ => {
-                    let _ = writeln!(out, "  {:>8}  {:>12}  {:>15}", row.group_size, "undefined", "-");
-                }
-            }
-        }
-        if let Some(band) = &self.band {
-            let _ = writeln!(out);
-            let _ = writeln!(
-                out,
-                "  band p in [{}, {}] ({} values):",
-                band.p_from,
-                band.p_to,
-                band.points.len()
-            );
-            match (band.min_x_star, band.max_x_star) {
-                (Some(lo), Some(hi)) => {
-                    let _ = writeln!(out, "    smallest x* = {:.4} at p = {:.4}", lo.x_star, lo.p);
-                    let _ = writeln!(out, "    largest  x* = {:.4} at p = {:.4}", hi.x_star, hi.p);
-                    let _ = writeln!(
-                        out,
-                        "    integers inside [smallest x*, largest x*]: {}",
-                        join_ints(&band.integers_inside)
-                    );
-                }
-                _ => {
-                    let _ = writeln!(out, "    no value of p in the band has a finite maximiser");
-                }
-            }
-            let _ = writeln!(
-                out,
-                "    best integers across the band: {}",
-                join_ints(&band.best_integers)
-            );
-            if !band.without_finite_maximiser.is_empty() {
-                let n = band.without_finite_maximiser.len();
-                let first = band.without_finite_maximiser[0];
-                let _ = writeln!(
-                    out,
-                    "    {n} value(s) of p have no finite maximiser (the first is p = {first});"
-                );
-                let _ = writeln!(
-                    out,
-                    "    x* can grow without bound as p nears them, so the extremes above cover the other values only"
-                );
-            }
-        }
-        let _ = writeln!(out, "\n{}", crate::CAUTION);
-        out
-    }
-
-    /// The report as pretty-printed JSON; `x_star` is null when there is no finite maximiser.
-    pub fn to_json(&self) -> String {
-        serde_json::to_string_pretty(self)
-            .unwrap_or_else(|e| format!("{{\"error\": \"cannot serialise the report: {e}\"}}"))
-    }
-
-    /// The integer table as CSV: `group_size,phi,repayment_probability,best` (empty cells where the
-    /// curve is undefined). The continuous optimum and the band are in the table and JSON forms.
-    pub fn to_csv(&self) -> String {
-        let mut out = String::from("group_size,phi,repayment_probability,best\n");
-        for row in &self.by_integer {
-            let f = |v: Option<f64>| v.map_or_else(String::new, |x| x.to_string());
-            let best = Some(row.group_size) == self.best_integer;
-            let _ = writeln!(out, "{},{},{},{}", row.group_size, f(row.phi), f(row.repayment), best);
-        }
-        out
-    }
-}
+// Command-line input of `optimum`. The curve itself is read by `curve_from_parts`, the one place
+// that turns command-line text into a curve; it is to hand over to the scenario's curve parser once
+// that parser can read a curve outside a scenario file.
 
 fn split_range(text: &str) -> Option<(&str, &str)> {
     let (a, b) = text.split_once("..")?;
@@ -1047,32 +883,5 @@ mod tests {
             })
             .is_err()
         );
-    }
-
-    #[test]
-    fn outputs_carry_the_required_keys() {
-        let r = solve(&OptimumRequest {
-            curve: GroupSizeCurve::power(1.0).unwrap(),
-            band: None,
-            range: (2, 6),
-        })
-        .unwrap();
-        let json: serde_json::Value = serde_json::from_str(&r.to_json()).unwrap();
-        assert!(json["x_star"].is_null());
-        assert_eq!(json["best_integer"], 6);
-        assert!(json["repayment_at_best_integer"].as_f64().unwrap() > 0.3);
-        assert!(r.to_table().contains("no finite maximiser"));
-        let csv = r.to_csv();
-        assert!(csv.starts_with("group_size,phi,repayment_probability,best\n"));
-        assert_eq!(csv.lines().count(), 6);
-        let table = GroupSizeCurve::table([(2, 0.1), (4, 0.05)].into_iter().collect()).unwrap();
-        let r = solve(&OptimumRequest {
-            curve: table,
-            band: None,
-            range: (1, 4),
-        })
-        .unwrap();
-        assert!(r.to_table().contains("undefined"));
-        assert!(r.to_csv().contains("\n1,,,false\n"));
     }
 }

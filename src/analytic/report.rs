@@ -11,7 +11,6 @@ use super::{basel, vasicek};
 use crate::scenario::{Liability, Scenario, ShockProbability, ShockScope};
 use serde::Serialize;
 use std::collections::BTreeMap;
-use std::fmt::Write as _;
 
 /// Quantile levels of the per-cycle hit share shown for every hit probability.
 pub const HIT_SHARE_LEVELS: [f64; 4] = [0.5, 0.9, 0.99, 0.999];
@@ -325,174 +324,13 @@ fn basel_comparison(pd: f64, lgd: f64, rho: f64) -> Option<BaselComparison> {
 }
 
 /// A number with at most six decimals and no trailing zeros, so sums such as 0.1 + 0.05 print as 0.15.
-fn short(x: f64) -> String {
+pub(crate) fn short(x: f64) -> String {
     let text = format!("{x:.6}");
     let text = text.trim_end_matches('0').trim_end_matches('.');
     if text == "-0" {
         "0".to_string()
     } else {
         text.to_string()
-    }
-}
-
-fn liability_name(l: Liability) -> &'static str {
-    match l {
-        Liability::Joint => "joint",
-        Liability::Individual => "individual",
-    }
-}
-
-impl AnalyzeReport {
-    /// A readable terminal table, ending with the one-line caution.
-    pub fn to_table(&self) -> String {
-        let mut out = String::new();
-        let _ = writeln!(out, "Analysis of scenario '{}'", self.scenario);
-        let _ = writeln!(out);
-        let _ = writeln!(out, "Exact per-cycle group repayment (one-factor class)");
-        match (&self.model, &self.out_of_class) {
-            (Some(m), _) => {
-                let prob = match &m.probability {
-                    ShockProbability::Fixed(p) => format!("p = {p}"),
-                    ShockProbability::Curve(c) => format!("p = phi(k), {} curve", c.kind_name()),
-                };
-                let _ = writeln!(
-                    out,
-                    "  in class: shock '{}' ({prob}, severity {}), income ratio {}, risk {}, rho = {}",
-                    m.shock_name,
-                    short(m.severity),
-                    short(m.income_ratio),
-                    short(m.risk),
-                    short(m.rho())
-                );
-                let width = self
-                    .arms
-                    .iter()
-                    .map(|a| a.label.chars().count())
-                    .max()
-                    .unwrap_or(3)
-                    .max(3);
-                let _ = writeln!(
-                    out,
-                    "  {:<width$} {:>6} {:<10} {:>6} {:>9} {:>10} {:>11} {:>10} {:>9}",
-                    "arm", "k", "liability", "cover", "P(hit)", "P(repay)", "P(short)", "iid", "x*"
-                );
-                for arm in &self.arms {
-                    match (&arm.exact, &arm.reason) {
-                        (Some(r), _) => {
-                            let x = r
-                                .class_optimum
-                                .map_or_else(|| "none".to_string(), |x| format!("{x:.3}"));
-                            let _ = writeln!(
-                                out,
-                                "  {:<width$} {:>6} {:<10} {:>6.2} {:>9.6} {:>10.6} {:>11.6} {:>10.6} {:>9}",
-                                arm.label,
-                                arm.group_size,
-                                liability_name(arm.liability),
-                                arm.peer_cover,
-                                r.hit_probability,
-                                r.group_repayment,
-                                r.member_shortfall,
-                                r.iid_group_repayment,
-                                x
-                            );
-                        }
-                        (None, Some(reason)) => {
-                            let _ = writeln!(out, "  {:<width$} not computed: {reason}", arm.label);
-                        }
-                        (None, None) => {}
-                    }
-                }
-                let _ = writeln!(
-                    out,
-                    "  P(short): a member's own shortfall probability; iid: (1 - P(short))^k, what independence would give; x*: the class's closed-form best size (1: the smallest group)"
-                );
-            }
-            (None, Some(reason)) => {
-                let _ = writeln!(out, "  out of class: {reason}");
-            }
-            (None, None) => {}
-        }
-        let _ = writeln!(out);
-        match (&self.hit_share, &self.hit_share_reason) {
-            (Some(section), _) => {
-                let whom = match section.scope {
-                    HitShareScope::Portfolio => format!("whole portfolio of {} members", section.population),
-                    HitShareScope::PerVillage => format!("within one village of {} members", section.population),
-                };
-                let _ = writeln!(
-                    out,
-                    "Share of members hit per cycle by shock '{}' ({whom}, rho = {})",
-                    section.shock_name,
-                    short(section.rho)
-                );
-                for note in &section.notes {
-                    let _ = writeln!(out, "  note: {note}");
-                }
-                for e in &section.entries {
-                    let whose = if e.arms.len() == self.arms.len() {
-                        "all arms".to_string()
-                    } else {
-                        format!("arms: {}", e.arms.join(", "))
-                    };
-                    let _ = writeln!(out, "  p = {:.6} ({whose})", e.p);
-                    let levels: Vec<String> = e
-                        .quantiles
-                        .iter()
-                        .map(|h| format!("{:>9}", format!("{}%", h.level * 100.0)))
-                        .collect();
-                    let values: Vec<String> = e.quantiles.iter().map(|h| format!("{:>9.6}", h.share)).collect();
-                    let _ = writeln!(out, "    large-pool quantile {}", levels.join(" "));
-                    let _ = writeln!(out, "    hit share           {}", values.join(" "));
-                    match (e.finite_quantile_999, e.finite_minus_large, &e.finite_note) {
-                        (Some(f), Some(gap), _) => {
-                            let _ = writeln!(
-                                out,
-                                "    99.9% quantile, {} members: {f:.6} vs large pool {:.6} ({gap:+.6})",
-                                e.finite_members, e.large_pool_quantile_999
-                            );
-                        }
-                        (_, _, Some(note)) => {
-                            let _ = writeln!(out, "    finite-pool quantile not computed: {note}");
-                        }
-                        _ => {}
-                    }
-                    if let Some(b) = &e.basel {
-                        let _ = writeln!(
-                            out,
-                            "    Basel II other retail at PD = p, LGD = {:.2}: R(PD) = {:.4} vs scenario rho {:.4}",
-                            b.lgd, b.basel_correlation, b.scenario_correlation
-                        );
-                        let _ = writeln!(
-                            out,
-                            "      99.9% conditional hit probability {:.6} (at scenario rho {:.6}); K = {:.6}, risk weight {:.2}% (at scenario rho: K = {:.6}, {:.2}%)",
-                            b.conditional_hit_probability,
-                            b.conditional_hit_probability_at_scenario_rho,
-                            b.capital_requirement,
-                            100.0 * b.risk_weight,
-                            b.capital_requirement_at_scenario_rho,
-                            100.0 * b.risk_weight_at_scenario_rho
-                        );
-                    }
-                }
-                let _ = writeln!(
-                    out,
-                    "  Basel figures treat one cycle as the one-year horizon and a hit as a default (true when a hit leaves a shortfall nobody covers); no 1.06 scaling, no PD floor"
-                );
-            }
-            (None, reason) => {
-                let reason = reason.as_deref().unwrap_or("no reason recorded");
-                let _ = writeln!(out, "Share of members hit per cycle: not shown: {reason}");
-            }
-        }
-        let _ = writeln!(out);
-        let _ = writeln!(out, "{}", self.caution);
-        out
-    }
-
-    /// The report as pretty-printed JSON.
-    pub fn to_json(&self) -> String {
-        serde_json::to_string_pretty(self)
-            .unwrap_or_else(|e| format!("{{\"error\": \"cannot serialise the report: {e}\"}}"))
     }
 }
 
@@ -568,10 +406,10 @@ mod tests {
         let b = e.basel.as_ref().unwrap();
         assert!((b.lgd - 0.75).abs() < 1e-15);
         assert!(b.basel_correlation < 0.16 && b.basel_correlation > 0.03);
-        let table = report.to_table();
+        let table = crate::output::analysis::table(&report);
         assert!(table.trim_end().ends_with(CAUTION), "{table}");
         assert!(table.contains("in class") && table.contains("99.9% quantile, 400 members"));
-        let json: serde_json::Value = serde_json::from_str(&report.to_json()).unwrap();
+        let json: serde_json::Value = serde_json::from_str(&crate::output::analysis::json(&report)).unwrap();
         assert_eq!(json["hit_share"]["scope"], "portfolio");
         assert!(json["hit_share_reason"].is_null());
     }
@@ -601,11 +439,11 @@ mod tests {
         );
         assert!(report.arms.iter().all(|a| a.exact.is_none()));
         assert!(report.hit_share.is_some());
-        assert!(report.to_table().contains("out of class: borrowers.income"));
+        assert!(crate::output::analysis::table(&report).contains("out of class: borrowers.income"));
         s.risk = Distribution::gamma(1.0, 0.4).unwrap();
         let report = analyze(&s);
         assert!(report.hit_share_reason.as_deref().unwrap().contains("borrowers.risk"));
-        assert!(report.to_table().trim_end().ends_with(CAUTION));
+        assert!(crate::output::analysis::table(&report).trim_end().ends_with(CAUTION));
     }
 
     #[test]

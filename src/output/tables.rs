@@ -1,59 +1,34 @@
 //! CSV and JSON renderings of a run report.
+//!
+//! Each CSV row is a `Serialize` struct whose field names are the column names, so a column cannot
+//! drift out of step with its header.
 
-use crate::report::RunReport;
+use crate::report::{ArmReport, RunReport};
 use crate::scenario::{ExclusionScope, Formation, Liability, Matching};
+use crate::stats::summary::Interval;
+use serde::{Serialize, Serializer};
 
-/// Columns of summary.csv, in order.
-pub const SUMMARY_COLUMNS: [&str; 41] = [
-    "arm",
-    "group_size",
-    "liability",
-    "peer_cover",
-    "exclusion_cycles",
-    "exclusion_scope",
-    "formation",
-    "matching",
-    "replications",
-    "group_cycles",
-    "group_repayment_rate",
-    "group_repayment_ci_low",
-    "group_repayment_ci_high",
-    "member_loans",
-    "member_shortfall_rate",
-    "member_default_rate",
-    "iid_group_repayment",
-    "implied_member_failure",
-    "rescued_rate",
-    "value_repayment_rate",
-    "loss_rate",
-    "loss_rate_ci_low",
-    "loss_rate_ci_high",
-    "net_yield",
-    "served_share",
-    "excluded_share",
-    "waiting_share",
-    "empty_share",
-    "loss_p50",
-    "loss_p95",
-    "loss_p99",
-    "loss_p999",
-    "loss_es99",
-    "loss_cycle_p99",
-    "loss_cycle_p999",
-    "analytic_group_repayment",
-    "dependence_ratio",
-    "shortfall_icc",
-    "closed_form_optimum",
-    "group_repayment_se",
-    "loss_rate_se",
-];
+/// A number cell: the shortest round-trip decimal of a finite number (Rust's `Display`, so 1 is
+/// written `1`, not `1.0`), empty for a missing or non-finite value.
+#[derive(Debug, Clone, Copy, Default, PartialEq)]
+pub struct Cell(pub Option<f64>);
 
-/// A cell: shortest round-trip decimal of a finite number, empty otherwise.
-pub fn cell(x: Option<f64>) -> String {
-    match x {
-        Some(v) if v.is_finite() => format!("{v}"),
-        _ => String::new(),
+impl Serialize for Cell {
+    fn serialize<S: Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
+        match self.0 {
+            Some(v) if v.is_finite() => serializer.collect_str(&v),
+            _ => serializer.serialize_str(""),
+        }
     }
+}
+
+fn cells(interval: Option<Interval>) -> (Cell, Cell, Cell, Cell) {
+    (
+        Cell(interval.map(|i| i.rate)),
+        Cell(interval.and_then(|i| i.ci_low)),
+        Cell(interval.and_then(|i| i.ci_high)),
+        Cell(interval.and_then(|i| i.standard_error)),
+    )
 }
 
 /// The scenario-file spelling of a liability.
@@ -88,134 +63,181 @@ pub fn matching_name(m: Matching) -> &'static str {
     }
 }
 
-fn csv_bytes(header: &[&str], rows: Vec<Vec<String>>) -> Vec<u8> {
+/// CSV bytes of serialised rows; the header comes from the row type's field names. Without rows
+/// the header is still written, taken from a default row.
+fn csv_bytes<R: Serialize + Default>(rows: impl IntoIterator<Item = R>) -> Vec<u8> {
+    // Writing to memory cannot fail except on a broken invariant (a row type csv cannot flatten),
+    // which the tests catch.
     let mut w = csv::Writer::from_writer(Vec::new());
-    // Writing to memory cannot fail except on a broken invariant (ragged rows), which tests catch.
-    w.write_record(header).expect("in-memory csv");
-    for r in rows {
-        w.write_record(&r).expect("in-memory csv");
+    let mut any = false;
+    for row in rows {
+        w.serialize(row).expect("in-memory csv");
+        any = true;
     }
-    w.into_inner().expect("in-memory csv")
+    if any {
+        return w.into_inner().expect("in-memory csv");
+    }
+    w.serialize(R::default()).expect("in-memory csv");
+    let bytes = w.into_inner().expect("in-memory csv");
+    let header_end = bytes.iter().position(|&b| b == b'\n').map_or(bytes.len(), |i| i + 1);
+    bytes[..header_end].to_vec()
+}
+
+/// One row of summary.csv: the field names are the column names, in column order.
+#[derive(Debug, Default, Serialize)]
+pub struct SummaryRow<'a> {
+    arm: &'a str,
+    group_size: u32,
+    liability: &'static str,
+    peer_cover: Cell,
+    exclusion_cycles: String,
+    exclusion_scope: &'static str,
+    formation: &'static str,
+    matching: &'static str,
+    replications: u64,
+    group_cycles: u64,
+    group_repayment_rate: Cell,
+    group_repayment_ci_low: Cell,
+    group_repayment_ci_high: Cell,
+    member_loans: u64,
+    member_shortfall_rate: Cell,
+    member_default_rate: Cell,
+    shortfall_free_group_rate: Cell,
+    iid_shortfall_free: Cell,
+    implied_member_failure: Cell,
+    rescued_rate: Cell,
+    value_repayment_rate: Cell,
+    loss_rate: Cell,
+    loss_rate_ci_low: Cell,
+    loss_rate_ci_high: Cell,
+    net_yield: Cell,
+    served_share: Cell,
+    excluded_share: Cell,
+    waiting_share: Cell,
+    empty_share: Cell,
+    loss_p50: Cell,
+    loss_p95: Cell,
+    loss_p99: Cell,
+    loss_p999: Cell,
+    loss_es99: Cell,
+    loss_cycle_p99: Cell,
+    loss_cycle_p999: Cell,
+    analytic_group_repayment: Cell,
+    dependence_ratio: Cell,
+    shortfall_icc: Cell,
+    closed_form_optimum: Cell,
+    group_repayment_se: Cell,
+    loss_rate_se: Cell,
+}
+
+impl<'a> SummaryRow<'a> {
+    /// The row of one arm.
+    pub fn new(a: &'a ArmReport) -> Self {
+        let p = &a.arm.policy;
+        let s = &a.summary;
+        let (group_repayment_rate, group_repayment_ci_low, group_repayment_ci_high, group_repayment_se) =
+            cells(s.group_repayment);
+        let (loss_rate, loss_rate_ci_low, loss_rate_ci_high, loss_rate_se) = cells(s.loss_rate);
+        SummaryRow {
+            arm: &a.arm.label,
+            group_size: p.group_size,
+            liability: liability_name(p.liability),
+            peer_cover: Cell(Some(p.peer_cover)),
+            exclusion_cycles: p.exclusion_cycles.to_string(),
+            exclusion_scope: exclusion_scope_name(p.exclusion_scope),
+            formation: formation_name(p.formation),
+            matching: matching_name(p.matching),
+            replications: s.replications,
+            group_cycles: s.group_cycles,
+            group_repayment_rate,
+            group_repayment_ci_low,
+            group_repayment_ci_high,
+            member_loans: s.member_loans,
+            member_shortfall_rate: Cell(s.member_shortfall_rate),
+            member_default_rate: Cell(s.member_default_rate),
+            shortfall_free_group_rate: Cell(s.shortfall_free_group_rate),
+            iid_shortfall_free: Cell(s.iid_shortfall_free),
+            implied_member_failure: Cell(s.implied_member_failure),
+            rescued_rate: Cell(s.rescued_rate),
+            value_repayment_rate: Cell(s.value_repayment_rate),
+            loss_rate,
+            loss_rate_ci_low,
+            loss_rate_ci_high,
+            net_yield: Cell(s.net_yield),
+            served_share: Cell(s.served_share),
+            excluded_share: Cell(s.excluded_share),
+            waiting_share: Cell(s.waiting_share),
+            empty_share: Cell(s.empty_share),
+            loss_p50: Cell(s.loss_p50),
+            loss_p95: Cell(s.loss_p95),
+            loss_p99: Cell(s.loss_p99),
+            loss_p999: Cell(s.loss_p999),
+            loss_es99: Cell(s.loss_es99),
+            loss_cycle_p99: Cell(s.loss_cycle_p99),
+            loss_cycle_p999: Cell(s.loss_cycle_p999),
+            analytic_group_repayment: Cell(a.analytic_group_repayment),
+            dependence_ratio: Cell(s.dependence_ratio),
+            shortfall_icc: Cell(s.shortfall_icc),
+            closed_form_optimum: Cell(a.closed_form_optimum),
+            group_repayment_se,
+            loss_rate_se,
+        }
+    }
 }
 
 /// summary.csv: one row per arm.
 pub fn summary_csv(report: &RunReport) -> Vec<u8> {
-    let rows = report
-        .arms
-        .iter()
-        .map(|a| {
-            let p = &a.arm.policy;
-            let s = &a.summary;
-            let g = s.group_repayment;
-            let l = s.loss_rate;
-            vec![
-                a.arm.label.clone(),
-                p.group_size.to_string(),
-                liability_name(p.liability).into(),
-                format!("{}", p.peer_cover),
-                p.exclusion_cycles.to_string(),
-                exclusion_scope_name(p.exclusion_scope).into(),
-                formation_name(p.formation).into(),
-                matching_name(p.matching).into(),
-                s.replications.to_string(),
-                s.group_cycles.to_string(),
-                cell(g.map(|g| g.rate)),
-                cell(g.and_then(|g| g.ci_low)),
-                cell(g.and_then(|g| g.ci_high)),
-                s.member_loans.to_string(),
-                cell(s.member_shortfall_rate),
-                cell(s.member_default_rate),
-                cell(s.iid_group_repayment),
-                cell(s.implied_member_failure),
-                cell(s.rescued_rate),
-                cell(s.value_repayment_rate),
-                cell(l.map(|l| l.rate)),
-                cell(l.and_then(|l| l.ci_low)),
-                cell(l.and_then(|l| l.ci_high)),
-                cell(s.net_yield),
-                cell(s.served_share),
-                cell(s.excluded_share),
-                cell(s.waiting_share),
-                cell(s.empty_share),
-                cell(s.loss_p50),
-                cell(s.loss_p95),
-                cell(s.loss_p99),
-                cell(s.loss_p999),
-                cell(s.loss_es99),
-                cell(s.loss_cycle_p99),
-                cell(s.loss_cycle_p999),
-                cell(a.analytic_group_repayment),
-                cell(a.dependence_ratio),
-                cell(s.shortfall_icc),
-                cell(a.closed_form_optimum),
-                cell(g.and_then(|g| g.standard_error)),
-                cell(l.and_then(|l| l.standard_error)),
-            ]
-        })
-        .collect();
-    csv_bytes(&SUMMARY_COLUMNS, rows)
+    csv_bytes(report.arms.iter().map(SummaryRow::new))
 }
 
-/// Columns of timeseries.csv, in order.
-pub const TIMESERIES_COLUMNS: [&str; 6] = [
-    "arm",
-    "cycle",
-    "served_share",
-    "group_repayment_rate",
-    "loss_rate",
-    "excluded_share",
-];
+/// One row of timeseries.csv.
+#[derive(Debug, Default, Serialize)]
+struct TimeseriesRow<'a> {
+    arm: &'a str,
+    cycle: u32,
+    served_share: Cell,
+    group_repayment_rate: Cell,
+    loss_rate: Cell,
+    excluded_share: Cell,
+}
 
 /// timeseries.csv: per arm and counted cycle, means over replications.
 pub fn timeseries_csv(report: &RunReport) -> Vec<u8> {
-    let rows = report
-        .arms
-        .iter()
-        .flat_map(|a| {
-            a.time_series.iter().map(move |c| {
-                vec![
-                    a.arm.label.clone(),
-                    c.cycle.to_string(),
-                    cell(c.served_share),
-                    cell(c.group_repayment_rate),
-                    cell(c.loss_rate),
-                    cell(c.excluded_share),
-                ]
-            })
+    csv_bytes(report.arms.iter().flat_map(|a| {
+        a.time_series.iter().map(move |c| TimeseriesRow {
+            arm: &a.arm.label,
+            cycle: c.cycle,
+            served_share: Cell(c.served_share),
+            group_repayment_rate: Cell(c.group_repayment_rate),
+            loss_rate: Cell(c.loss_rate),
+            excluded_share: Cell(c.excluded_share),
         })
-        .collect();
-    csv_bytes(&TIMESERIES_COLUMNS, rows)
+    }))
 }
 
-/// Columns of differences.csv, in order.
-pub const DIFFERENCE_COLUMNS: [&str; 7] = [
-    "arm",
-    "reference_arm",
-    "metric",
-    "difference",
-    "se",
-    "ci_low",
-    "ci_high",
-];
+/// One row of differences.csv.
+#[derive(Debug, Default, Serialize)]
+struct DifferenceRow<'a> {
+    arm: &'a str,
+    reference_arm: &'a str,
+    metric: &'a str,
+    difference: Cell,
+    se: Cell,
+    ci_low: Cell,
+    ci_high: Cell,
+}
 
 /// differences.csv: every arm against the first, per figure, paired by replication.
 pub fn differences_csv(report: &RunReport) -> Vec<u8> {
-    let rows = report
-        .differences
-        .iter()
-        .map(|d| {
-            vec![
-                d.arm.clone(),
-                d.reference.clone(),
-                d.metric.to_string(),
-                cell(Some(d.difference)),
-                cell(d.standard_error),
-                cell(d.ci_low),
-                cell(d.ci_high),
-            ]
-        })
-        .collect();
-    csv_bytes(&DIFFERENCE_COLUMNS, rows)
+    csv_bytes(report.differences.iter().map(|d| DifferenceRow {
+        arm: &d.arm,
+        reference_arm: &d.reference,
+        metric: d.metric,
+        difference: Cell(Some(d.difference)),
+        se: Cell(d.standard_error),
+        ci_low: Cell(d.ci_low),
+        ci_high: Cell(d.ci_high),
+    }))
 }
 
 /// summary.json: the whole report, pretty-printed, non-finite numbers as null.

@@ -38,8 +38,17 @@ pub fn summary_table(report: &RunReport) -> String {
     let width = report.arms.iter().map(|a| a.arm.label.len()).max().unwrap_or(3).max(3);
     let _ = writeln!(
         out,
-        "{:<width$}  {:>18}  {:>9}  {:>9}  {:>18}  {:>9}  {:>9}  {:>9}",
-        "arm", "group repaid (95%)", "iid pred.", "exact", "loss rate (95%)", "loss p99", "served", "excluded"
+        "{:<width$}  {:>18}  {:>9}  {:>9}  {:>9}  {:>10}  {:>18}  {:>9}  {:>9}  {:>9}",
+        "arm",
+        "group repaid (95%)",
+        "exact",
+        "no-short",
+        "if indep.",
+        "dep. ratio",
+        "loss rate (95%)",
+        "loss p99",
+        "served",
+        "excluded"
     );
     for a in &report.arms {
         let s = &a.summary;
@@ -51,17 +60,24 @@ pub fn summary_table(report: &RunReport) -> String {
             .map_or("-".into(), |l| with_interval(l.rate, l.standard_error, 3, "%", false));
         let _ = writeln!(
             out,
-            "{:<width$}  {:>18}  {:>9}  {:>9}  {:>18}  {:>9}  {:>9}  {:>9}",
+            "{:<width$}  {:>18}  {:>9}  {:>9}  {:>9}  {:>10}  {:>18}  {:>9}  {:>9}  {:>9}",
             a.arm.label,
             g,
-            pct(s.iid_group_repayment),
             pct(a.analytic_group_repayment),
+            pct(s.shortfall_free_group_rate),
+            pct(s.iid_shortfall_free),
+            s.dependence_ratio.map_or_else(|| "-".into(), |r| format!("{r:.3}")),
             l,
             pct(s.loss_p99),
             pct(s.served_share),
             pct(s.excluded_share)
         );
     }
+    let _ = writeln!(
+        out,
+        "no-short: groups with no member short; if indep.: (1 - member shortfall rate)^k, what \
+         independent members would give; dep. ratio: no-short / if indep. (1 for independent members)"
+    );
     if report.arms.len() > 1 {
         let _ = writeln!(
             out,
@@ -97,22 +113,21 @@ pub fn summary_table(report: &RunReport) -> String {
     if let Some(reason) = &report.analytic_out_of_class {
         let _ = writeln!(out, "exact values: none, outside the one-factor class ({reason})");
     }
+    // With one arm there is nothing to choose, so no best-arm line.
     if let Some(b) = &report.best {
         let _ = writeln!(
             out,
             "best arm by group repayment: {} (group size {})",
             b.label, b.group_size
         );
-        if report.scenario.arms.len() > 1 {
-            let sizes: Vec<String> = b.confidence_set_group_sizes.iter().map(|k| k.to_string()).collect();
-            let _ = writeln!(
-                out,
-                "not significantly worse (paired by replication, 95%, Bonferroni): {} (group sizes {})",
-                b.confidence_set.join("; "),
-                sizes.join(", ")
-            );
-        }
-    } else {
+        let sizes: Vec<String> = b.confidence_set_group_sizes.iter().map(|k| k.to_string()).collect();
+        let _ = writeln!(
+            out,
+            "not significantly worse (paired by replication, 95%, Bonferroni): {} (group sizes {})",
+            b.confidence_set.join("; "),
+            sizes.join(", ")
+        );
+    } else if report.arms.len() > 1 {
         let _ = writeln!(out, "no arm served any group in its counted cycles");
     }
     for w in &report.warnings {

@@ -1,10 +1,12 @@
-//! Statistics: per-replication tallies, their mergeable accumulator, and the estimators (pooled
-//! rates with delta-method intervals, order-statistic quantiles) computed from them.
+//! Statistics: per-replication tallies, their mergeable accumulator, the estimators (pooled
+//! rates with delta-method intervals, order-statistic quantiles) computed from them, and the
+//! comparisons between arms built on the same estimators.
 //!
 //! Every interval comes from variation between independent replications: group-cycles within one
 //! replication share village factors and members, so treating them as independent would understate
 //! the error.
 
+pub mod compare;
 pub mod estimate;
 pub mod summary;
 pub mod tally;

@@ -22,9 +22,15 @@ pub struct ArmSummary {
     pub member_shortfall_rate: Option<f64>,
     /// Defaulting members (or members of defaulting groups) / member loans.
     pub member_default_rate: Option<f64>,
-    /// (1 - member_shortfall_rate)^k: what independent members would give.
-    pub iid_group_repayment: Option<f64>,
-    /// 1 - group_repayment_rate^(1/k): the member failure rate independent members would need.
+    /// Group-cycles in which no member had a shortfall / group-cycles.
+    pub shortfall_free_group_rate: Option<f64>,
+    /// (1 - member_shortfall_rate)^k: the shortfall-free share independent members would give.
+    pub iid_shortfall_free: Option<f64>,
+    /// shortfall_free_group_rate / iid_shortfall_free: 1 for independent members whatever the
+    /// cover, above 1 when shortfalls cluster in the same groups.
+    pub dependence_ratio: Option<f64>,
+    /// 1 - group_repayment_rate^(1/k): the per-member failure rate a naive analyst would infer from
+    /// group repayment, peer cover included.
     pub implied_member_failure: Option<f64>,
     /// Rescued groups / group-cycles.
     pub rescued_rate: Option<f64>,
@@ -120,6 +126,12 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
         estimate::ratio(reps.iter().map(|r| (r.groups_repaid as f64, r.group_cycles as f64))).map(Interval::from);
     let loss_rate = estimate::ratio(reps.iter().map(|r| (r.loss, r.disbursed))).map(Interval::from);
     let member_shortfall_rate = share(sum_u(|r| r.member_shortfalls), member_loans);
+    let shortfall_free_group_rate = share(sum_u(|r| r.shortfall_free_groups), group_cycles);
+    let iid_shortfall_free = member_shortfall_rate.map(|q| (1.0 - q).powf(k));
+    let dependence_ratio = match (shortfall_free_group_rate, iid_shortfall_free) {
+        (Some(free), Some(iid)) if iid > 0.0 => Some(free / iid),
+        _ => None,
+    };
     let due = sum_f(|r| r.due);
     let collected = sum_f(|r| r.collected);
     let disbursed = sum_f(|r| r.disbursed);
@@ -145,7 +157,9 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
         member_loans,
         member_shortfall_rate,
         member_default_rate: share(sum_u(|r| r.member_defaults), member_loans),
-        iid_group_repayment: member_shortfall_rate.map(|q| (1.0 - q).powf(k)),
+        shortfall_free_group_rate,
+        iid_shortfall_free,
+        dependence_ratio,
         implied_member_failure: group_repayment.map(|g| 1.0 - g.rate.max(0.0).powf(1.0 / k)),
         rescued_rate: share(sum_u(|r| r.groups_rescued), group_cycles),
         value_repayment_rate: fraction(collected, due),
