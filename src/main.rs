@@ -4,7 +4,7 @@ use clap::{Parser, Subcommand};
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 use loancycle::analytic::{self, optimum};
 use loancycle::output::{self, terminal};
-use loancycle::scenario::Scenario;
+use loancycle::scenario::{Overrides, Scenario};
 use loancycle::{demo, report, run};
 use std::path::PathBuf;
 use std::process::ExitCode;
@@ -91,14 +91,23 @@ enum Command {
 const BAD_INPUT: u8 = 2;
 
 fn load(file: Option<&PathBuf>) -> Result<(Scenario, String, String), String> {
-    match file {
-        Some(path) => Scenario::load(path)
+    load_with(file, &Overrides::default())
+}
+
+/// Loads a scenario with command-line overrides put in before validation, and prints its warnings.
+fn load_with(file: Option<&PathBuf>, overrides: &Overrides) -> Result<(Scenario, String, String), String> {
+    let loaded = match file {
+        Some(path) => Scenario::load_with(path, overrides)
             .map(|(s, text)| (s, text, path.display().to_string()))
             .map_err(|e| e.to_string()),
-        None => Scenario::from_toml_str(demo::BASELINE, demo::BASELINE_ORIGIN)
+        None => Scenario::from_toml_str_with(demo::BASELINE, demo::BASELINE_ORIGIN, overrides)
             .map(|s| (s, demo::BASELINE.to_string(), demo::BASELINE_ORIGIN.to_string()))
             .map_err(|e| e.to_string()),
+    }?;
+    for w in loaded.0.warnings() {
+        eprintln!("warning: {}: {w}", loaded.2);
     }
+    Ok(loaded)
 }
 
 /// Turns the `optimum` flags into a request; every refusal names the flag, the value and what is allowed.
@@ -198,7 +207,8 @@ fn main() -> ExitCode {
             quiet,
             force,
         } => {
-            let (mut scenario, text, origin) = match load(file.as_ref()) {
+            let overrides = Overrides { replications, seed };
+            let (scenario, text, origin) = match load_with(file.as_ref(), &overrides) {
                 Ok(x) => x,
                 Err(e) => {
                     eprintln!("error: {e}");
@@ -207,11 +217,6 @@ fn main() -> ExitCode {
             };
             if file.is_none() && !quiet {
                 eprintln!("no scenario file given: running the built-in baseline demo, {origin}");
-            }
-            run::apply_overrides(&mut scenario, replications, seed);
-            if let Err(e) = run::check_size(&scenario) {
-                eprintln!("error: {origin}: {e}");
-                return ExitCode::from(BAD_INPUT);
             }
             if let Err(e) = output::prepare_destination(&out, force) {
                 eprintln!("error: {e}");

@@ -368,7 +368,7 @@ mod tests {
     use super::*;
     use crate::analytic::tolerance::{QUADRATURE_CHECK, SCIPY_MATCH};
     use crate::dist::Distribution;
-    use crate::scenario::{Arm, Policy, Shock, StressWindow};
+    use crate::scenario::{Policy, Shock, StressWindow};
     use statrs::distribution::{Binomial, Discrete};
 
     fn model(p: f64, village: f64, portfolio: f64) -> OneFactorModel {
@@ -411,11 +411,10 @@ mod tests {
             dropout: 0.0,
             replace_departures: true,
             swept_fields: vec![],
-            arms: vec![Arm {
-                label: "base".into(),
-                policy: Policy::default_policy(),
-            }],
+            arms: vec![],
+            warnings: vec![],
         }
+        .with_policies(vec![("base", Policy::default_policy())])
     }
 
     #[test]
