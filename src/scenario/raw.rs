@@ -401,8 +401,8 @@ pub struct RawAxis {
     pub path: String,
     /// The listed values, each with its own span.
     pub values: Vec<W<toml::Value>>,
-    /// Where the list was written.
-    pub span: Range<usize>,
+    /// Where the list's first value was written (none for an empty list).
+    pub span: Option<Range<usize>>,
 }
 
 /// The `[sweep]` table, flattened to one axis per list and sorted by the line of each list.
@@ -413,8 +413,10 @@ pub struct RawSweep {
 }
 
 /// A node of the `[sweep]` tree: a sub-table (from a dotted key or a `[sweep.x]` header) or a list.
+/// Implicit tables of dotted keys have no span in the TOML reader, so a list is placed by the span of
+/// its first element (on the key's line for any list written on one line).
 enum SweepNode {
-    Table(Vec<(String, W<SweepNode>)>),
+    Table(Vec<(String, SweepNode)>),
     List(Vec<W<toml::Value>>),
 }
 
@@ -429,7 +431,7 @@ impl<'de> Deserialize<'de> for SweepNode {
             fn visit_map<A: MapAccess<'de>>(self, mut map: A) -> Result<SweepNode, A::Error> {
                 let mut out = Vec::new();
                 while let Some(key) = map.next_key::<String>()? {
-                    out.push((key, map.next_value::<W<SweepNode>>()?));
+                    out.push((key, map.next_value::<SweepNode>()?));
                 }
                 Ok(SweepNode::Table(out))
             }
@@ -447,16 +449,18 @@ impl<'de> Deserialize<'de> for SweepNode {
 
 impl<'de> Deserialize<'de> for RawSweep {
     fn deserialize<D: de::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
-        fn flatten(prefix: &str, entries: Vec<(String, W<SweepNode>)>, out: &mut Vec<RawAxis>) {
+        fn flatten(prefix: &str, entries: Vec<(String, SweepNode)>, out: &mut Vec<RawAxis>) {
             for (key, node) in entries {
                 let path = if prefix.is_empty() { key } else { format!("{prefix}.{key}") };
-                let span = match &node.origin {
-                    Origin::File(s) => s.clone(),
-                    _ => 0..0,
-                };
-                match node.value {
+                match node {
                     SweepNode::Table(inner) => flatten(&path, inner, out),
-                    SweepNode::List(values) => out.push(RawAxis { path, values, span }),
+                    SweepNode::List(values) => {
+                        let span = match values.first().map(|v| &v.origin) {
+                            Some(Origin::File(s)) => Some(s.clone()),
+                            _ => None,
+                        };
+                        out.push(RawAxis { path, values, span })
+                    }
                 }
             }
         }
@@ -464,8 +468,19 @@ impl<'de> Deserialize<'de> for RawSweep {
             SweepNode::Table(entries) => {
                 let mut axes = Vec::new();
                 flatten("", entries, &mut axes);
-                axes.sort_by_key(|a| a.span.start);
-                Ok(RawSweep { axes })
+                // Stable: an empty list (no span) keeps its place after the list before it.
+                let mut last = 0;
+                let mut keyed: Vec<(usize, RawAxis)> = axes
+                    .into_iter()
+                    .map(|a| {
+                        last = a.span.as_ref().map_or(last, |s| s.start);
+                        (last, a)
+                    })
+                    .collect();
+                keyed.sort_by_key(|(at, _)| *at);
+                Ok(RawSweep {
+                    axes: keyed.into_iter().map(|(_, a)| a).collect(),
+                })
             }
             SweepNode::List(_) => Err(de::Error::custom(
                 "expected a table of fields, each with a list of alternative values",
@@ -639,8 +654,8 @@ mod tests {
         let principal = raw.loan.principal.unwrap();
         assert_eq!(principal.value.value, 100.0);
         assert_eq!(principal.value.text(), "100");
-        assert_eq!(principal.origin, Origin::File(66..69));
-        assert_eq!(&MINIMAL[66..69], "100");
+        let at = MINIMAL.find("100").unwrap();
+        assert_eq!(principal.origin, Origin::File(at..at + 3));
         assert_eq!(float_text(2.0), "2.0");
         assert_eq!(float_text(f64::NAN), "nan");
         assert_eq!(float_text(f64::NEG_INFINITY), "-inf");

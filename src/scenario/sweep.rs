@@ -60,6 +60,16 @@ fn label(v: &toml::Value) -> String {
     }
 }
 
+/// The line of an empty list `KEY = []` (an empty list has no element to take a span from).
+fn empty_list_line(text: &str, path: &str) -> Option<usize> {
+    let last = path.rsplit('.').next().unwrap_or(path);
+    text.lines().position(|l| {
+        let compact: String = l.chars().filter(|c| !c.is_whitespace()).collect();
+        compact.contains(&format!("{last}=[]")) || compact.contains(&format!("{last}\"=[]"))
+    })
+    .map(|i| i + 1)
+}
+
 fn is_name(s: &str) -> bool {
     !s.is_empty() && s.bytes().all(|b| b.is_ascii_alphanumeric() || b == b'_' || b == b'-')
 }
@@ -89,7 +99,10 @@ pub fn resolve(ck: &Checker, raw: &RawScenario) -> Result<Vec<Axis>> {
     let mut keys: HashMap<String, String> = HashMap::new();
     for RawAxis { path, values, span } in &raw.sweep.axes {
         let field_name = format!("sweep.{path}");
-        let line = Some(line_of(ck.text, span.start));
+        let line = match span {
+            Some(s) => Some(line_of(ck.text, s.start)),
+            None => empty_list_line(ck.text, path),
+        };
         let refuse = |message: String| ck.syntax(&field_name, line, message);
         let segments: Vec<&str> = path.split('.').collect();
         let (pattern, shown, shock) = match segments.as_slice() {
@@ -169,7 +182,13 @@ pub fn resolve(ck: &Checker, raw: &RawScenario) -> Result<Vec<Axis>> {
             return Err(refuse(format!("`{path}` sweeps the same field as `{earlier}`, listed earlier")));
         }
         if values.is_empty() {
-            return Err(ck.invalid(&field_name, Some(&Origin::File(span.clone())), "[]", "a non-empty list of alternative values"));
+            return Err(ScenarioError::Invalid {
+                file: ck.file.to_owned(),
+                line,
+                field: field_name,
+                value: "[]".into(),
+                allowed: "a non-empty list of alternative values".into(),
+            });
         }
         let swept_name = |j: usize| format!("sweep.{shown}[{j}]");
         let mut labelled = Vec::with_capacity(values.len());
@@ -208,7 +227,7 @@ pub fn resolve(ck: &Checker, raw: &RawScenario) -> Result<Vec<Axis>> {
     let arms = axes.iter().fold(1u128, |n, a| n.saturating_mul(a.values.len() as u128));
     if arms > limits::MAX_ARMS as u128 {
         let lengths: Vec<String> = axes.iter().map(|a| a.values.len().to_string()).collect();
-        let first = raw.sweep.axes.first().map(|a| Origin::File(a.span.clone()));
+        let first = raw.sweep.axes.iter().find_map(|a| a.span.clone().map(Origin::File));
         return Err(ck.invalid(
             "sweep",
             first.as_ref(),

@@ -211,8 +211,28 @@ impl Checker<'_> {
         }
     }
 
+    /// A required field that is missing: named by its full path, at the line of the table that
+    /// lacks it when that table is written (`[loan]`, or the shock's own `[[shock]]`).
     fn missing(&self, field: &str, expected: &str) -> ScenarioError {
-        self.syntax(field, None, format!("this required field is missing ({expected})"))
+        let header = match field.strip_prefix("shock[") {
+            Some(rest) => {
+                let i: usize = rest.split(']').next().and_then(|n| n.parse().ok()).unwrap_or(0);
+                self.text
+                    .lines()
+                    .enumerate()
+                    .filter(|(_, l)| l.trim_start().starts_with("[[shock]]"))
+                    .nth(i)
+            }
+            None => field.split_once('.').and_then(|(table, _)| {
+                let header = format!("[{table}]");
+                self.text.lines().enumerate().find(|(_, l)| l.trim_start().starts_with(&header))
+            }),
+        };
+        let (line, lacks) = match header {
+            Some((n, l)) => (Some(n + 1), format!(" from {}", l.trim())),
+            None => (None, String::new()),
+        };
+        self.syntax(field, line, format!("this required field is missing{lacks} ({expected})"))
     }
 
     /// An integer field checked against its line of the bounds table (with `max` tightened when the
