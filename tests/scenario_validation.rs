@@ -493,6 +493,9 @@ fn loan_pool_and_severity_fields_can_be_swept() {
     assert_eq!(arm.shocks()[0].severity().fixed_value(), Some(0.5));
     assert_eq!(arm.shocks()[0].portfolio_correlation(), 0.3);
     assert_eq!(s.arms()[0].interest_rate(), 0.0);
+    // The closed forms read one model for all arms: a sweep outside [policy] is out of their class.
+    let reason = loancycle::analytic::one_factor::class_check(&s).unwrap_err().reason;
+    assert!(reason.contains("the sweep varies loan.interest_rate"), "{reason}");
 }
 
 #[test]

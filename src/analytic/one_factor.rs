@@ -101,6 +101,11 @@ impl OneFactorModel {
 /// fixed risk, exactly one shock, of member scope, with fixed severity and no stress window; any
 /// correlations, curve, liability and peer cover.
 pub fn class_check(scenario: &Scenario) -> Result<OneFactorModel, OutOfClass> {
+    if let Some(path) = scenario.model_swept() {
+        return Err(OutOfClass::new(format!(
+            "the sweep varies {path}; exact values are computed for sweeps of [policy] fields only"
+        )));
+    }
     let income = scenario.income.fixed_value().ok_or_else(|| {
         OutOfClass::new(format!(
             "borrowers.income is a {} distribution, not fixed",

@@ -41,6 +41,8 @@ impl ShockProbability {
 }
 
 /// A stress window: cycles `from..=to` (counted from 1, warm-up included) use `probability` instead.
+///
+/// Callers should read through the methods: the fields become private once every caller does.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct StressWindow {
     /// First cycle of the window (>= 1).
@@ -52,6 +54,8 @@ pub struct StressWindow {
 }
 
 /// One validated shock.
+///
+/// Callers should read through the methods: the fields become private once every caller does.
 #[derive(Debug, Clone, Serialize)]
 pub struct Shock {
     /// Unique name.
@@ -153,6 +157,8 @@ pub enum Matching {
 }
 
 /// One lending policy (an arm of the experiment).
+///
+/// Callers should read through the methods: the fields become private once every caller does.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Policy {
     /// Members per group, k >= 1.
@@ -355,6 +361,11 @@ impl Scenario {
     /// Swept paths in order, one per column writers add (`group_size`, `shock.illness.reach`, ...).
     pub fn swept_paths(&self) -> &[String] {
         &self.swept_fields
+    }
+    /// The first swept path outside `[policy]` (a loan, borrower, pool or shock field), if any: code
+    /// that still reads the scenario-level model fields must not assume they hold in every arm then.
+    pub fn model_swept(&self) -> Option<&str> {
+        self.swept_fields.iter().map(String::as_str).find(|p| p.contains('.'))
     }
     /// The arms, in sweep order.
     pub fn arms(&self) -> &[Arm] {
