@@ -579,3 +579,84 @@ fn a_correlation_sweep_gives_paired_arms() {
     assert_eq!(shortfalls(&a), shortfalls(&b));
     assert_ne!(shortfalls(&a), shortfalls(&c), "the correlation should matter");
 }
+
+#[test]
+fn minimal_text_gets_every_default_in_its_single_arm() {
+    let s = parse(MINIMAL).unwrap();
+    assert_eq!((s.seed(), s.replications(), s.cycles(), s.warmup_cycles()), (0, 10, 4, 0));
+    assert_eq!((s.borrowers(), s.villages(), s.name()), (20, 1, ""));
+    assert!(s.swept_paths().is_empty() && s.warnings().is_empty());
+    let arm = &s.arms()[0];
+    assert_eq!((arm.label(), arm.swept().len()), ("base", 0));
+    assert_eq!((arm.principal(), arm.interest_rate(), arm.recovery_rate()), (100.0, 0.0, 0.0));
+    assert_eq!((arm.income().fixed_value(), arm.risk().fixed_value()), (Some(1.0), Some(1.0)));
+    assert_eq!((arm.dropout(), arm.replace_departures(), arm.shocks().len()), (0.0, true, 0));
+    assert_eq!(arm.policy(), &loancycle::scenario::Policy::default_policy());
+}
+
+#[test]
+fn scope_specific_fields_are_refused_elsewhere() {
+    let (field, _, allowed, _) = invalid(&member_shock("reach = 0.5"));
+    assert_eq!(field, "shock[0].reach");
+    assert!(allowed.starts_with('1'), "{allowed}");
+    let text = format!("{MINIMAL}[[shock]]\nname = \"flood\"\nscope = \"village\"\nprobability = 0.1\n[sweep]\nshock.flood.village_correlation = [0, 0.2]\n");
+    let (field, value, allowed, line) = invalid(&text);
+    assert_eq!((field.as_str(), value.as_str(), line), ("sweep.shock.flood.village_correlation[1]", "0.2", Some(12)));
+    assert!(allowed.contains("member-scope shocks only"), "{allowed}");
+}
+
+#[test]
+fn stress_windows_are_sorted_and_checked() {
+    let s = parse(&member_shock(
+        "stress = [ { from = 3, to = 4, probability = 0.5 }, { from = 1, to = 2, probability = 0.3 } ]",
+    ))
+    .unwrap();
+    let froms: Vec<u32> = s.arms()[0].shocks()[0].stress().iter().map(|w| w.from()).collect();
+    assert_eq!(froms, [1, 3]);
+    assert_eq!(s.arms()[0].shocks()[0].probability_in_cycle(2, 5), 0.3);
+    let (field, value, allowed, _) =
+        invalid(&member_shock("stress = [ { from = 2, to = 5, probability = 0.5 } ]"));
+    assert_eq!((field.as_str(), value.as_str()), ("shock[0].stress[0].to", "5"));
+    assert!(allowed.contains("<= 4"), "{allowed}");
+}
+
+#[test]
+fn curves_are_checked_against_each_arm() {
+    let curve = |c: &str| member_shock("").replace("probability = 0.05", &format!("probability = {c}"));
+    let s = parse(&curve("{ curve = \"power\", p = 1 }")).unwrap();
+    assert_eq!(s.arms()[0].shocks()[0].probability().at(4), 0.25);
+    let text = curve("{ curve = \"power_plus_log\", p = 0.5 }") + "[sweep]\ngroup_size = [2, 1]\n";
+    let (field, value, allowed, line) = invalid(&text);
+    assert_eq!((field.as_str(), value.as_str(), line), ("sweep.group_size[1]", "1", Some(13)));
+    assert_eq!(
+        allowed,
+        "a group size in the domain of shock[0].probability (power_plus_log curve: group sizes >= 2)"
+    );
+    let table = curve("{ curve = \"table\", values = { \"2\" = 0.08, \"3\" = 0.06 } }");
+    let (field, value, _, line) = invalid(&table);
+    assert_eq!((field.as_str(), value.as_str(), line), ("policy.group_size", "5 (the default)", None));
+    assert!(parse(&(table + "[policy]\ngroup_size = 3\n")).is_ok());
+    let (field, value, _, _) = invalid(&curve("{ curve = \"power\", p = 0 }"));
+    assert_eq!((field.as_str(), value.as_str()), ("shock[0].probability.p", "0"));
+}
+
+#[test]
+fn sweep_size_is_checked_before_arms_are_built() {
+    let list = (1..=5001).map(|i| (i as f64 / 5001.0).to_string()).collect::<Vec<_>>().join(", ");
+    let text = format!("{MINIMAL}[sweep]\npeer_cover = [{list}]\nliability = [\"joint\", \"individual\"]\n");
+    let (field, value, allowed, _) = invalid(&text);
+    assert_eq!(field, "sweep");
+    assert!(value.starts_with("10002 arms"), "{value}");
+    assert!(allowed.contains("at most 10000 arms"), "{allowed}");
+}
+
+#[test]
+fn too_many_shocks_are_refused() {
+    let mut text = MINIMAL.to_owned();
+    for i in 0..=255 {
+        text.push_str(&format!("[[shock]]\nname = \"s{i}\"\nscope = \"portfolio\"\nprobability = 0.01\n"));
+    }
+    let (field, _, allowed, _) = invalid(&text);
+    assert_eq!(field, "shock");
+    assert!(allowed.contains("at most 255 shocks"), "{allowed}");
+}
