@@ -216,9 +216,12 @@ fn assert_names_expected_error(line: &str, file: &Path) {
         file.display()
     );
     assert!(line.starts_with(&format!("error: {}: ", file.display())), "{line}");
-    if let (Some(field), Some(value), Some(allowed), Some(n)) =
-        (wanted.get("field"), wanted.get("value"), wanted.get("allowed"), wanted.get("line"))
-    {
+    if let (Some(field), Some(value), Some(allowed), Some(n)) = (
+        wanted.get("field"),
+        wanted.get("value"),
+        wanted.get("allowed"),
+        wanted.get("line"),
+    ) {
         let head = format!(": line {n}, field {field}: {value} is not allowed: ");
         assert!(line.contains(&head), "{line:?} lacks {head:?}");
         let rest = &line[line.find(&head).expect("found above") + head.len()..];
@@ -400,7 +403,11 @@ fn check_lists_the_arms_of_every_demo_scenario() {
         let out = loancycle([OsStr::new("check"), rel.as_os_str()]).ok();
         // Only warnings (arms resolving to the same model), each naming the file.
         let warning = format!("warning: {}: ", rel.display());
-        assert!(out.stderr.lines().all(|l| l.starts_with(&warning)), "{}", out.describe());
+        assert!(
+            out.stderr.lines().all(|l| l.starts_with(&warning)),
+            "{}",
+            out.describe()
+        );
         assert!(
             out.stdout.starts_with(&format!("{}: valid scenario", rel.display())),
             "{}",
@@ -722,6 +729,9 @@ fn an_oversized_replication_override_is_refused_before_simulating() {
     ])
     .refused();
     let line = out.one_error_line();
-    assert!(line.contains("option --replications: 4000000000 is not allowed"), "{line}");
+    assert!(
+        line.contains("option --replications: 4000000000 is not allowed"),
+        "{line}"
+    );
     assert!(!out_dir.exists());
 }

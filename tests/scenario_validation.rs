@@ -77,8 +77,15 @@ fn every_bad_fixture_is_refused_with_its_expected_message() {
                 line,
                 ..
             } => {
-                assert_eq!(line.map(|l| l.to_string()).as_deref(), Some(expected(&wanted, "line", &file)), "{message}");
-                assert!(message.contains(&format!(": line {}, field {field}: ", expected(&wanted, "line", &file))), "{message}");
+                assert_eq!(
+                    line.map(|l| l.to_string()).as_deref(),
+                    Some(expected(&wanted, "line", &file)),
+                    "{message}"
+                );
+                assert!(
+                    message.contains(&format!(": line {}, field {field}: ", expected(&wanted, "line", &file))),
+                    "{message}"
+                );
                 assert_eq!(field, expected(&wanted, "field", &file), "{message}");
                 assert_eq!(value, expected(&wanted, "value", &file), "{message}");
                 assert!(allowed.contains(expected(&wanted, "allowed", &file)), "{message}");
@@ -89,7 +96,11 @@ fn every_bad_fixture_is_refused_with_its_expected_message() {
                 ..
             } => {
                 assert!(location.contains(expected(&wanted, "location", &file)), "{message}");
-                assert!(location.starts_with("line "), "{}: no line in {message}", file.display());
+                assert!(
+                    location.starts_with("line "),
+                    "{}: no line in {message}",
+                    file.display()
+                );
                 assert!(text.contains(expected(&wanted, "message", &file)), "{message}");
             }
             ScenarioError::Unreadable { .. } => panic!("{message}"),
@@ -343,15 +354,28 @@ fn labels(s: &Scenario) -> Vec<&str> {
 
 #[test]
 fn values_are_quoted_as_written_at_their_line() {
-    let (field, value, _, line) = invalid(&MINIMAL.replace("principal = 100", "principal = 1e308\ninterest_rate = 1e10"));
-    assert_eq!((field.as_str(), value.as_str(), line), ("loan.interest_rate", "1e10", Some(7)));
+    let (field, value, _, line) =
+        invalid(&MINIMAL.replace("principal = 100", "principal = 1e308\ninterest_rate = 1e10"));
+    assert_eq!(
+        (field.as_str(), value.as_str(), line),
+        ("loan.interest_rate", "1e10", Some(7))
+    );
     let (field, value, _, line) = invalid(&MINIMAL.replace("principal = 100", "principal = -0.50"));
-    assert_eq!((field.as_str(), value.as_str(), line), ("loan.principal", "-0.50", Some(6)));
+    assert_eq!(
+        (field.as_str(), value.as_str(), line),
+        ("loan.principal", "-0.50", Some(6))
+    );
     let (field, value, _, _) = invalid(&member_shock("village_correlation = nan"));
-    assert_eq!((field.as_str(), value.as_str()), ("shock[0].village_correlation", "nan"));
+    assert_eq!(
+        (field.as_str(), value.as_str()),
+        ("shock[0].village_correlation", "nan")
+    );
     let (field, value, _, _) = invalid(&format!("seed = -1\n{MINIMAL}"));
     assert_eq!((field.as_str(), value.as_str()), ("seed", "-1"));
-    assert_eq!(parse(&format!("seed = {}\n{MINIMAL}", i64::MAX)).unwrap().seed(), i64::MAX as u64);
+    assert_eq!(
+        parse(&format!("seed = {}\n{MINIMAL}", i64::MAX)).unwrap().seed(),
+        i64::MAX as u64
+    );
 }
 
 #[test]
@@ -359,17 +383,32 @@ fn an_error_between_fields_names_the_later_line() {
     // portfolio_correlation is written first, village_correlation later: the later one is named.
     let text = member_shock("portfolio_correlation = 0.5\nvillage_correlation = 0.6");
     let (field, value, allowed, line) = invalid(&text);
-    assert_eq!((field.as_str(), value.as_str(), line), ("shock[0].village_correlation", "0.6", Some(12)));
-    assert_eq!(allowed, "village_correlation + portfolio_correlation < 1 (here 0.6 + 0.5)");
+    assert_eq!(
+        (field.as_str(), value.as_str(), line),
+        ("shock[0].village_correlation", "0.6", Some(12))
+    );
+    assert_eq!(
+        allowed,
+        "village_correlation + portfolio_correlation < 1 (here 0.6 + 0.5)"
+    );
 }
 
 #[test]
 fn missing_fields_are_named_by_path_at_their_table() {
     for (text, location) in [
         (MINIMAL.replace("replications = 10\n", ""), "field replications: "),
-        (MINIMAL.replace("borrowers = 20\n", ""), "line 3, field portfolio.borrowers: "),
-        (MINIMAL.replace("principal = 100\n", ""), "line 5, field loan.principal: "),
-        (member_shock("").replace("scope = \"member\"\n", ""), "line 7, field shock[0].scope: "),
+        (
+            MINIMAL.replace("borrowers = 20\n", ""),
+            "line 3, field portfolio.borrowers: ",
+        ),
+        (
+            MINIMAL.replace("principal = 100\n", ""),
+            "line 5, field loan.principal: ",
+        ),
+        (
+            member_shock("").replace("scope = \"member\"\n", ""),
+            "line 7, field shock[0].scope: ",
+        ),
     ] {
         let (loc, message) = syntax(&text);
         assert_eq!(loc, location);
@@ -379,10 +418,16 @@ fn missing_fields_are_named_by_path_at_their_table() {
 
 #[test]
 fn exclusion_cannot_exceed_the_run() {
-    let text = format!("{}[policy]\nexclusion_cycles = 7\n", MINIMAL.replace("cycles = 4\n", "cycles = 4\nwarmup_cycles = 2\n"));
+    let text = format!(
+        "{}[policy]\nexclusion_cycles = 7\n",
+        MINIMAL.replace("cycles = 4\n", "cycles = 4\nwarmup_cycles = 2\n")
+    );
     let (field, value, allowed, _) = invalid(&text);
     assert_eq!((field.as_str(), value.as_str()), ("policy.exclusion_cycles", "7"));
-    assert!(allowed.contains("cannot usefully exceed the run's 6 cycles"), "{allowed}");
+    assert!(
+        allowed.contains("cannot usefully exceed the run's 6 cycles"),
+        "{allowed}"
+    );
     let ok = parse(&text.replace("exclusion_cycles = 7", "exclusion_cycles = 6")).unwrap();
     assert_eq!(ok.arms()[0].policy().exclusion_cycles(), Exclusion::Cycles(6));
 }
@@ -397,11 +442,18 @@ fn overrides_are_validated_and_named_by_their_flag() {
     let err = Scenario::from_toml_str_with(MINIMAL, "case.toml", &big).unwrap_err();
     match &err {
         ScenarioError::Invalid { field, value, line, .. } => {
-            assert_eq!((field.as_str(), value.as_str(), *line), ("--replications", "4000000000", None));
+            assert_eq!(
+                (field.as_str(), value.as_str(), *line),
+                ("--replications", "4000000000", None)
+            );
         }
         other => panic!("unexpected {other}"),
     }
-    assert!(err.to_string().starts_with("case.toml: option --replications: 4000000000 is not allowed: at most"), "{err}");
+    assert!(
+        err.to_string()
+            .starts_with("case.toml: option --replications: 4000000000 is not allowed: at most"),
+        "{err}"
+    );
     let seeded = Overrides {
         replications: Some(3),
         seed: Some(99),
@@ -438,20 +490,38 @@ fn sweep_builds_the_product_with_the_last_key_fastest() {
         .iter()
         .map(|v| (v.path.as_str(), v.value.as_str(), v.written.as_str()))
         .collect();
-    assert_eq!(swept, [("exclusion_cycles", "permanent", "\"permanent\""), ("group_size", "2", "2")]);
+    assert_eq!(
+        swept,
+        [
+            ("exclusion_cycles", "permanent", "\"permanent\""),
+            ("group_size", "2", "2")
+        ]
+    );
 }
 
 #[test]
 fn quoted_and_dotted_keys_mean_the_same() {
     let shock = member_shock("");
-    let dotted = parse(&format!("{shock}[sweep]\nshock.illness.village_correlation = [0.1, 0.2]\n")).unwrap();
-    let quoted = parse(&format!("{shock}[sweep]\n\"shock.illness.village_correlation\" = [0.1, 0.2]\n")).unwrap();
-    let header = parse(&format!("{shock}[sweep.shock.illness]\nvillage_correlation = [0.1, 0.2]\n")).unwrap();
+    let dotted = parse(&format!(
+        "{shock}[sweep]\nshock.illness.village_correlation = [0.1, 0.2]\n"
+    ))
+    .unwrap();
+    let quoted = parse(&format!(
+        "{shock}[sweep]\n\"shock.illness.village_correlation\" = [0.1, 0.2]\n"
+    ))
+    .unwrap();
+    let header = parse(&format!(
+        "{shock}[sweep.shock.illness]\nvillage_correlation = [0.1, 0.2]\n"
+    ))
+    .unwrap();
     for s in [&dotted, &quoted, &header] {
         assert_eq!(s.swept_paths(), ["shock.illness.village_correlation"]);
         assert_eq!(
             labels(s),
-            ["shock.illness.village_correlation=0.1", "shock.illness.village_correlation=0.2"]
+            [
+                "shock.illness.village_correlation=0.1",
+                "shock.illness.village_correlation=0.2"
+            ]
         );
         assert_eq!(s.arms()[1].shocks()[0].village_correlation(), 0.2);
     }
@@ -467,7 +537,12 @@ fn arms_follow_the_lines_of_the_keys() {
     let s = parse(&text).unwrap();
     assert_eq!(
         s.swept_paths(),
-        ["group_size", "shock.flood.reach", "peer_cover", "shock.illness.probability"]
+        [
+            "group_size",
+            "shock.flood.reach",
+            "peer_cover",
+            "shock.illness.probability"
+        ]
     );
     assert_eq!(s.arms().len(), 16);
     assert_eq!(
@@ -488,7 +563,10 @@ fn loan_pool_and_severity_fields_can_be_swept() {
     );
     let s = parse(&text).unwrap();
     let arm = &s.arms()[1];
-    assert_eq!((arm.interest_rate(), arm.recovery_rate(), arm.dropout()), (0.2, 0.5, 0.1));
+    assert_eq!(
+        (arm.interest_rate(), arm.recovery_rate(), arm.dropout()),
+        (0.2, 0.5, 0.1)
+    );
     assert_eq!(arm.amount_due(), 120.0);
     assert_eq!(arm.shocks()[0].severity().fixed_value(), Some(0.5));
     assert_eq!(arm.shocks()[0].portfolio_correlation(), 0.3);
@@ -500,7 +578,14 @@ fn loan_pool_and_severity_fields_can_be_swept() {
 
 #[test]
 fn the_run_size_and_draws_cannot_be_swept() {
-    for key in ["replications", "cycles", "warmup_cycles", "portfolio.borrowers", "portfolio.villages", "seed"] {
+    for key in [
+        "replications",
+        "cycles",
+        "warmup_cycles",
+        "portfolio.borrowers",
+        "portfolio.villages",
+        "seed",
+    ] {
         let (location, message) = syntax(&format!("{MINIMAL}[sweep]\n\"{key}\" = [1, 2]\n"));
         assert_eq!(location, format!("line 8, field sweep.{key}: "));
         assert!(message.contains(&format!("`{key}` cannot be swept")), "{message}");
@@ -515,7 +600,8 @@ fn shock_paths_need_a_unique_plain_name() {
     let text = format!("{}[sweep]\nshock.flood.reach = [1]\n", member_shock(""));
     let (_, message) = syntax(&text);
     assert!(message.contains("no shock is named `flood`"), "{message}");
-    let spaced = member_shock("").replace("\"illness\"", "\"bad name\"") + "[sweep]\n\"shock.bad name.probability\" = [0.1]\n";
+    let spaced =
+        member_shock("").replace("\"illness\"", "\"bad name\"") + "[sweep]\n\"shock.bad name.probability\" = [0.1]\n";
     let (_, message) = syntax(&spaced);
     assert!(message.contains("letters, digits, _ and -"), "{message}");
 }
@@ -523,14 +609,23 @@ fn shock_paths_need_a_unique_plain_name() {
 #[test]
 fn swept_values_are_checked_as_if_written_in_place() {
     let shock = member_shock("");
-    let (field, value, allowed, line) =
-        invalid(&format!("{shock}[sweep]\nshock.illness.village_correlation = [0, 0.2, 1.5]\n"));
+    let (field, value, allowed, line) = invalid(&format!(
+        "{shock}[sweep]\nshock.illness.village_correlation = [0, 0.2, 1.5]\n"
+    ));
     assert_eq!(
         (field.as_str(), value.as_str(), allowed.as_str(), line),
-        ("sweep.shock.illness.village_correlation[2]", "1.5", "village_correlation + portfolio_correlation < 1 (here 1.5 + 0)", Some(13))
+        (
+            "sweep.shock.illness.village_correlation[2]",
+            "1.5",
+            "village_correlation + portfolio_correlation < 1 (here 1.5 + 0)",
+            Some(13)
+        )
     );
     let (field, value, allowed, _) = invalid(&format!("{shock}[sweep]\nshock.illness.probability = [0.1, 1.01]\n"));
-    assert_eq!((field.as_str(), value.as_str(), allowed.as_str()), ("sweep.shock.illness.probability[1]", "1.01", "a probability in [0, 1]"));
+    assert_eq!(
+        (field.as_str(), value.as_str(), allowed.as_str()),
+        ("sweep.shock.illness.probability[1]", "1.01", "a probability in [0, 1]")
+    );
     let (field, _, _, _) = invalid(&format!("{MINIMAL}[sweep]\ngroup_size = [2, 3, 2]\n"));
     assert_eq!(field, "sweep.group_size[2]");
     let (field, value, _, _) = invalid(&format!("{MINIMAL}[sweep]\npool.dropout = [0.5, 1]\n"));
@@ -542,7 +637,10 @@ fn swept_values_are_checked_as_if_written_in_place() {
 
 #[test]
 fn arms_of_the_same_model_are_warned_about_and_still_run() {
-    let s = parse(&format!("{MINIMAL}[sweep]\nexclusion_scope = [\"group\", \"defaulters\"]\n")).unwrap();
+    let s = parse(&format!(
+        "{MINIMAL}[sweep]\nexclusion_scope = [\"group\", \"defaulters\"]\n"
+    ))
+    .unwrap();
     assert_eq!(s.arms().len(), 2);
     assert_eq!(s.warnings().len(), 1);
     let w = &s.warnings()[0];
@@ -561,7 +659,10 @@ fn arms_of_the_same_model_are_warned_about_and_still_run() {
 #[test]
 fn a_correlation_sweep_gives_paired_arms() {
     let base = "seed = 11\nreplications = 2\ncycles = 6\n[portfolio]\nborrowers = 400\nvillages = 8\n[loan]\nprincipal = 100\n[borrowers]\nincome = 1.3\n[[shock]]\nname = \"harvest\"\nscope = \"member\"\nprobability = 0.2\nseverity = 0.8\n";
-    let swept = parse(&format!("{base}[sweep]\nshock.harvest.village_correlation = [0.3, 0.300000000001, 0.6]\n")).unwrap();
+    let swept = parse(&format!(
+        "{base}[sweep]\nshock.harvest.village_correlation = [0.3, 0.300000000001, 0.6]\n"
+    ))
+    .unwrap();
     for (arm, rho) in [(0, "0.3"), (2, "0.6")] {
         let written = parse(&format!("{base}village_correlation = {rho}\n")).unwrap();
         for r in 0..2 {
@@ -583,14 +684,26 @@ fn a_correlation_sweep_gives_paired_arms() {
 #[test]
 fn minimal_text_gets_every_default_in_its_single_arm() {
     let s = parse(MINIMAL).unwrap();
-    assert_eq!((s.seed(), s.replications(), s.cycles(), s.warmup_cycles()), (0, 10, 4, 0));
+    assert_eq!(
+        (s.seed(), s.replications(), s.cycles(), s.warmup_cycles()),
+        (0, 10, 4, 0)
+    );
     assert_eq!((s.borrowers(), s.villages(), s.name()), (20, 1, ""));
     assert!(s.swept_paths().is_empty() && s.warnings().is_empty());
     let arm = &s.arms()[0];
     assert_eq!((arm.label(), arm.swept().len()), ("base", 0));
-    assert_eq!((arm.principal(), arm.interest_rate(), arm.recovery_rate()), (100.0, 0.0, 0.0));
-    assert_eq!((arm.income().fixed_value(), arm.risk().fixed_value()), (Some(1.0), Some(1.0)));
-    assert_eq!((arm.dropout(), arm.replace_departures(), arm.shocks().len()), (0.0, true, 0));
+    assert_eq!(
+        (arm.principal(), arm.interest_rate(), arm.recovery_rate()),
+        (100.0, 0.0, 0.0)
+    );
+    assert_eq!(
+        (arm.income().fixed_value(), arm.risk().fixed_value()),
+        (Some(1.0), Some(1.0))
+    );
+    assert_eq!(
+        (arm.dropout(), arm.replace_departures(), arm.shocks().len()),
+        (0.0, true, 0)
+    );
     assert_eq!(arm.policy(), &loancycle::scenario::Policy::default_policy());
 }
 
@@ -599,9 +712,14 @@ fn scope_specific_fields_are_refused_elsewhere() {
     let (field, _, allowed, _) = invalid(&member_shock("reach = 0.5"));
     assert_eq!(field, "shock[0].reach");
     assert!(allowed.starts_with('1'), "{allowed}");
-    let text = format!("{MINIMAL}[[shock]]\nname = \"flood\"\nscope = \"village\"\nprobability = 0.1\n[sweep]\nshock.flood.village_correlation = [0, 0.2]\n");
+    let text = format!(
+        "{MINIMAL}[[shock]]\nname = \"flood\"\nscope = \"village\"\nprobability = 0.1\n[sweep]\nshock.flood.village_correlation = [0, 0.2]\n"
+    );
     let (field, value, allowed, line) = invalid(&text);
-    assert_eq!((field.as_str(), value.as_str(), line), ("sweep.shock.flood.village_correlation[1]", "0.2", Some(12)));
+    assert_eq!(
+        (field.as_str(), value.as_str(), line),
+        ("sweep.shock.flood.village_correlation[1]", "0.2", Some(12))
+    );
     assert!(allowed.contains("member-scope shocks only"), "{allowed}");
 }
 
@@ -614,8 +732,7 @@ fn stress_windows_are_sorted_and_checked() {
     let froms: Vec<u32> = s.arms()[0].shocks()[0].stress().iter().map(|w| w.from()).collect();
     assert_eq!(froms, [1, 3]);
     assert_eq!(s.arms()[0].shocks()[0].probability_in_cycle(2, 5), 0.3);
-    let (field, value, allowed, _) =
-        invalid(&member_shock("stress = [ { from = 2, to = 5, probability = 0.5 } ]"));
+    let (field, value, allowed, _) = invalid(&member_shock("stress = [ { from = 2, to = 5, probability = 0.5 } ]"));
     assert_eq!((field.as_str(), value.as_str()), ("shock[0].stress[0].to", "5"));
     assert!(allowed.contains("<= 4"), "{allowed}");
 }
@@ -627,14 +744,20 @@ fn curves_are_checked_against_each_arm() {
     assert_eq!(s.arms()[0].shocks()[0].probability().at(4), 0.25);
     let text = curve("{ curve = \"power_plus_log\", p = 0.5 }") + "[sweep]\ngroup_size = [2, 1]\n";
     let (field, value, allowed, line) = invalid(&text);
-    assert_eq!((field.as_str(), value.as_str(), line), ("sweep.group_size[1]", "1", Some(13)));
+    assert_eq!(
+        (field.as_str(), value.as_str(), line),
+        ("sweep.group_size[1]", "1", Some(13))
+    );
     assert_eq!(
         allowed,
         "a group size in the domain of shock[0].probability (power_plus_log curve: group sizes >= 2)"
     );
     let table = curve("{ curve = \"table\", values = { \"2\" = 0.08, \"3\" = 0.06 } }");
     let (field, value, _, line) = invalid(&table);
-    assert_eq!((field.as_str(), value.as_str(), line), ("policy.group_size", "5 (the default)", None));
+    assert_eq!(
+        (field.as_str(), value.as_str(), line),
+        ("policy.group_size", "5 (the default)", None)
+    );
     assert!(parse(&(table + "[policy]\ngroup_size = 3\n")).is_ok());
     let (field, value, _, _) = invalid(&curve("{ curve = \"power\", p = 0 }"));
     assert_eq!((field.as_str(), value.as_str()), ("shock[0].probability.p", "0"));
@@ -642,7 +765,10 @@ fn curves_are_checked_against_each_arm() {
 
 #[test]
 fn sweep_size_is_checked_before_arms_are_built() {
-    let list = (1..=5001).map(|i| (i as f64 / 5001.0).to_string()).collect::<Vec<_>>().join(", ");
+    let list = (1..=5001)
+        .map(|i| (i as f64 / 5001.0).to_string())
+        .collect::<Vec<_>>()
+        .join(", ");
     let text = format!("{MINIMAL}[sweep]\npeer_cover = [{list}]\nliability = [\"joint\", \"individual\"]\n");
     let (field, value, allowed, _) = invalid(&text);
     assert_eq!(field, "sweep");
@@ -654,7 +780,9 @@ fn sweep_size_is_checked_before_arms_are_built() {
 fn too_many_shocks_are_refused() {
     let mut text = MINIMAL.to_owned();
     for i in 0..=255 {
-        text.push_str(&format!("[[shock]]\nname = \"s{i}\"\nscope = \"portfolio\"\nprobability = 0.01\n"));
+        text.push_str(&format!(
+            "[[shock]]\nname = \"s{i}\"\nscope = \"portfolio\"\nprobability = 0.01\n"
+        ));
     }
     let (field, _, allowed, _) = invalid(&text);
     assert_eq!(field, "shock");

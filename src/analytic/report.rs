@@ -191,7 +191,9 @@ pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
 
 fn hit_share_section(scenario: &Scenario) -> Result<HitShareSection, String> {
     if let Some(path) = scenario.model_swept() {
-        return Err(format!("the sweep varies {path}; the law is computed for sweeps of [policy] fields only"));
+        return Err(format!(
+            "the sweep varies {path}; the law is computed for sweeps of [policy] fields only"
+        ));
     }
     let (index, shock) = scenario
         .shocks

@@ -102,6 +102,7 @@ fn put<T: DeserializeOwned>(slot: &mut Option<W<T>>, v: W<toml::Value>) -> Resul
 }
 
 /// Every scalar field of a scenario file. To add a field: one line here (and see DEVELOPERS.md).
+#[rustfmt::skip]
 pub const FIELDS: &[Field] = &[
     line("seed", Bound::Seed, None),
     line("replications", Bound::Count(1, u32::MAX), None),

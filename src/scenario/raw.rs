@@ -451,7 +451,11 @@ impl<'de> Deserialize<'de> for RawSweep {
     fn deserialize<D: de::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
         fn flatten(prefix: &str, entries: Vec<(String, SweepNode)>, out: &mut Vec<RawAxis>) {
             for (key, node) in entries {
-                let path = if prefix.is_empty() { key } else { format!("{prefix}.{key}") };
+                let path = if prefix.is_empty() {
+                    key
+                } else {
+                    format!("{prefix}.{key}")
+                };
                 match node {
                     SweepNode::Table(inner) => flatten(&path, inner, out),
                     SweepNode::List(values) => {
@@ -693,7 +697,10 @@ mod tests {
         assert!(message.contains("unknown field `groupsize`"), "{message}");
         let (location, message) = syntax(&format!("{MINIMAL}[policy]\nliability = \"shared\"\n"));
         assert_eq!(location, "line 8, field policy.liability: ");
-        assert!(message.contains("unknown variant `shared`, expected `joint` or `individual`"), "{message}");
+        assert!(
+            message.contains("unknown variant `shared`, expected `joint` or `individual`"),
+            "{message}"
+        );
     }
 
     #[test]
@@ -703,7 +710,9 @@ mod tests {
         ));
         assert_eq!(location, "line 8, field borrowers.income: ");
         assert!(message.contains("unknown field `mean`"), "{message}");
-        let (_, message) = syntax(&format!("{MINIMAL}[borrowers]\nrisk = {{ kind = \"gamma\", mean = 2 }}\n"));
+        let (_, message) = syntax(&format!(
+            "{MINIMAL}[borrowers]\nrisk = {{ kind = \"gamma\", mean = 2 }}\n"
+        ));
         assert!(message.contains("missing field `cv`"), "{message}");
         let (_, message) = syntax(&format!("{MINIMAL}[borrowers]\nrisk = {{ mean = 2 }}\n"));
         assert!(message.contains("missing field `kind`"), "{message}");
@@ -716,7 +725,10 @@ mod tests {
         let text =
             format!("{MINIMAL}[borrowers]\nincome = {{ kind = \"lognormal\", mean = 1.3, cv = 0.4 }}\nrisk = 2\n");
         let b = parse(&text, "case.toml").unwrap().borrowers;
-        assert!(matches!(b.income.unwrap().value, RawDist::Table(DistTable::Lognormal { .. })));
+        assert!(matches!(
+            b.income.unwrap().value,
+            RawDist::Table(DistTable::Lognormal { .. })
+        ));
         assert!(matches!(
             b.risk.unwrap().value,
             RawDist::Number(Num { integer: Some(2), .. })
@@ -772,7 +784,10 @@ mod tests {
         let p = parse(&text, "case.toml").unwrap().policy;
         assert_eq!(p.exclusion_cycles.unwrap().value, RawExclusion::Word("forever".into()));
         let (_, message) = syntax(&format!("{MINIMAL}[policy]\nexclusion_cycles = 1.5\n"));
-        assert!(message.contains("expected an integer >= 0 or \"permanent\""), "{message}");
+        assert!(
+            message.contains("expected an integer >= 0 or \"permanent\""),
+            "{message}"
+        );
     }
 
     #[test]

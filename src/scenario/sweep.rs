@@ -1,11 +1,11 @@
 //! `[sweep]`: resolves each listed path to its line of the bounds table, checks the lists, and puts
 //! one listed value in place in the raw scenario, so that it is validated as if written there.
 
+use super::ScenarioError;
 use super::bounds::{self, Setter};
 use super::limits;
-use super::raw::{line_of, Origin, RawAxis, RawDist, RawProbability, RawScenario, W};
+use super::raw::{Origin, RawAxis, RawDist, RawProbability, RawScenario, W, line_of};
 use super::validate::Checker;
-use super::ScenarioError;
 use std::collections::HashMap;
 
 type Result<T> = std::result::Result<T, ScenarioError>;
@@ -63,11 +63,12 @@ fn label(v: &toml::Value) -> String {
 /// The line of an empty list `KEY = []` (an empty list has no element to take a span from).
 fn empty_list_line(text: &str, path: &str) -> Option<usize> {
     let last = path.rsplit('.').next().unwrap_or(path);
-    text.lines().position(|l| {
-        let compact: String = l.chars().filter(|c| !c.is_whitespace()).collect();
-        compact.contains(&format!("{last}=[]")) || compact.contains(&format!("{last}\"=[]"))
-    })
-    .map(|i| i + 1)
+    text.lines()
+        .position(|l| {
+            let compact: String = l.chars().filter(|c| !c.is_whitespace()).collect();
+            compact.contains(&format!("{last}=[]")) || compact.contains(&format!("{last}\"=[]"))
+        })
+        .map(|i| i + 1)
 }
 
 fn is_name(s: &str) -> bool {
@@ -133,7 +134,11 @@ pub fn resolve(ck: &Checker, raw: &RawScenario) -> Result<Vec<Axis>> {
                             .collect();
                         return Err(refuse(format!(
                             "no shock is named `{name}` (the shocks are: {})",
-                            if names.is_empty() { "none".to_owned() } else { names.join(", ") }
+                            if names.is_empty() {
+                                "none".to_owned()
+                            } else {
+                                names.join(", ")
+                            }
                         )));
                     }
                     [first, second, ..] => {
@@ -153,7 +158,10 @@ pub fn resolve(ck: &Checker, raw: &RawScenario) -> Result<Vec<Axis>> {
             )));
         }
         let Some(field) = bounds::field(&pattern) else {
-            return Err(refuse(format!("`{path}` is not a field a sweep can vary; {}", sweepable())));
+            return Err(refuse(format!(
+                "`{path}` is not a field a sweep can vary; {}",
+                sweepable()
+            )));
         };
         let Some(setter) = field.sweep else {
             return Err(refuse(format!("`{path}` cannot be swept; {}", sweepable())));
@@ -168,8 +176,16 @@ pub fn resolve(ck: &Checker, raw: &RawScenario) -> Result<Vec<Axis>> {
                     .severity
                     .as_ref()
                     .is_some_and(|w| matches!(w.value, RawDist::Table(_))),
-                "borrowers.income" => raw.borrowers.income.as_ref().is_some_and(|w| matches!(w.value, RawDist::Table(_))),
-                "borrowers.risk" => raw.borrowers.risk.as_ref().is_some_and(|w| matches!(w.value, RawDist::Table(_))),
+                "borrowers.income" => raw
+                    .borrowers
+                    .income
+                    .as_ref()
+                    .is_some_and(|w| matches!(w.value, RawDist::Table(_))),
+                "borrowers.risk" => raw
+                    .borrowers
+                    .risk
+                    .as_ref()
+                    .is_some_and(|w| matches!(w.value, RawDist::Table(_))),
                 _ => false,
             };
             if table {
@@ -179,7 +195,9 @@ pub fn resolve(ck: &Checker, raw: &RawScenario) -> Result<Vec<Axis>> {
             }
         }
         if let Some(earlier) = keys.insert(shown.clone(), path.clone()) {
-            return Err(refuse(format!("`{path}` sweeps the same field as `{earlier}`, listed earlier")));
+            return Err(refuse(format!(
+                "`{path}` sweeps the same field as `{earlier}`, listed earlier"
+            )));
         }
         if values.is_empty() {
             return Err(ScenarioError::Invalid {
@@ -208,7 +226,12 @@ pub fn resolve(ck: &Checker, raw: &RawScenario) -> Result<Vec<Axis>> {
             };
             let text = ck.written(&v, || label(&v.value));
             if matches!(v.value, toml::Value::Array(_) | toml::Value::Table(_)) {
-                return Err(ck.invalid("", Some(&v.origin), text, "a single value: a sweep replaces one scalar field"));
+                return Err(ck.invalid(
+                    "",
+                    Some(&v.origin),
+                    text,
+                    "a single value: a sweep replaces one scalar field",
+                ));
             }
             labelled.push(label(&v.value));
             written.push(text);
@@ -232,7 +255,10 @@ pub fn resolve(ck: &Checker, raw: &RawScenario) -> Result<Vec<Axis>> {
             "sweep",
             first.as_ref(),
             format!("{arms} arms ({})", lengths.join(" x ")),
-            format!("at most {} arms (the product of the sweep list lengths)", limits::MAX_ARMS),
+            format!(
+                "at most {} arms (the product of the sweep list lengths)",
+                limits::MAX_ARMS
+            ),
         ));
     }
 

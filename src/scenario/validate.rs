@@ -8,8 +8,8 @@
 
 use super::bounds::{self, Bound};
 use super::raw::{
-    DistTable, Int, Num, Origin, RawCurve, RawDist, RawExclusion, RawProbability, RawScenario, RawShock, W,
-    float_text, line_of, location, one_line,
+    DistTable, Int, Num, Origin, RawCurve, RawDist, RawExclusion, RawProbability, RawScenario, RawShock, W, float_text,
+    line_of, location, one_line,
 };
 use super::sweep::{self, Axis};
 use super::{
@@ -225,14 +225,21 @@ impl Checker<'_> {
             }
             None => field.split_once('.').and_then(|(table, _)| {
                 let header = format!("[{table}]");
-                self.text.lines().enumerate().find(|(_, l)| l.trim_start().starts_with(&header))
+                self.text
+                    .lines()
+                    .enumerate()
+                    .find(|(_, l)| l.trim_start().starts_with(&header))
             }),
         };
         let (line, lacks) = match header {
             Some((n, l)) => (Some(n + 1), format!(" from {}", l.trim())),
             None => (None, String::new()),
         };
-        self.syntax(field, line, format!("this required field is missing{lacks} ({expected})"))
+        self.syntax(
+            field,
+            line,
+            format!("this required field is missing{lacks} ({expected})"),
+        )
     }
 
     /// An integer field checked against its line of the bounds table (with `max` tightened when the
@@ -247,7 +254,12 @@ impl Checker<'_> {
         };
         match u32::try_from(w.value.0) {
             Ok(n) if (min..=max).contains(&n) => Ok(n),
-            _ => Err(self.invalid(field, Some(&w.origin), self.written(w, || w.value.0.to_string()), allowed)),
+            _ => Err(self.invalid(
+                field,
+                Some(&w.origin),
+                self.written(w, || w.value.0.to_string()),
+                allowed,
+            )),
         }
     }
 
@@ -297,7 +309,11 @@ impl Checker<'_> {
                     Some(w) if w.origin.position() > cycles_w.origin.position() => w,
                     _ => cycles_w,
                 };
-                let field = if std::ptr::eq(w, cycles_w) { "cycles" } else { "warmup_cycles" };
+                let field = if std::ptr::eq(w, cycles_w) {
+                    "cycles"
+                } else {
+                    "warmup_cycles"
+                };
                 return Err(self.invalid(
                     field,
                     Some(&w.origin),
@@ -373,7 +389,12 @@ impl Checker<'_> {
         let loan = &raw.loan;
         let principal = self.required("loan.principal", loan.principal.as_ref(), "loan.principal")?;
         let principal_value = self.real("loan.principal", "loan.principal", principal)?;
-        let interest_rate = self.real_or("loan.interest_rate", "loan.interest_rate", loan.interest_rate.as_ref(), 0.0)?;
+        let interest_rate = self.real_or(
+            "loan.interest_rate",
+            "loan.interest_rate",
+            loan.interest_rate.as_ref(),
+            0.0,
+        )?;
         if !(principal_value * (1.0 + interest_rate)).is_finite() {
             // Between two fields: the later one is named (the default rate 0 cannot overflow).
             let rate = loan.interest_rate.as_ref().expect("a written rate overflowed");
@@ -389,7 +410,12 @@ impl Checker<'_> {
                 "a value that keeps the amount due, principal x (1 + interest_rate), finite",
             ));
         }
-        let recovery_rate = self.real_or("loan.recovery_rate", "loan.recovery_rate", loan.recovery_rate.as_ref(), 0.0)?;
+        let recovery_rate = self.real_or(
+            "loan.recovery_rate",
+            "loan.recovery_rate",
+            loan.recovery_rate.as_ref(),
+            0.0,
+        )?;
 
         let income = self.distribution("borrowers.income", raw.borrowers.income.as_ref(), false)?;
         let risk = self.distribution("borrowers.risk", raw.borrowers.risk.as_ref(), false)?;
@@ -536,7 +562,11 @@ impl Checker<'_> {
                     return Err(self.invalid(
                         format!("shock[{i}].probability"),
                         Some(&w.origin),
-                        format!("a {} curve worth {} at group size {k}", curve.kind_name(), float_text(q)),
+                        format!(
+                            "a {} curve worth {} at group size {k}",
+                            curve.kind_name(),
+                            float_text(q)
+                        ),
                         "a probability in [0, 1] at every arm's group size",
                     ));
                 }
@@ -612,7 +642,8 @@ impl Checker<'_> {
                     (Some(v), None) => ("village_correlation", v),
                     (None, None) => unreachable!("two zero defaults sum below 1"),
                 };
-                let text = |x: Option<&W<Num>>| x.map_or_else(|| "0".to_owned(), |x| self.written(x, || x.value.text()));
+                let text =
+                    |x: Option<&W<Num>>| x.map_or_else(|| "0".to_owned(), |x| self.written(x, || x.value.text()));
                 return Err(self.invalid(
                     at(field),
                     Some(&w.origin),
