@@ -788,3 +788,14 @@ fn too_many_shocks_are_refused() {
     assert_eq!(field, "shock");
     assert!(allowed.contains("at most 255 shocks"), "{allowed}");
 }
+
+#[test]
+fn arms_differing_only_outside_the_policy_are_not_the_same_model() {
+    let text = format!(
+        "{}[sweep]\nshock.illness.probability = [0.05, 0.1]\nloan.recovery_rate = [0, 0.5]\n",
+        member_shock("")
+    );
+    let s = parse(&text).unwrap();
+    assert_eq!(s.arms().len(), 4);
+    assert!(s.warnings().is_empty(), "{:?}", s.warnings());
+}

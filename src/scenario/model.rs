@@ -204,6 +204,8 @@ pub struct SweptValue {
 }
 
 /// One arm: the full model it runs (everything a sweep can vary) and a short label of its swept values.
+/// Serialised (in summary.json) as its label, swept values and policy: the scenario holds the rest,
+/// and `swept` says what differs.
 ///
 /// Callers should read through the methods: the fields become private once every caller does.
 #[derive(Debug, Clone, Serialize)]
@@ -211,24 +213,33 @@ pub struct Arm {
     /// Readable label such as `group_size=5,exclusion_cycles=2` (or `base` without a sweep).
     pub label: String,
     /// The swept values of this arm, in `[sweep]` order (empty without a sweep).
+    #[serde(skip_serializing_if = "Vec::is_empty")]
     pub swept: Vec<SweptValue>,
     /// The arm's full policy.
     pub policy: Policy,
     /// Principal P > 0 per member per cycle.
+    #[serde(skip)]
     pub principal: f64,
     /// Flat interest per cycle, r >= 0.
+    #[serde(skip)]
     pub interest_rate: f64,
     /// Share of unpaid principal recovered later, in [0, 1].
+    #[serde(skip)]
     pub recovery_rate: f64,
     /// Income ratio w (income / amount due), drawn at entry.
+    #[serde(skip)]
     pub income: Distribution,
     /// Risk multiplier u of member-scope probabilities, drawn at entry.
+    #[serde(skip)]
     pub risk: Distribution,
     /// The shocks, in file order (the same shocks, by index, in every arm).
+    #[serde(skip)]
     pub shocks: Vec<Shock>,
     /// Per-cycle probability that a member leaves, in [0, 1).
+    #[serde(skip)]
     pub dropout: f64,
     /// Whether emptied slots get new entrants.
+    #[serde(skip)]
     pub replace_departures: bool,
 }
 

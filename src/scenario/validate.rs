@@ -112,10 +112,8 @@ fn same_model_warnings(arms: &[Arm]) -> Vec<String> {
     let mut seen: HashMap<String, usize> = HashMap::new();
     let mut warnings = Vec::new();
     for (i, arm) in arms.iter().enumerate() {
-        let mut model = arm.clone();
-        model.label.clear();
-        model.swept.clear();
-        let p = &mut model.policy;
+        let mut policy = arm.policy.clone();
+        let p = &mut policy;
         if p.liability == Liability::Individual {
             // Individual liability: nobody covers a peer and only defaulters are excluded.
             p.peer_cover = 0.0;
@@ -124,7 +122,18 @@ fn same_model_warnings(arms: &[Arm]) -> Vec<String> {
         if p.exclusion_cycles == Exclusion::Cycles(0) {
             p.exclusion_scope = ExclusionScope::Group;
         }
-        let key = serde_json::to_string(&model).unwrap_or_default();
+        let key = serde_json::to_string(&ModelKey {
+            policy: &policy,
+            principal: arm.principal,
+            interest_rate: arm.interest_rate,
+            recovery_rate: arm.recovery_rate,
+            income: &arm.income,
+            risk: &arm.risk,
+            shocks: &arm.shocks,
+            dropout: arm.dropout,
+            replace_departures: arm.replace_departures,
+        })
+        .unwrap_or_default();
         match seen.get(&key) {
             Some(&j) => warnings.push(format!(
                 "arm {} ({}) resolves to the same model as the earlier arm {} ({}); both are run",
@@ -139,6 +148,20 @@ fn same_model_warnings(arms: &[Arm]) -> Vec<String> {
         }
     }
     warnings
+}
+
+/// Everything an arm runs, for comparing arms (its label and swept values aside).
+#[derive(serde::Serialize)]
+struct ModelKey<'a> {
+    policy: &'a Policy,
+    principal: f64,
+    interest_rate: f64,
+    recovery_rate: f64,
+    income: &'a Distribution,
+    risk: &'a Distribution,
+    shocks: &'a [Shock],
+    dropout: f64,
+    replace_departures: bool,
 }
 
 /// What every arm shares.
