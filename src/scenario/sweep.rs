@@ -31,6 +31,8 @@ pub struct Axis {
     pub labels: Vec<String>,
     /// Each value as written.
     pub written: Vec<String>,
+    /// The key as written in `[sweep]`, for messages.
+    key: String,
     /// The shock the path names (0 when it names no shock).
     shock: usize,
     setter: Setter,
@@ -208,7 +210,8 @@ pub fn resolve(ck: &Checker, raw: &RawScenario) -> Result<Vec<Axis>> {
                 allowed: "a non-empty list of alternative values".into(),
             });
         }
-        let swept_name = |j: usize| format!("sweep.{shown}[{j}]");
+        // Messages name a value by the key as written (`sweep.policy.group_size[1]` if so written).
+        let swept_name = |j: usize| format!("sweep.{path}[{j}]");
         let mut labelled = Vec::with_capacity(values.len());
         let mut written = Vec::with_capacity(values.len());
         let mut out = Vec::with_capacity(values.len());
@@ -242,6 +245,7 @@ pub fn resolve(ck: &Checker, raw: &RawScenario) -> Result<Vec<Axis>> {
             values: out,
             labels: labelled,
             written,
+            key: path.clone(),
             shock,
             setter,
         });
@@ -274,7 +278,7 @@ pub fn resolve(ck: &Checker, raw: &RawScenario) -> Result<Vec<Axis>> {
                     "",
                     Some(&axis.values[j].origin),
                     axis.written[j].clone(),
-                    format!("a value not already listed (it repeats sweep.{}[{first}])", axis.path),
+                    format!("a value not already listed (it repeats sweep.{}[{first}])", axis.key),
                 ));
             }
         }
