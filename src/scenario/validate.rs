@@ -444,9 +444,11 @@ impl Checker<'_> {
         let risk = self.distribution("borrowers.risk", raw.borrowers.risk.as_ref(), false)?;
 
         if raw.shock.len() > limits::MAX_SHOCKS {
+            // Named at the first shock past the limit.
+            let extra = raw.shock[limits::MAX_SHOCKS].name.as_ref().map(|n| &n.origin);
             return Err(self.invalid(
                 "shock",
-                None,
+                extra,
                 format!("{} [[shock]] tables", raw.shock.len()),
                 format!("at most {} shocks", limits::MAX_SHOCKS),
             ));
