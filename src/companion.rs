@@ -100,6 +100,9 @@ impl SimulationCompanion {
 /// x* of the curve of the first member-scope shock driven by a group-size curve, scaled by the risk
 /// multiplier when that is fixed.
 fn curve_optimum(scenario: &Scenario) -> Option<f64> {
+    if scenario.model_swept().is_some() {
+        return None;
+    }
     let curve = scenario.shocks.iter().find_map(|s| match (&s.scope, &s.probability) {
         (ShockScope::Member, ShockProbability::Curve(c)) => Some(c),
         _ => None,

@@ -4,7 +4,7 @@ use clap::{Parser, Subcommand};
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 use loancycle::analytic::{self, optimum};
 use loancycle::output::{self, terminal};
-use loancycle::scenario::Scenario;
+use loancycle::scenario::{Overrides, Scenario};
 use loancycle::{demo, report, run};
 use signal_hook::consts::{SIGINT, SIGTERM};
 use std::path::PathBuf;
@@ -137,14 +137,23 @@ fn install_stop_signals() -> Arc<AtomicUsize> {
 }
 
 fn load(file: Option<&PathBuf>) -> Result<(Scenario, String, String), Failure> {
-    match file {
-        Some(path) => Scenario::load(path)
+    load_with(file, &Overrides::default())
+}
+
+/// Loads a scenario with command-line overrides put in before validation, and prints its warnings.
+fn load_with(file: Option<&PathBuf>, overrides: &Overrides) -> Result<(Scenario, String, String), Failure> {
+    let loaded = match file {
+        Some(path) => Scenario::load_with(path, overrides)
             .map(|(s, text)| (s, text, path.display().to_string()))
             .map_err(|e| Failure::BadInput(e.to_string())),
-        None => Scenario::from_toml_str(demo::BASELINE, demo::BASELINE_ORIGIN)
+        None => Scenario::from_toml_str_with(demo::BASELINE, demo::BASELINE_ORIGIN, overrides)
             .map(|s| (s, demo::BASELINE.to_string(), demo::BASELINE_ORIGIN.to_string()))
             .map_err(|e| Failure::BadInput(e.to_string())),
+    }?;
+    for w in loaded.0.warnings() {
+        eprintln!("warning: {}: {w}", loaded.2);
     }
+    Ok(loaded)
 }
 
 /// Turns the `optimum` flags into a request; every refusal names the flag, the value and what is allowed.
@@ -247,12 +256,11 @@ fn execute(command: Command) -> Result<(), Failure> {
             // Only `run` catches signals: it has files to protect. The other commands write nothing
             // and keep the default action, so Ctrl-C ends them at once.
             let stop = install_stop_signals();
-            let (mut scenario, text, origin) = load(file.as_ref())?;
+            let overrides = Overrides { replications, seed };
+            let (scenario, text, origin) = load_with(file.as_ref(), &overrides)?;
             if file.is_none() && !quiet {
                 eprintln!("no scenario file given: running the built-in baseline demo, {origin}");
             }
-            run::apply_overrides(&mut scenario, replications, seed);
-            run::check_size(&scenario).map_err(|e| Failure::BadInput(format!("{origin}: {e}")))?;
             let created = output::prepare_destination(&out, force).map_err(|e| {
                 if e.is_bad_destination() {
                     Failure::BadInput(e.to_string())

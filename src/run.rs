@@ -18,18 +18,6 @@ pub struct RunOptions {
 /// Why a run could not start.
 #[derive(Debug, thiserror::Error)]
 pub enum RunError {
-    /// The run would keep more per-cycle records than memory allows.
-    #[error(
-        "replications = {replications} is not allowed here: {replications} replications x {cycles} counted cycles x {arms} arms \
-         = {records} per-cycle records, more than the {max} a run may keep; use fewer replications or split the run by seed"
-    )]
-    TooLarge {
-        replications: u32,
-        cycles: u32,
-        arms: usize,
-        records: u64,
-        max: u64,
-    },
     /// The thread pool could not be built.
     #[error("cannot start {threads} worker threads: {reason}")]
     ThreadPool { threads: usize, reason: String },
@@ -108,32 +96,4 @@ pub fn simulate_until(
         arms: tallies,
         served_member_cycles,
     })
-}
-
-/// Applies command-line overrides of the replication count and seed to a validated scenario.
-/// Zero replications cannot reach here: the command line refuses it.
-pub fn apply_overrides(scenario: &mut Scenario, replications: Option<u32>, seed: Option<u64>) {
-    if let Some(r) = replications {
-        scenario.replications = r.max(1);
-    }
-    if let Some(s) = seed {
-        scenario.seed = s;
-    }
-}
-
-/// Refuses runs whose per-cycle records would not fit in memory (checked before any work, and again
-/// after command-line overrides of the replication count).
-pub fn check_size(scenario: &Scenario) -> Result<(), RunError> {
-    let records = scenario.cycle_records();
-    let max = crate::scenario::limits::MAX_CYCLE_RECORDS;
-    if records > max {
-        return Err(RunError::TooLarge {
-            replications: scenario.replications,
-            cycles: scenario.cycles,
-            arms: scenario.arms.len(),
-            records,
-            max,
-        });
-    }
-    Ok(())
 }

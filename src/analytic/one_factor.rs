@@ -101,6 +101,11 @@ impl OneFactorModel {
 /// fixed risk, exactly one shock, of member scope, with fixed severity and no stress window; any
 /// correlations, curve, liability and peer cover.
 pub fn class_check(scenario: &Scenario) -> Result<OneFactorModel, OutOfClass> {
+    if let Some(path) = scenario.model_swept() {
+        return Err(OutOfClass::new(format!(
+            "the sweep varies {path}; exact values are computed for sweeps of [policy] fields only"
+        )));
+    }
     let income = scenario.income.fixed_value().ok_or_else(|| {
         OutOfClass::new(format!(
             "borrowers.income is a {} distribution, not fixed",
@@ -368,7 +373,7 @@ mod tests {
     use super::*;
     use crate::analytic::tolerance::{QUADRATURE_CHECK, SCIPY_MATCH};
     use crate::dist::Distribution;
-    use crate::scenario::{Arm, Policy, Shock, StressWindow};
+    use crate::scenario::{Policy, Shock, StressWindow};
     use statrs::distribution::{Binomial, Discrete};
 
     fn model(p: f64, village: f64, portfolio: f64) -> OneFactorModel {
@@ -411,11 +416,10 @@ mod tests {
             dropout: 0.0,
             replace_departures: true,
             swept_fields: vec![],
-            arms: vec![Arm {
-                label: "base".into(),
-                policy: Policy::default_policy(),
-            }],
+            arms: vec![],
+            warnings: vec![],
         }
+        .with_policies(vec![("base", Policy::default_policy())])
     }
 
     #[test]

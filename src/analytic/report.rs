@@ -189,6 +189,11 @@ pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
 }
 
 fn hit_share_section(scenario: &Scenario) -> Result<HitShareSection, String> {
+    if let Some(path) = scenario.model_swept() {
+        return Err(format!(
+            "the sweep varies {path}; the law is computed for sweeps of [policy] fields only"
+        ));
+    }
     let (index, shock) = scenario
         .shocks
         .iter()
@@ -339,7 +344,7 @@ mod tests {
     use super::*;
     use crate::curve::GroupSizeCurve;
     use crate::dist::Distribution;
-    use crate::scenario::{Arm, Policy, Shock};
+    use crate::scenario::{Policy, Shock};
 
     fn scenario(villages: u32, village_corr: f64) -> Scenario {
         let mut joint = Policy::default_policy();
@@ -372,17 +377,10 @@ mod tests {
             dropout: 0.0,
             replace_departures: true,
             swept_fields: vec!["peer_cover".into()],
-            arms: vec![
-                Arm {
-                    label: "joint".into(),
-                    policy: joint,
-                },
-                Arm {
-                    label: "individual".into(),
-                    policy: individual,
-                },
-            ],
+            arms: vec![],
+            warnings: vec![],
         }
+        .with_policies(vec![("joint", joint), ("individual", individual)])
     }
 
     #[test]

@@ -11,7 +11,7 @@
 pub mod streams;
 
 use crate::analytic::normal;
-use crate::scenario::{Exclusion, ExclusionScope, Formation, Liability, Matching, Policy, Scenario, ShockScope};
+use crate::scenario::{Arm, Exclusion, ExclusionScope, Formation, Liability, Matching, Policy, Scenario, ShockScope};
 use crate::stats::{CycleRecord, ReplicationTally};
 use rand_distr::{Distribution as _, StandardNormal};
 use streams::{DenseBlocks, Purpose, SlotDraws, cycle_stream_id, unit_f64};
@@ -23,8 +23,7 @@ const REPAYMENT_SLACK: f64 = 1e-9;
 ///
 /// The scenario is validated, so every index and probability used here is in range.
 pub fn simulate_replication(scenario: &Scenario, arm: usize, replication: u32) -> ReplicationTally {
-    let policy = &scenario.arms[arm].policy;
-    let mut sim = ArmReplication::new(scenario, policy, replication);
+    let mut sim = ArmReplication::new(scenario, &scenario.arms[arm], replication);
     for cycle in 1..=scenario.total_cycles() {
         sim.run_cycle(cycle);
     }
@@ -65,6 +64,8 @@ struct Pool {
 
 struct ArmReplication<'a> {
     scenario: &'a Scenario,
+    /// The arm's full model: its policy, loan, borrowers, shocks and pool (any of them may be swept).
+    arm: &'a Arm,
     policy: &'a Policy,
     key: [u8; 32],
     n: usize,
@@ -74,7 +75,7 @@ struct ArmReplication<'a> {
     k: usize,
     due: f64,
     pool: Pool,
-    /// Indices into `scenario.shocks` of member-scope shocks, and the probability each threshold
+    /// Indices into the arm's shocks of member-scope shocks, and the probability each threshold
     /// cache was computed for.
     member_shocks: Vec<usize>,
     cached_probability: Vec<f64>,
@@ -105,7 +106,8 @@ struct ArmReplication<'a> {
 }
 
 impl<'a> ArmReplication<'a> {
-    fn new(scenario: &'a Scenario, policy: &'a Policy, replication: u32) -> Self {
+    fn new(scenario: &'a Scenario, arm: &'a Arm, replication: u32) -> Self {
+        let policy = &arm.policy;
         let n = scenario.borrowers as usize;
         let villages = scenario.villages as usize;
         let mut village_start = Vec::with_capacity(villages + 1);
@@ -115,7 +117,7 @@ impl<'a> ArmReplication<'a> {
             at += scenario.village_size(v) as usize;
         }
         village_start.push(at);
-        let member_shocks: Vec<usize> = scenario
+        let member_shocks: Vec<usize> = arm
             .shocks
             .iter()
             .enumerate()
@@ -125,13 +127,14 @@ impl<'a> ArmReplication<'a> {
         let ms = member_shocks.len();
         ArmReplication {
             scenario,
+            arm,
             policy,
             key: streams::replication_key(scenario.seed, replication),
             n,
             villages,
             village_start,
             k: policy.group_size as usize,
-            due: scenario.amount_due(),
+            due: arm.amount_due(),
             pool: Pool {
                 occupied: vec![false; n],
                 entrants: vec![0; n],
@@ -159,8 +162,8 @@ impl<'a> ArmReplication<'a> {
             shortfall: vec![false; policy.group_size as usize],
             shock_cycle: Vec::new(),
             hits: Vec::new(),
-            shared_risk: scenario.risk.fixed_value().is_some(),
-            village_draws: vec![DenseBlocks::default(); scenario.shocks.len()],
+            shared_risk: arm.risk.fixed_value().is_some(),
+            village_draws: vec![DenseBlocks::default(); arm.shocks.len()],
             tally: ReplicationTally::new(replication, policy.group_size, scenario.cycles),
         }
     }
@@ -215,7 +218,7 @@ impl<'a> ArmReplication<'a> {
     fn prepare_shocks(&mut self, cycle: u32) {
         self.shock_cycle.clear();
         let mut threshold_row = 0usize;
-        for (si, shock) in self.scenario.shocks.iter().enumerate() {
+        for (si, shock) in self.arm.shocks.iter().enumerate() {
             let is_member = shock.scope == ShockScope::Member;
             let row = threshold_row;
             threshold_row += usize::from(is_member);
@@ -255,7 +258,7 @@ impl<'a> ArmReplication<'a> {
     /// window starting or ending).
     fn refresh_thresholds(&mut self, cycle: u32) {
         for (s, &shock_index) in self.member_shocks.iter().enumerate() {
-            let p = self.scenario.shocks[shock_index].probability_in_cycle(cycle, self.policy.group_size);
+            let p = self.arm.shocks[shock_index].probability_in_cycle(cycle, self.policy.group_size);
             if p.to_bits() == self.cached_probability[s].to_bits() {
                 continue;
             }
@@ -272,7 +275,7 @@ impl<'a> ArmReplication<'a> {
     /// are replaced). Each entrant's attributes come from its own (slot, entrant) stream, so a
     /// rejection sampler's retries can never shift another entrant's draws.
     fn entry(&mut self, v: usize, cycle: u32) {
-        if cycle > 1 && !self.scenario.replace_departures {
+        if cycle > 1 && !self.arm.replace_departures {
             return;
         }
         for i in self.village_start[v]..self.village_start[v + 1] {
@@ -283,8 +286,8 @@ impl<'a> ArmReplication<'a> {
             self.pool.entrants[i] += 1;
             let slot = self.slot_of(v, i);
             let mut rng = streams::open(&self.key, streams::entry_stream_id(slot, entrant));
-            let income = self.scenario.income.sample(&mut rng);
-            let risk = self.scenario.risk.sample(&mut rng);
+            let income = self.arm.income.sample(&mut rng);
+            let risk = self.arm.risk.sample(&mut rng);
             self.pool.occupied[i] = true;
             self.pool.income[i] = income;
             self.pool.risk[i] = risk;
@@ -444,8 +447,8 @@ impl<'a> ArmReplication<'a> {
             portfolio_factor,
             ..
         } = sc;
-        let scenario = self.scenario;
-        let shock = &scenario.shocks[si];
+        let arm = self.arm;
+        let shock = &arm.shocks[si];
         let k = self.k;
         let start = self.village_start[v];
         let size = self.village_start[v + 1] - start;
@@ -543,7 +546,7 @@ impl<'a> ArmReplication<'a> {
     /// seeking when hits are few and by one dense fill when they are many: the same words either
     /// way, so the choice changes speed only.
     fn apply_severities(&mut self, cycle: u32, si: usize, v: usize) {
-        let shock = &self.scenario.shocks[si];
+        let shock = &self.arm.shocks[si];
         let start = self.village_start[v] as u32;
         if let Some(s) = shock.severity.fixed_value() {
             for &i in &self.hits {
@@ -576,8 +579,8 @@ impl<'a> ArmReplication<'a> {
     fn repayment(&mut self, v: usize, cycle: u32, counted: bool, record: &mut CycleRecord) {
         let k = self.k;
         let d = self.due;
-        let principal = self.scenario.principal;
-        let recovery = self.scenario.recovery_rate;
+        let principal = self.arm.principal;
+        let recovery = self.arm.recovery_rate;
         let lambda = self.policy.peer_cover;
         let joint = self.policy.liability == Liability::Joint;
         let exclude_whole_group = self.policy.exclusion_scope == ExclusionScope::Group;
@@ -661,7 +664,7 @@ impl<'a> ArmReplication<'a> {
 
     /// Step 7: each present member, excluded ones included, leaves with probability `dropout`.
     fn dropout(&mut self, v: usize, cycle: u32) {
-        let q = self.scenario.dropout;
+        let q = self.arm.dropout;
         if q <= 0.0 {
             return;
         }
@@ -760,7 +763,7 @@ mod tests {
     #[test]
     fn groups_stay_within_their_village_and_cover_whole_groups_only() {
         let s = scenario("[policy]\ngroup_size = 4\n");
-        let mut sim = ArmReplication::new(&s, &s.arms[0].policy, 0);
+        let mut sim = ArmReplication::new(&s, &s.arms[0], 0);
         sim.run_cycle(1);
         let sets = group_sets(&sim);
         // villages of 26, 26, 26, 25 slots: 6 groups of 4 each, the rest wait
@@ -773,14 +776,14 @@ mod tests {
     #[test]
     fn persistent_groups_survive_while_everyone_stays_eligible() {
         let s = scenario("[policy]\ngroup_size = 5\nformation = \"persistent\"\n");
-        let mut sim = ArmReplication::new(&s, &s.arms[0].policy, 0);
+        let mut sim = ArmReplication::new(&s, &s.arms[0], 0);
         sim.run_cycle(1);
         let first = group_sets(&sim);
         sim.run_cycle(2);
         sim.run_cycle(3);
         assert_eq!(group_sets(&sim), first, "no shocks, no exclusion: the same groups");
         let r = scenario("[policy]\ngroup_size = 5\nformation = \"reshuffle\"\n");
-        let mut re = ArmReplication::new(&r, &r.arms[0].policy, 0);
+        let mut re = ArmReplication::new(&r, &r.arms[0], 0);
         re.run_cycle(1);
         let before = group_sets(&re);
         re.run_cycle(2);
@@ -790,7 +793,7 @@ mod tests {
     #[test]
     fn a_departure_dissolves_a_persistent_group() {
         let s = scenario("[policy]\ngroup_size = 5\nformation = \"persistent\"\n[pool]\ndropout = 0.2\n");
-        let mut sim = ArmReplication::new(&s, &s.arms[0].policy, 0);
+        let mut sim = ArmReplication::new(&s, &s.arms[0], 0);
         sim.run_cycle(1);
         let first = group_sets(&sim);
         // cycle 1 ends with dropouts; their groups must not come back whole

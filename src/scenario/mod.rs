@@ -1,10 +1,14 @@
 //! Scenario files: the TOML format, its validation, and the validated `Scenario` the engine accepts.
 //!
-//! Parsing goes through a serde mirror of the file (`raw`) that refuses unknown fields; `validate`
-//! then checks every number once and resolves the sweep into arms, so no other module re-checks input.
+//! Parsing goes through a serde mirror of the file (`raw`) that keeps each value's span and refuses
+//! wrong types and unknown fields; command-line overrides are put into that mirror; `validate` then
+//! checks every value once against the bounds table (`bounds`) and resolves the sweep (`sweep`) into
+//! arms, each carrying its full model, so no other module re-checks input.
 
+mod bounds;
 mod model;
 mod raw;
+mod sweep;
 mod validate;
 
 pub use model::*;
@@ -40,31 +44,87 @@ pub enum ScenarioError {
         location: String,
         message: String,
     },
-    /// A field's value is outside what is allowed.
-    #[error("{file}: {field} = {value} is not allowed: {allowed}")]
+    /// A field's value is outside what is allowed. `field` is the field's path, `sweep.PATH[i]` for
+    /// a swept value, or the flag (`--replications`) for a command-line override.
+    #[error("{file}: {}{value} is not allowed: {allowed}", invalid_location(*line, field))]
     Invalid {
         file: String,
+        line: Option<usize>,
         field: String,
         value: String,
         allowed: String,
     },
 }
 
+fn invalid_location(line: Option<usize>, field: &str) -> String {
+    if field.starts_with("--") {
+        format!("option {field}: ")
+    } else {
+        raw::location(line, field)
+    }
+}
+
+/// Command-line overrides, put into the scenario as written before validation (so a bad one is
+/// refused like a bad field, naming its flag).
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct Overrides {
+    /// `--replications`.
+    pub replications: Option<u32>,
+    /// `--seed`.
+    pub seed: Option<u64>,
+}
+
+impl Overrides {
+    fn apply(&self, raw: &mut raw::RawScenario) {
+        use raw::{Int, Origin, W};
+        if let Some(r) = self.replications {
+            raw.replications = Some(W {
+                value: Int(i64::from(r)),
+                origin: Origin::Flag {
+                    flag: "--replications",
+                    text: r.to_string(),
+                },
+            });
+        }
+        if let Some(s) = self.seed {
+            raw.seed = Some(W {
+                // Above i64::MAX the seed is refused, quoting the flag's argument.
+                value: Int(i64::try_from(s).unwrap_or(-1)),
+                origin: Origin::Flag {
+                    flag: "--seed",
+                    text: s.to_string(),
+                },
+            });
+        }
+    }
+}
+
 impl Scenario {
     /// Parses and validates scenario text; `origin` names the file in error messages.
     pub fn from_toml_str(text: &str, origin: &str) -> Result<Scenario, ScenarioError> {
-        let raw = raw::parse(text, origin)?;
-        validate::validate(raw, origin)
+        Scenario::from_toml_str_with(text, origin, &Overrides::default())
+    }
+
+    /// Parses scenario text, applies command-line overrides, and validates the result.
+    pub fn from_toml_str_with(text: &str, origin: &str, overrides: &Overrides) -> Result<Scenario, ScenarioError> {
+        let mut raw = raw::parse(text, origin)?;
+        overrides.apply(&mut raw);
+        validate::validate(raw, text, origin)
     }
 
     /// Reads, parses and validates a scenario file.
     pub fn load(path: &Path) -> Result<(Scenario, String), ScenarioError> {
+        Scenario::load_with(path, &Overrides::default())
+    }
+
+    /// Reads a scenario file, applies command-line overrides, and validates the result.
+    pub fn load_with(path: &Path, overrides: &Overrides) -> Result<(Scenario, String), ScenarioError> {
         let origin = path.display().to_string();
         let text = std::fs::read_to_string(path).map_err(|e| ScenarioError::Unreadable {
             file: origin.clone(),
             reason: e.to_string().to_lowercase(),
         })?;
-        let scenario = Scenario::from_toml_str(&text, &origin)?;
+        let scenario = Scenario::from_toml_str_with(&text, &origin, overrides)?;
         Ok((scenario, text))
     }
 }

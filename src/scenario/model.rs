@@ -2,10 +2,10 @@
 
 use crate::curve::GroupSizeCurve;
 use crate::dist::Distribution;
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 
 /// Where a shock strikes.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum ShockScope {
     /// Each member separately (optionally correlated through village and portfolio factors).
@@ -41,6 +41,8 @@ impl ShockProbability {
 }
 
 /// A stress window: cycles `from..=to` (counted from 1, warm-up included) use `probability` instead.
+///
+/// Callers should read through the methods: the fields become private once every caller does.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct StressWindow {
     /// First cycle of the window (>= 1).
@@ -52,6 +54,8 @@ pub struct StressWindow {
 }
 
 /// One validated shock.
+///
+/// Callers should read through the methods: the fields become private once every caller does.
 #[derive(Debug, Clone, Serialize)]
 pub struct Shock {
     /// Unique name.
@@ -89,7 +93,7 @@ impl Shock {
 }
 
 /// Who is liable for a loan.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum Liability {
     /// The group repays together, peers covering shortfalls from their surplus.
@@ -123,7 +127,7 @@ impl std::fmt::Display for Exclusion {
 }
 
 /// Who is excluded when a joint-liability group defaults.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum ExclusionScope {
     /// Every member of the defaulting group.
@@ -133,7 +137,7 @@ pub enum ExclusionScope {
 }
 
 /// How groups are formed each cycle.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum Formation {
     /// Every group is dissolved and re-formed each cycle.
@@ -143,7 +147,7 @@ pub enum Formation {
 }
 
 /// How members are ordered before being cut into groups.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum Matching {
     /// Random order.
@@ -153,6 +157,8 @@ pub enum Matching {
 }
 
 /// One lending policy (an arm of the experiment).
+///
+/// Callers should read through the methods: the fields become private once every caller does.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Policy {
     /// Members per group, k >= 1.
@@ -186,16 +192,113 @@ impl Policy {
     }
 }
 
-/// One arm: a policy and a short label of its swept values.
-#[derive(Debug, Clone, PartialEq, Serialize)]
+/// One swept value of an arm: the path as `[sweep]` names it and the value.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+pub struct SweptValue {
+    /// The swept path, such as `group_size` or `shock.illness.village_correlation`.
+    pub path: String,
+    /// The value as arm labels show it (numbers in plain `Display`, words unquoted).
+    pub value: String,
+    /// The value exactly as the file wrote it (`0.20`, `"permanent"`).
+    pub written: String,
+}
+
+/// One arm: the full model it runs (everything a sweep can vary) and a short label of its swept values.
+/// Serialised (in summary.json) as its label, swept values and policy: the scenario holds the rest,
+/// and `swept` says what differs.
+///
+/// Callers should read through the methods: the fields become private once every caller does.
+#[derive(Debug, Clone, Serialize)]
 pub struct Arm {
     /// Readable label such as `group_size=5,exclusion_cycles=2` (or `base` without a sweep).
     pub label: String,
+    /// The swept values of this arm, in `[sweep]` order (empty without a sweep).
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub swept: Vec<SweptValue>,
     /// The arm's full policy.
     pub policy: Policy,
+    /// Principal P > 0 per member per cycle.
+    #[serde(skip)]
+    pub principal: f64,
+    /// Flat interest per cycle, r >= 0.
+    #[serde(skip)]
+    pub interest_rate: f64,
+    /// Share of unpaid principal recovered later, in [0, 1].
+    #[serde(skip)]
+    pub recovery_rate: f64,
+    /// Income ratio w (income / amount due), drawn at entry.
+    #[serde(skip)]
+    pub income: Distribution,
+    /// Risk multiplier u of member-scope probabilities, drawn at entry.
+    #[serde(skip)]
+    pub risk: Distribution,
+    /// The shocks, in file order (the same shocks, by index, in every arm).
+    #[serde(skip)]
+    pub shocks: Vec<Shock>,
+    /// Per-cycle probability that a member leaves, in [0, 1).
+    #[serde(skip)]
+    pub dropout: f64,
+    /// Whether emptied slots get new entrants.
+    #[serde(skip)]
+    pub replace_departures: bool,
 }
 
-/// A validated scenario.
+impl Arm {
+    /// Readable label such as `group_size=5,exclusion_cycles=2` (or `base` without a sweep).
+    pub fn label(&self) -> &str {
+        &self.label
+    }
+    /// The swept values of this arm, in `[sweep]` order (one per `Scenario::swept_paths`).
+    pub fn swept(&self) -> &[SweptValue] {
+        &self.swept
+    }
+    /// The arm's policy.
+    pub fn policy(&self) -> &Policy {
+        &self.policy
+    }
+    /// Principal per member per cycle.
+    pub fn principal(&self) -> f64 {
+        self.principal
+    }
+    /// Flat interest per cycle.
+    pub fn interest_rate(&self) -> f64 {
+        self.interest_rate
+    }
+    /// Share of unpaid principal recovered.
+    pub fn recovery_rate(&self) -> f64 {
+        self.recovery_rate
+    }
+    /// Amount due per member per cycle, D = P (1 + r).
+    pub fn amount_due(&self) -> f64 {
+        self.principal * (1.0 + self.interest_rate)
+    }
+    /// Income ratio distribution.
+    pub fn income(&self) -> &Distribution {
+        &self.income
+    }
+    /// Risk multiplier distribution.
+    pub fn risk(&self) -> &Distribution {
+        &self.risk
+    }
+    /// The shocks, in file order.
+    pub fn shocks(&self) -> &[Shock] {
+        &self.shocks
+    }
+    /// Per-cycle dropout probability.
+    pub fn dropout(&self) -> f64 {
+        self.dropout
+    }
+    /// Whether emptied slots get new entrants.
+    pub fn replace_departures(&self) -> bool {
+        self.replace_departures
+    }
+}
+
+/// A validated scenario: what every arm shares (the run's size, the pool, the seed) and the arms.
+///
+/// The model fields here (`principal` ... `replace_departures`) are the FIRST arm's values, kept
+/// while callers move to per-arm reads: any of them may be swept, so read them from the `Arm`.
+/// Callers should read through the methods: the fields become private once every caller does.
 #[derive(Debug, Clone, Serialize)]
 pub struct Scenario {
     /// Free text.
@@ -212,30 +315,79 @@ pub struct Scenario {
     pub borrowers: u32,
     /// Villages V in [1, N]; slot j lives in village j % V.
     pub villages: u32,
-    /// Principal P > 0 per member per cycle.
+    /// The first arm's principal (see `Arm::principal`).
     pub principal: f64,
-    /// Flat interest per cycle, r >= 0.
+    /// The first arm's interest rate (see `Arm::interest_rate`).
     pub interest_rate: f64,
-    /// Share of unpaid principal recovered later, in [0, 1].
+    /// The first arm's recovery rate (see `Arm::recovery_rate`).
     pub recovery_rate: f64,
-    /// Income ratio w (income / amount due), drawn at entry.
+    /// The first arm's income distribution (see `Arm::income`).
     pub income: Distribution,
-    /// Risk multiplier u of member-scope probabilities, drawn at entry.
+    /// The first arm's risk distribution (see `Arm::risk`).
     pub risk: Distribution,
-    /// The shocks, in file order.
+    /// The first arm's shocks (see `Arm::shocks`).
     pub shocks: Vec<Shock>,
-    /// Per-cycle probability that a member leaves, in [0, 1).
+    /// The first arm's dropout (see `Arm::dropout`).
     pub dropout: f64,
-    /// Whether emptied slots get new entrants.
+    /// The first arm's replacement rule (see `Arm::replace_departures`).
     pub replace_departures: bool,
-    /// Policy fields swept, in the order written.
+    /// Swept paths, in the order of their lines in `[sweep]` (policy fields by their bare name).
     pub swept_fields: Vec<String>,
     /// The arms, in sweep order (one arm without a sweep).
     pub arms: Vec<Arm>,
+    /// Warnings found while validating (arms resolving to the same model); the caller prints them.
+    #[serde(skip)]
+    pub warnings: Vec<String>,
 }
 
 impl Scenario {
-    /// Amount due per member per cycle, D = P (1 + r).
+    /// Free text.
+    pub fn name(&self) -> &str {
+        &self.name
+    }
+    /// Master seed.
+    pub fn seed(&self) -> u64 {
+        self.seed
+    }
+    /// Independent replications.
+    pub fn replications(&self) -> u32 {
+        self.replications
+    }
+    /// Counted cycles per replication.
+    pub fn cycles(&self) -> u32 {
+        self.cycles
+    }
+    /// Cycles simulated first and not counted.
+    pub fn warmup_cycles(&self) -> u32 {
+        self.warmup_cycles
+    }
+    /// Borrower slots.
+    pub fn borrowers(&self) -> u32 {
+        self.borrowers
+    }
+    /// Villages.
+    pub fn villages(&self) -> u32 {
+        self.villages
+    }
+    /// Swept paths in order, one per column writers add (`group_size`, `shock.illness.reach`, ...).
+    pub fn swept_paths(&self) -> &[String] {
+        &self.swept_fields
+    }
+    /// The first swept path outside `[policy]` (a loan, borrower, pool or shock field), if any: code
+    /// that still reads the scenario-level model fields must not assume they hold in every arm then.
+    pub fn model_swept(&self) -> Option<&str> {
+        self.swept_fields.iter().map(String::as_str).find(|p| p.contains('.'))
+    }
+    /// The arms, in sweep order.
+    pub fn arms(&self) -> &[Arm] {
+        &self.arms
+    }
+    /// Warnings found while validating, one line each, for the caller to print.
+    pub fn warnings(&self) -> &[String] {
+        &self.warnings
+    }
+
+    /// The first arm's amount due (see `Arm::amount_due`, which any sweep of the loan may vary).
     pub fn amount_due(&self) -> f64 {
         self.principal * (1.0 + self.interest_rate)
     }
@@ -251,9 +403,113 @@ impl Scenario {
         u64::from(self.replications) * u64::from(self.cycles) * self.arms.len() as u64
     }
 
+    /// Replaces the arms by one arm per (label, policy), each with this scenario's model fields: for
+    /// tests that build a scenario by hand (scenarios are otherwise built only by validation).
+    #[doc(hidden)]
+    pub fn with_policies(mut self, arms: Vec<(&str, Policy)>) -> Scenario {
+        self.arms = arms
+            .into_iter()
+            .map(|(label, policy)| Arm {
+                label: label.to_owned(),
+                swept: Vec::new(),
+                policy,
+                principal: self.principal,
+                interest_rate: self.interest_rate,
+                recovery_rate: self.recovery_rate,
+                income: self.income.clone(),
+                risk: self.risk.clone(),
+                shocks: self.shocks.clone(),
+                dropout: self.dropout,
+                replace_departures: self.replace_departures,
+            })
+            .collect();
+        self
+    }
+
     /// Number of slots in village `v`.
     pub fn village_size(&self, v: u32) -> u32 {
         let (n, vs) = (self.borrowers, self.villages);
         n / vs + u32::from(v < n % vs)
+    }
+}
+
+impl Policy {
+    /// Members per group.
+    pub fn group_size(&self) -> u32 {
+        self.group_size
+    }
+    /// Joint or individual liability.
+    pub fn liability(&self) -> Liability {
+        self.liability
+    }
+    /// Share of surplus peers put towards shortfalls.
+    pub fn peer_cover(&self) -> f64 {
+        self.peer_cover
+    }
+    /// Exclusion after default.
+    pub fn exclusion_cycles(&self) -> Exclusion {
+        self.exclusion_cycles
+    }
+    /// Who a joint default excludes.
+    pub fn exclusion_scope(&self) -> ExclusionScope {
+        self.exclusion_scope
+    }
+    /// Reshuffled or persistent groups.
+    pub fn formation(&self) -> Formation {
+        self.formation
+    }
+    /// Random or assortative matching.
+    pub fn matching(&self) -> Matching {
+        self.matching
+    }
+}
+
+impl Shock {
+    /// Unique name.
+    pub fn name(&self) -> &str {
+        &self.name
+    }
+    /// Where it strikes.
+    pub fn scope(&self) -> ShockScope {
+        self.scope
+    }
+    /// Per-cycle probability, a number or a curve.
+    pub fn probability(&self) -> &ShockProbability {
+        &self.probability
+    }
+    /// Loading on the village factor.
+    pub fn village_correlation(&self) -> f64 {
+        self.village_correlation
+    }
+    /// Loading on the portfolio factor.
+    pub fn portfolio_correlation(&self) -> f64 {
+        self.portfolio_correlation
+    }
+    /// Share of a struck unit's members hit.
+    pub fn reach(&self) -> f64 {
+        self.reach
+    }
+    /// Share of income lost when hit.
+    pub fn severity(&self) -> &Distribution {
+        &self.severity
+    }
+    /// Stress windows, sorted by `from`.
+    pub fn stress(&self) -> &[StressWindow] {
+        &self.stress
+    }
+}
+
+impl StressWindow {
+    /// First cycle of the window.
+    pub fn from(&self) -> u32 {
+        self.from
+    }
+    /// Last cycle of the window.
+    pub fn to(&self) -> u32 {
+        self.to
+    }
+    /// The probability in force during the window.
+    pub fn probability(&self) -> f64 {
+        self.probability
     }
 }

@@ -1,14 +1,58 @@
 //! The scenario file as written: a serde mirror of the TOML text, before any range check.
 //!
-//! Keeping the file's shape apart from the validated model lets serde report wrong types and unknown
-//! fields with their path and line, while `validate` owns every range check and can quote each value
-//! exactly as it was written. Required fields are optional here so that a missing one is reported by
-//! its full path (`portfolio.borrowers`) instead of by the table that lacks it.
+//! Every scalar is kept with where it came from (`W<T>`: its byte span in the file, the `[sweep]`
+//! element that replaced it, or the command-line flag that overrode it), so that every refusal,
+//! range errors included, names the line and quotes the value exactly as written. Wrong types and
+//! unknown fields are refused here by serde (the model's enums derive `Deserialize`; distributions
+//! and curves are internally tagged enums with `deny_unknown_fields`). Required fields are optional
+//! here so that a missing one is reported by its full path (`portfolio.borrowers`).
 
-use super::ScenarioError;
+use super::{ExclusionScope, Formation, Liability, Matching, ScenarioError, ShockScope};
 use serde::Deserialize;
 use serde::de::{self, MapAccess, SeqAccess, Visitor};
 use std::fmt;
+use std::ops::Range;
+
+/// Where a raw value came from.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Origin {
+    /// Written in place, at these bytes of the file.
+    File(Range<usize>),
+    /// An element of a `[sweep]` list: `sweep.PATH[i]`, at these bytes of the file.
+    Swept { name: String, span: Range<usize> },
+    /// A command-line flag (`--replications`) and its argument as given.
+    Flag { flag: &'static str, text: String },
+}
+
+impl Origin {
+    /// Byte offset used to order two values ("the later one"); flags come after the whole file.
+    pub fn position(&self) -> usize {
+        match self {
+            Origin::File(s) | Origin::Swept { span: s, .. } => s.start,
+            Origin::Flag { .. } => usize::MAX,
+        }
+    }
+}
+
+/// A raw value and where it came from (the serde side is `toml::Spanned<T>`).
+#[derive(Debug, Clone, PartialEq)]
+pub struct W<T> {
+    /// The value.
+    pub value: T,
+    /// Where it was written.
+    pub origin: Origin,
+}
+
+impl<'de, T: Deserialize<'de>> Deserialize<'de> for W<T> {
+    fn deserialize<D: de::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        let spanned = toml::Spanned::<T>::deserialize(d)?;
+        let span = spanned.span();
+        Ok(W {
+            value: spanned.into_inner(),
+            origin: Origin::File(span),
+        })
+    }
+}
 
 /// A real number as written; TOML integers are accepted wherever a real number is expected.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -96,11 +140,10 @@ impl<'de> Deserialize<'de> for Int {
     }
 }
 
-/// A distribution as written: a bare number, or a table whose `kind` selects the parameters.
-#[derive(Debug, Clone, PartialEq)]
-pub enum RawDist {
-    /// A bare number, meaning a fixed value.
-    Number(Num),
+/// A distribution table, selected by `kind`.
+#[derive(Debug, Clone, PartialEq, Deserialize)]
+#[serde(tag = "kind", rename_all = "snake_case", deny_unknown_fields)]
+pub enum DistTable {
     /// `{ kind = "fixed", value }`.
     Fixed { value: Num },
     /// `{ kind = "uniform", low, high }`.
@@ -111,117 +154,20 @@ pub enum RawDist {
     Beta { mean: Num, sd: Num },
     /// `{ kind = "gamma", mean, cv }`.
     Gamma { mean: Num, cv: Num },
-    /// A `kind` this program does not know; `validate` refuses it, quoting the name.
-    Unknown { kind: String },
 }
 
-/// The distribution kinds and their parameters, in the order messages list them.
-const DIST_KINDS: [(&str, &[&str]); 5] = [
-    ("fixed", &["value"]),
-    ("uniform", &["low", "high"]),
-    ("lognormal", &["mean", "cv"]),
-    ("beta", &["mean", "sd"]),
-    ("gamma", &["mean", "cv"]),
-];
-
-#[derive(Deserialize)]
-#[serde(deny_unknown_fields, expecting = "a distribution table")]
-struct DistTable {
-    kind: Option<String>,
-    value: Option<Num>,
-    low: Option<Num>,
-    high: Option<Num>,
-    mean: Option<Num>,
-    cv: Option<Num>,
-    sd: Option<Num>,
-}
-
-impl DistTable {
-    fn into_dist(self) -> Result<RawDist, String> {
-        let Some(kind) = self.kind else {
-            return Err("a distribution table needs `kind` (fixed, uniform, lognormal, beta or gamma)".into());
-        };
-        let Some(&(_, params)) = DIST_KINDS.iter().find(|(k, _)| *k == kind) else {
-            return Ok(RawDist::Unknown { kind });
-        };
-        let given = [
-            ("value", self.value),
-            ("low", self.low),
-            ("high", self.high),
-            ("mean", self.mean),
-            ("cv", self.cv),
-            ("sd", self.sd),
-        ];
-        check_parameters(&format!("a {kind} distribution"), params, &given)?;
-        let get = |name: &str| given.iter().find(|(n, _)| *n == name).and_then(|(_, v)| *v);
-        let pair = |a: &str, b: &str| -> Result<(Num, Num), String> {
-            match (get(a), get(b)) {
-                (Some(x), Some(y)) => Ok((x, y)),
-                _ => Err(format!("a {kind} distribution needs `{a}` and `{b}`")),
-            }
-        };
-        Ok(match kind.as_str() {
-            "fixed" => RawDist::Fixed {
-                value: get("value").ok_or("a fixed distribution needs `value`")?,
-            },
-            "uniform" => pair("low", "high").map(|(low, high)| RawDist::Uniform { low, high })?,
-            "lognormal" => pair("mean", "cv").map(|(mean, cv)| RawDist::Lognormal { mean, cv })?,
-            "beta" => pair("mean", "sd").map(|(mean, sd)| RawDist::Beta { mean, sd })?,
-            _ => pair("mean", "cv").map(|(mean, cv)| RawDist::Gamma { mean, cv })?,
-        })
-    }
-}
-
-/// Refuses parameters that do not belong to `what` and reports the first missing one.
-fn check_parameters<T>(what: &str, params: &[&str], given: &[(&str, Option<T>)]) -> Result<(), String> {
-    let list = params
-        .iter()
-        .map(|p| format!("`{p}`"))
-        .collect::<Vec<_>>()
-        .join(" and ");
-    if let Some((name, _)) = given.iter().find(|(n, v)| v.is_some() && !params.contains(n)) {
-        return Err(format!("`{name}` is not a parameter of {what}, which takes {list}"));
-    }
-    if let Some(name) = params
-        .iter()
-        .find(|p| given.iter().any(|(n, v)| n == *p && v.is_none()))
-    {
-        return Err(format!("{what} needs `{name}` (it takes {list})"));
-    }
-    Ok(())
-}
-
-impl<'de> Deserialize<'de> for RawDist {
-    fn deserialize<D: de::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
-        struct V;
-        impl<'de> Visitor<'de> for V {
-            type Value = RawDist;
-            fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
-                f.write_str("a number or a distribution table such as { kind = \"uniform\", low = 0.5, high = 1.5 }")
-            }
-            fn visit_i64<E: de::Error>(self, v: i64) -> Result<RawDist, E> {
-                Num::deserialize(de::value::I64Deserializer::new(v)).map(RawDist::Number)
-            }
-            fn visit_u64<E: de::Error>(self, v: u64) -> Result<RawDist, E> {
-                Num::deserialize(de::value::U64Deserializer::new(v)).map(RawDist::Number)
-            }
-            fn visit_f64<E: de::Error>(self, v: f64) -> Result<RawDist, E> {
-                Ok(RawDist::Number(Num {
-                    value: v,
-                    integer: None,
-                }))
-            }
-            fn visit_map<A: MapAccess<'de>>(self, map: A) -> Result<RawDist, A::Error> {
-                let table = DistTable::deserialize(de::value::MapAccessDeserializer::new(map))?;
-                table.into_dist().map_err(de::Error::custom)
-            }
-        }
-        d.deserialize_any(V)
-    }
-}
-
-/// A group-size curve as written (member-scope shock probabilities only).
+/// A distribution as written: a bare number (a fixed value) or a table.
 #[derive(Debug, Clone, PartialEq)]
+pub enum RawDist {
+    /// A bare number, meaning a fixed value.
+    Number(Num),
+    /// A table with a `kind`.
+    Table(DistTable),
+}
+
+/// A group-size curve table, selected by `curve` (member-scope shock probabilities only).
+#[derive(Debug, Clone, PartialEq, Deserialize)]
+#[serde(tag = "curve", rename_all = "snake_case", deny_unknown_fields)]
 pub enum RawCurve {
     /// `{ curve = "constant", value }`.
     Constant { value: Num },
@@ -230,37 +176,12 @@ pub enum RawCurve {
     /// `{ curve = "power_plus_log", p }`.
     PowerPlusLog { p: Num },
     /// `{ curve = "table", values = { "2" = 0.08, ... } }`, keys kept as written and in file order.
-    Table { values: Vec<(String, Num)> },
-    /// A `curve` name this program does not know; `validate` refuses it, quoting the name.
-    Unknown { curve: String },
+    Table { values: NumTable },
 }
-
-impl RawCurve {
-    /// The curve as an inline TOML table, for messages that must quote it.
-    pub fn text(&self) -> String {
-        match self {
-            RawCurve::Constant { value } => format!("{{ curve = \"constant\", value = {} }}", value.text()),
-            RawCurve::Power { p } => format!("{{ curve = \"power\", p = {} }}", p.text()),
-            RawCurve::PowerPlusLog { p } => format!("{{ curve = \"power_plus_log\", p = {} }}", p.text()),
-            RawCurve::Table { values } => {
-                let entries: Vec<String> = values.iter().map(|(k, v)| format!("{k:?} = {}", v.text())).collect();
-                format!("{{ curve = \"table\", values = {{ {} }} }}", entries.join(", "))
-            }
-            RawCurve::Unknown { curve } => format!("{{ curve = {curve:?} }}"),
-        }
-    }
-}
-
-/// The curves and their parameters, in the order messages list them.
-const CURVES: [(&str, &[&str]); 4] = [
-    ("constant", &["value"]),
-    ("power", &["p"]),
-    ("power_plus_log", &["p"]),
-    ("table", &["values"]),
-];
 
 /// A table of numbers keyed by strings, kept in file order.
-struct NumTable(Vec<(String, Num)>);
+#[derive(Debug, Clone, PartialEq)]
+pub struct NumTable(pub Vec<(String, Num)>);
 
 impl<'de> Deserialize<'de> for NumTable {
     fn deserialize<D: de::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
@@ -282,47 +203,6 @@ impl<'de> Deserialize<'de> for NumTable {
     }
 }
 
-#[derive(Deserialize)]
-#[serde(deny_unknown_fields, expecting = "a group-size curve table")]
-struct CurveTable {
-    curve: Option<String>,
-    value: Option<Num>,
-    p: Option<Num>,
-    values: Option<NumTable>,
-}
-
-impl CurveTable {
-    fn into_curve(self) -> Result<RawCurve, String> {
-        let Some(curve) = self.curve else {
-            return Err("a group-size curve table needs `curve` (constant, power, power_plus_log or table)".into());
-        };
-        let Some(&(_, params)) = CURVES.iter().find(|(c, _)| *c == curve) else {
-            return Ok(RawCurve::Unknown { curve });
-        };
-        let given = [
-            ("value", self.value.map(|_| ())),
-            ("p", self.p.map(|_| ())),
-            ("values", self.values.as_ref().map(|_| ())),
-        ];
-        check_parameters(&format!("a {curve} curve"), params, &given)?;
-        let missing = || format!("a {curve} curve needs `{}`", params.first().copied().unwrap_or("?"));
-        Ok(match curve.as_str() {
-            "constant" => RawCurve::Constant {
-                value: self.value.ok_or_else(missing)?,
-            },
-            "power" => RawCurve::Power {
-                p: self.p.ok_or_else(missing)?,
-            },
-            "power_plus_log" => RawCurve::PowerPlusLog {
-                p: self.p.ok_or_else(missing)?,
-            },
-            _ => RawCurve::Table {
-                values: self.values.ok_or_else(missing)?.0,
-            },
-        })
-    }
-}
-
 /// A shock probability as written: a number, or a group-size curve table.
 #[derive(Debug, Clone, PartialEq)]
 pub enum RawProbability {
@@ -332,34 +212,53 @@ pub enum RawProbability {
     Curve(RawCurve),
 }
 
-impl<'de> Deserialize<'de> for RawProbability {
-    fn deserialize<D: de::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
-        struct V;
-        impl<'de> Visitor<'de> for V {
-            type Value = RawProbability;
-            fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
-                f.write_str("a probability or a group-size curve table such as { curve = \"power\", p = 0.5 }")
-            }
-            fn visit_i64<E: de::Error>(self, v: i64) -> Result<RawProbability, E> {
-                Num::deserialize(de::value::I64Deserializer::new(v)).map(RawProbability::Number)
-            }
-            fn visit_u64<E: de::Error>(self, v: u64) -> Result<RawProbability, E> {
-                Num::deserialize(de::value::U64Deserializer::new(v)).map(RawProbability::Number)
-            }
-            fn visit_f64<E: de::Error>(self, v: f64) -> Result<RawProbability, E> {
-                Ok(RawProbability::Number(Num {
-                    value: v,
-                    integer: None,
-                }))
-            }
-            fn visit_map<A: MapAccess<'de>>(self, map: A) -> Result<RawProbability, A::Error> {
-                let table = CurveTable::deserialize(de::value::MapAccessDeserializer::new(map))?;
-                table.into_curve().map(RawProbability::Curve).map_err(de::Error::custom)
+/// Deserialises "a number or a table": numbers through `number`, tables through `T`.
+macro_rules! number_or_table {
+    ($ty:ident, $number:path, $table:ty, $wrap:path, $expecting:expr) => {
+        impl<'de> Deserialize<'de> for $ty {
+            fn deserialize<D: de::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+                struct V;
+                impl<'de> Visitor<'de> for V {
+                    type Value = $ty;
+                    fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
+                        f.write_str($expecting)
+                    }
+                    fn visit_i64<E: de::Error>(self, v: i64) -> Result<$ty, E> {
+                        Num::deserialize(de::value::I64Deserializer::new(v)).map($number)
+                    }
+                    fn visit_u64<E: de::Error>(self, v: u64) -> Result<$ty, E> {
+                        Num::deserialize(de::value::U64Deserializer::new(v)).map($number)
+                    }
+                    fn visit_f64<E: de::Error>(self, v: f64) -> Result<$ty, E> {
+                        Ok($number(Num {
+                            value: v,
+                            integer: None,
+                        }))
+                    }
+                    fn visit_map<A: MapAccess<'de>>(self, map: A) -> Result<$ty, A::Error> {
+                        <$table>::deserialize(de::value::MapAccessDeserializer::new(map)).map($wrap)
+                    }
+                }
+                d.deserialize_any(V)
             }
         }
-        d.deserialize_any(V)
-    }
+    };
 }
+
+number_or_table!(
+    RawDist,
+    RawDist::Number,
+    DistTable,
+    RawDist::Table,
+    "a number or a distribution table such as { kind = \"uniform\", low = 0.5, high = 1.5 }"
+);
+number_or_table!(
+    RawProbability,
+    RawProbability::Number,
+    RawCurve,
+    RawProbability::Curve,
+    "a probability or a group-size curve table such as { curve = \"power\", p = 0.5 }"
+);
 
 /// `exclusion_cycles` as written: an integer, or a word that should be `"permanent"`.
 #[derive(Debug, Clone, PartialEq)]
@@ -368,16 +267,6 @@ pub enum RawExclusion {
     Cycles(i64),
     /// A word (only `"permanent"` is accepted by `validate`).
     Word(String),
-}
-
-impl RawExclusion {
-    /// The value the way the file wrote it.
-    pub fn text(&self) -> String {
-        match self {
-            RawExclusion::Cycles(n) => n.to_string(),
-            RawExclusion::Word(w) => format!("{w:?}"),
-        }
-    }
 }
 
 impl<'de> Deserialize<'de> for RawExclusion {
@@ -409,19 +298,19 @@ impl<'de> Deserialize<'de> for RawExclusion {
 #[serde(deny_unknown_fields, expecting = "a [[shock]] table")]
 pub struct RawShock {
     /// Required, unique, non-empty.
-    pub name: Option<String>,
+    pub name: Option<W<String>>,
     /// Required: member, group, village or portfolio.
-    pub scope: Option<String>,
+    pub scope: Option<W<ShockScope>>,
     /// Required: a number or (member scope) a curve.
-    pub probability: Option<RawProbability>,
+    pub probability: Option<W<RawProbability>>,
     /// Member scope only.
-    pub village_correlation: Option<Num>,
+    pub village_correlation: Option<W<Num>>,
     /// Member scope only.
-    pub portfolio_correlation: Option<Num>,
+    pub portfolio_correlation: Option<W<Num>>,
     /// Unit scopes only.
-    pub reach: Option<Num>,
+    pub reach: Option<W<Num>>,
     /// Share of income lost when hit.
-    pub severity: Option<RawDist>,
+    pub severity: Option<W<RawDist>>,
     /// Stress windows, in file order.
     #[serde(default, deserialize_with = "stress_list")]
     pub stress: Vec<RawStress>,
@@ -435,11 +324,11 @@ pub struct RawShock {
 )]
 pub struct RawStress {
     /// First cycle of the window.
-    pub from: Option<Int>,
+    pub from: Option<W<Int>>,
     /// Last cycle of the window.
-    pub to: Option<Int>,
+    pub to: Option<W<Int>>,
     /// Probability in force during the window.
-    pub probability: Option<Num>,
+    pub probability: Option<W<Num>>,
 }
 
 /// The `[portfolio]` table.
@@ -447,9 +336,9 @@ pub struct RawStress {
 #[serde(deny_unknown_fields, expecting = "a [portfolio] table")]
 pub struct RawPortfolio {
     /// Required: borrower slots.
-    pub borrowers: Option<Int>,
+    pub borrowers: Option<W<Int>>,
     /// Villages.
-    pub villages: Option<Int>,
+    pub villages: Option<W<Int>>,
 }
 
 /// The `[loan]` table.
@@ -457,11 +346,11 @@ pub struct RawPortfolio {
 #[serde(deny_unknown_fields, expecting = "a [loan] table")]
 pub struct RawLoan {
     /// Required: principal per member per cycle.
-    pub principal: Option<Num>,
+    pub principal: Option<W<Num>>,
     /// Flat interest per cycle.
-    pub interest_rate: Option<Num>,
+    pub interest_rate: Option<W<Num>>,
     /// Share of unpaid principal recovered.
-    pub recovery_rate: Option<Num>,
+    pub recovery_rate: Option<W<Num>>,
 }
 
 /// The `[borrowers]` table.
@@ -469,9 +358,9 @@ pub struct RawLoan {
 #[serde(deny_unknown_fields, expecting = "a [borrowers] table")]
 pub struct RawBorrowers {
     /// Income ratio distribution.
-    pub income: Option<RawDist>,
+    pub income: Option<W<RawDist>>,
     /// Risk multiplier distribution.
-    pub risk: Option<RawDist>,
+    pub risk: Option<W<RawDist>>,
 }
 
 /// The `[policy]` table.
@@ -479,19 +368,19 @@ pub struct RawBorrowers {
 #[serde(deny_unknown_fields, expecting = "a [policy] table")]
 pub struct RawPolicy {
     /// Members per group.
-    pub group_size: Option<Int>,
+    pub group_size: Option<W<Int>>,
     /// joint or individual.
-    pub liability: Option<String>,
+    pub liability: Option<W<Liability>>,
     /// Share of surplus put towards peers' shortfalls.
-    pub peer_cover: Option<Num>,
+    pub peer_cover: Option<W<Num>>,
     /// Cycles excluded after default, or "permanent".
-    pub exclusion_cycles: Option<RawExclusion>,
+    pub exclusion_cycles: Option<W<RawExclusion>>,
     /// group or defaulters.
-    pub exclusion_scope: Option<String>,
+    pub exclusion_scope: Option<W<ExclusionScope>>,
     /// reshuffle or persistent.
-    pub formation: Option<String>,
+    pub formation: Option<W<Formation>>,
     /// random or assortative.
-    pub matching: Option<String>,
+    pub matching: Option<W<Matching>>,
 }
 
 /// The `[pool]` table.
@@ -499,99 +388,108 @@ pub struct RawPolicy {
 #[serde(deny_unknown_fields, expecting = "a [pool] table")]
 pub struct RawPool {
     /// Per-cycle departure probability.
-    pub dropout: Option<Num>,
+    pub dropout: Option<W<Num>>,
     /// Whether emptied slots are refilled.
-    pub replace_departures: Option<bool>,
+    pub replace_departures: Option<W<bool>>,
 }
 
-/// The `[policy]` field names, in the order messages list them.
-pub const POLICY_FIELDS: [&str; 7] = [
-    "group_size",
-    "liability",
-    "peer_cover",
-    "exclusion_cycles",
-    "exclusion_scope",
-    "formation",
-    "matching",
-];
-
-/// One swept field and its alternative values, each element typed like the `[policy]` field.
+/// One `[sweep]` entry: the path as written (dotted and quoted keys joined with `.`), its list of
+/// alternative values, and where the list was written (arms follow the order of these lines).
 #[derive(Debug, Clone, PartialEq)]
-pub enum RawAxis {
-    /// `group_size = [...]`.
-    GroupSize(Vec<Int>),
-    /// `liability = [...]`.
-    Liability(Vec<String>),
-    /// `peer_cover = [...]`.
-    PeerCover(Vec<Num>),
-    /// `exclusion_cycles = [...]`.
-    ExclusionCycles(Vec<RawExclusion>),
-    /// `exclusion_scope = [...]`.
-    ExclusionScope(Vec<String>),
-    /// `formation = [...]`.
-    Formation(Vec<String>),
-    /// `matching = [...]`.
-    Matching(Vec<String>),
+pub struct RawAxis {
+    /// The key path, such as `group_size` or `shock.illness.village_correlation`.
+    pub path: String,
+    /// The listed values, each with its own span.
+    pub values: Vec<W<toml::Value>>,
+    /// Where the list's first value was written (none for an empty list).
+    pub span: Option<Range<usize>>,
 }
 
-impl RawAxis {
-    /// The swept field's name as written.
-    pub fn key(&self) -> &'static str {
-        match self {
-            RawAxis::GroupSize(_) => "group_size",
-            RawAxis::Liability(_) => "liability",
-            RawAxis::PeerCover(_) => "peer_cover",
-            RawAxis::ExclusionCycles(_) => "exclusion_cycles",
-            RawAxis::ExclusionScope(_) => "exclusion_scope",
-            RawAxis::Formation(_) => "formation",
-            RawAxis::Matching(_) => "matching",
-        }
-    }
-
-    /// Number of alternative values listed.
-    pub fn len(&self) -> usize {
-        match self {
-            RawAxis::GroupSize(v) => v.len(),
-            RawAxis::PeerCover(v) => v.len(),
-            RawAxis::ExclusionCycles(v) => v.len(),
-            RawAxis::Liability(v) | RawAxis::ExclusionScope(v) | RawAxis::Formation(v) | RawAxis::Matching(v) => {
-                v.len()
-            }
-        }
-    }
-
-    /// Each listed value the way the file wrote it, for messages.
-    pub fn texts(&self) -> Vec<String> {
-        let words = |v: &[String]| v.iter().map(|w| format!("{w:?}")).collect();
-        match self {
-            RawAxis::GroupSize(v) => v.iter().map(|n| n.0.to_string()).collect(),
-            RawAxis::PeerCover(v) => v.iter().map(Num::text).collect(),
-            RawAxis::ExclusionCycles(v) => v.iter().map(RawExclusion::text).collect(),
-            RawAxis::Liability(v) | RawAxis::ExclusionScope(v) | RawAxis::Formation(v) | RawAxis::Matching(v) => {
-                words(v)
-            }
-        }
-    }
-
-    /// Whether the list is empty (an error `validate` reports).
-    pub fn is_empty(&self) -> bool {
-        self.len() == 0
-    }
-}
-
-/// The `[sweep]` table: the swept fields in the order they were written.
+/// The `[sweep]` table, flattened to one axis per list and sorted by the line of each list.
 #[derive(Debug, Clone, Default, PartialEq)]
 pub struct RawSweep {
-    /// One entry per key, in file order.
+    /// One entry per list, in the order of their lines in the file.
     pub axes: Vec<RawAxis>,
 }
 
-/// A list of alternative values; the name makes a scalar-instead-of-list mistake readable.
-struct Alternatives<T>(Vec<T>);
+/// A node of the `[sweep]` tree: a sub-table (from a dotted key or a `[sweep.x]` header) or a list.
+/// Implicit tables of dotted keys have no span in the TOML reader, so a list is placed by the span of
+/// its first element (on the key's line for any list written on one line).
+enum SweepNode {
+    Table(Vec<(String, SweepNode)>),
+    List(Vec<W<toml::Value>>),
+}
 
-impl<'de, T: Deserialize<'de>> Deserialize<'de> for Alternatives<T> {
+impl<'de> Deserialize<'de> for SweepNode {
     fn deserialize<D: de::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
-        list_of(d, "a list of alternative values, such as [2, 3, 4]").map(Alternatives)
+        struct V;
+        impl<'de> Visitor<'de> for V {
+            type Value = SweepNode;
+            fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
+                f.write_str("a list of alternative values, such as [2, 3, 4]")
+            }
+            fn visit_map<A: MapAccess<'de>>(self, mut map: A) -> Result<SweepNode, A::Error> {
+                let mut out = Vec::new();
+                while let Some(key) = map.next_key::<String>()? {
+                    out.push((key, map.next_value::<SweepNode>()?));
+                }
+                Ok(SweepNode::Table(out))
+            }
+            fn visit_seq<A: SeqAccess<'de>>(self, mut seq: A) -> Result<SweepNode, A::Error> {
+                let mut out = Vec::new();
+                while let Some(x) = seq.next_element::<W<toml::Value>>()? {
+                    out.push(x);
+                }
+                Ok(SweepNode::List(out))
+            }
+        }
+        d.deserialize_any(V)
+    }
+}
+
+impl<'de> Deserialize<'de> for RawSweep {
+    fn deserialize<D: de::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        fn flatten(prefix: &str, entries: Vec<(String, SweepNode)>, out: &mut Vec<RawAxis>) {
+            for (key, node) in entries {
+                let path = if prefix.is_empty() {
+                    key
+                } else {
+                    format!("{prefix}.{key}")
+                };
+                match node {
+                    SweepNode::Table(inner) => flatten(&path, inner, out),
+                    SweepNode::List(values) => {
+                        let span = match values.first().map(|v| &v.origin) {
+                            Some(Origin::File(s)) => Some(s.clone()),
+                            _ => None,
+                        };
+                        out.push(RawAxis { path, values, span })
+                    }
+                }
+            }
+        }
+        match SweepNode::deserialize(d)? {
+            SweepNode::Table(entries) => {
+                let mut axes = Vec::new();
+                flatten("", entries, &mut axes);
+                // Stable: an empty list (no span) keeps its place after the list before it.
+                let mut last = 0;
+                let mut keyed: Vec<(usize, RawAxis)> = axes
+                    .into_iter()
+                    .map(|a| {
+                        last = a.span.as_ref().map_or(last, |s| s.start);
+                        (last, a)
+                    })
+                    .collect();
+                keyed.sort_by_key(|(at, _)| *at);
+                Ok(RawSweep {
+                    axes: keyed.into_iter().map(|(_, a)| a).collect(),
+                })
+            }
+            SweepNode::List(_) => Err(de::Error::custom(
+                "expected a table of fields, each with a list of alternative values",
+            )),
+        }
     }
 }
 
@@ -628,113 +526,59 @@ fn stress_list<'de, D: de::Deserializer<'de>>(d: D) -> Result<Vec<RawStress>, D:
     )
 }
 
-/// A `[sweep]` key; unknown keys fail while the key is read, so the error path ends with the key.
-enum PolicyField {
-    GroupSize,
-    Liability,
-    PeerCover,
-    ExclusionCycles,
-    ExclusionScope,
-    Formation,
-    Matching,
-}
-
-impl<'de> Deserialize<'de> for PolicyField {
-    fn deserialize<D: de::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
-        struct V;
-        impl Visitor<'_> for V {
-            type Value = PolicyField;
-            fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
-                f.write_str("a [policy] field name")
-            }
-            fn visit_str<E: de::Error>(self, v: &str) -> Result<PolicyField, E> {
-                Ok(match v {
-                    "group_size" => PolicyField::GroupSize,
-                    "liability" => PolicyField::Liability,
-                    "peer_cover" => PolicyField::PeerCover,
-                    "exclusion_cycles" => PolicyField::ExclusionCycles,
-                    "exclusion_scope" => PolicyField::ExclusionScope,
-                    "formation" => PolicyField::Formation,
-                    "matching" => PolicyField::Matching,
-                    other => {
-                        return Err(E::custom(format!(
-                            "`{other}` is not a [policy] field; a sweep may list {}",
-                            POLICY_FIELDS.join(", ")
-                        )));
-                    }
-                })
-            }
-        }
-        d.deserialize_identifier(V)
-    }
-}
-
-impl<'de> Deserialize<'de> for RawSweep {
-    fn deserialize<D: de::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
-        struct V;
-        impl<'de> Visitor<'de> for V {
-            type Value = RawSweep;
-            fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
-                f.write_str("a table of [policy] fields, each with a list of alternative values")
-            }
-            fn visit_map<A: MapAccess<'de>>(self, mut map: A) -> Result<RawSweep, A::Error> {
-                let mut axes = Vec::new();
-                while let Some(field) = map.next_key::<PolicyField>()? {
-                    axes.push(match field {
-                        PolicyField::GroupSize => RawAxis::GroupSize(map.next_value::<Alternatives<_>>()?.0),
-                        PolicyField::Liability => RawAxis::Liability(map.next_value::<Alternatives<_>>()?.0),
-                        PolicyField::PeerCover => RawAxis::PeerCover(map.next_value::<Alternatives<_>>()?.0),
-                        PolicyField::ExclusionCycles => {
-                            RawAxis::ExclusionCycles(map.next_value::<Alternatives<_>>()?.0)
-                        }
-                        PolicyField::ExclusionScope => RawAxis::ExclusionScope(map.next_value::<Alternatives<_>>()?.0),
-                        PolicyField::Formation => RawAxis::Formation(map.next_value::<Alternatives<_>>()?.0),
-                        PolicyField::Matching => RawAxis::Matching(map.next_value::<Alternatives<_>>()?.0),
-                    });
-                }
-                Ok(RawSweep { axes })
-            }
-        }
-        d.deserialize_any(V)
-    }
-}
-
 /// The whole file as written.
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields, expecting = "a scenario document")]
 pub struct RawScenario {
     /// Free text.
-    pub name: Option<String>,
+    pub name: Option<W<String>>,
     /// Master seed (a TOML integer, so at most i64::MAX).
-    pub seed: Option<Int>,
+    pub seed: Option<W<Int>>,
     /// Required.
-    pub replications: Option<Int>,
+    pub replications: Option<W<Int>>,
     /// Required.
-    pub cycles: Option<Int>,
+    pub cycles: Option<W<Int>>,
     /// Cycles simulated first and not counted.
-    pub warmup_cycles: Option<Int>,
+    pub warmup_cycles: Option<W<Int>>,
     /// `[portfolio]`; required for `borrowers`.
-    pub portfolio: Option<RawPortfolio>,
+    #[serde(default)]
+    pub portfolio: RawPortfolio,
     /// `[loan]`; required for `principal`.
-    pub loan: Option<RawLoan>,
+    #[serde(default)]
+    pub loan: RawLoan,
     /// `[borrowers]`.
-    pub borrowers: Option<RawBorrowers>,
+    #[serde(default)]
+    pub borrowers: RawBorrowers,
     /// `[[shock]]` tables, in file order.
     #[serde(default, deserialize_with = "shock_list")]
     pub shock: Vec<RawShock>,
     /// `[policy]`.
-    pub policy: Option<RawPolicy>,
+    #[serde(default)]
+    pub policy: RawPolicy,
     /// `[pool]`.
-    pub pool: Option<RawPool>,
+    #[serde(default)]
+    pub pool: RawPool,
     /// `[sweep]`.
-    pub sweep: Option<RawSweep>,
+    #[serde(default)]
+    pub sweep: RawSweep,
 }
 
 /// Parses scenario text into its raw mirror; TOML syntax errors report the line, wrong types and
 /// unknown fields report the field path too.
 pub fn parse(text: &str, origin: &str) -> Result<RawScenario, ScenarioError> {
     serde_path_to_error::deserialize(toml::Deserializer::new(text)).map_err(|err| {
-        let mut path = err.path().to_string();
+        // `toml::Spanned` reads its value under private keys; they are no part of the field path.
+        let mut path = err
+            .path()
+            .to_string()
+            .split('.')
+            .filter(|seg| !seg.starts_with("$__serde_spanned_private"))
+            .collect::<Vec<_>>()
+            .join(".");
+        path = path.replace(".[", "[");
+        if path.is_empty() {
+            path = ".".into();
+        }
         let inner = err.into_inner();
         let span = inner.span();
         let line = span.clone().map(|span| line_of(text, span.start));
@@ -751,31 +595,35 @@ pub fn parse(text: &str, origin: &str) -> Result<RawScenario, ScenarioError> {
                 message = format!("invalid type: date-time{rest}");
             }
         }
-        let location = match (line, path.as_str()) {
-            (Some(line), ".") => format!("line {line}: "),
-            (Some(line), path) => format!("line {line}, field {path}: "),
-            (None, ".") => String::new(),
-            (None, path) => format!("field {path}: "),
-        };
         ScenarioError::Syntax {
             file: origin.to_owned(),
-            location,
+            location: location(line, &path),
             message,
         }
     })
+}
+
+/// `line N, field PATH: ` with whichever parts are known.
+pub fn location(line: Option<usize>, path: &str) -> String {
+    match (line, path) {
+        (Some(line), "." | "") => format!("line {line}: "),
+        (Some(line), path) => format!("line {line}, field {path}: "),
+        (None, "." | "") => String::new(),
+        (None, path) => format!("field {path}: "),
+    }
 }
 
 /// The key under which the TOML reader presents a date-time to serde.
 const DATETIME_KEY: &str = "$__toml_private_datetime";
 
 /// The 1-based line holding byte `offset`; offsets past the end count as the last line.
-fn line_of(text: &str, offset: usize) -> usize {
+pub fn line_of(text: &str, offset: usize) -> usize {
     let end = offset.min(text.len());
     1 + text.as_bytes()[..end].iter().filter(|&&b| b == b'\n').count()
 }
 
 /// Joins a multi-line parser message into one line, so each error prints as a single line.
-fn one_line(message: &str) -> String {
+pub fn one_line(message: &str) -> String {
     message
         .lines()
         .map(str::trim)
@@ -805,35 +653,16 @@ mod tests {
     }
 
     #[test]
-    fn integers_are_accepted_as_numbers_and_quoted_as_written() {
+    fn integers_are_accepted_as_numbers_and_keep_their_span() {
         let raw = parse(MINIMAL, "case.toml").unwrap();
-        let principal = raw.loan.unwrap().principal.unwrap();
-        assert_eq!(principal.value, 100.0);
-        assert_eq!(principal.text(), "100");
-        assert_eq!(
-            Num {
-                value: 2.0,
-                integer: None
-            }
-            .text(),
-            "2.0"
-        );
-        assert_eq!(
-            Num {
-                value: f64::NAN,
-                integer: None
-            }
-            .text(),
-            "nan"
-        );
-        assert_eq!(
-            Num {
-                value: f64::NEG_INFINITY,
-                integer: None
-            }
-            .text(),
-            "-inf"
-        );
+        let principal = raw.loan.principal.unwrap();
+        assert_eq!(principal.value.value, 100.0);
+        assert_eq!(principal.value.text(), "100");
+        let at = MINIMAL.find("100").unwrap();
+        assert_eq!(principal.origin, Origin::File(at..at + 3));
+        assert_eq!(float_text(2.0), "2.0");
+        assert_eq!(float_text(f64::NAN), "nan");
+        assert_eq!(float_text(f64::NEG_INFINITY), "-inf");
     }
 
     #[test]
@@ -862,10 +691,16 @@ mod tests {
     }
 
     #[test]
-    fn unknown_field_names_the_field() {
+    fn unknown_field_and_unknown_word_name_the_field() {
         let (location, message) = syntax(&format!("{MINIMAL}[policy]\ngroupsize = 4\n"));
-        assert!(location.contains("field policy.groupsize"), "{location}");
+        assert_eq!(location, "line 8, field policy.groupsize: ");
         assert!(message.contains("unknown field `groupsize`"), "{message}");
+        let (location, message) = syntax(&format!("{MINIMAL}[policy]\nliability = \"shared\"\n"));
+        assert_eq!(location, "line 8, field policy.liability: ");
+        assert!(
+            message.contains("unknown variant `shared`, expected `joint` or `individual`"),
+            "{message}"
+        );
     }
 
     #[test]
@@ -873,90 +708,81 @@ mod tests {
         let (location, message) = syntax(&format!(
             "{MINIMAL}[borrowers]\nincome = {{ kind = \"uniform\", low = 1, mean = 2 }}\n"
         ));
-        assert!(location.contains("field borrowers.income"), "{location}");
-        assert!(
-            message.contains("`mean` is not a parameter of a uniform distribution"),
-            "{message}"
-        );
+        assert_eq!(location, "line 8, field borrowers.income: ");
+        assert!(message.contains("unknown field `mean`"), "{message}");
         let (_, message) = syntax(&format!(
             "{MINIMAL}[borrowers]\nrisk = {{ kind = \"gamma\", mean = 2 }}\n"
         ));
-        assert!(message.contains("a gamma distribution needs `cv`"), "{message}");
+        assert!(message.contains("missing field `cv`"), "{message}");
         let (_, message) = syntax(&format!("{MINIMAL}[borrowers]\nrisk = {{ mean = 2 }}\n"));
-        assert!(message.contains("needs `kind`"), "{message}");
-        let (location, message) = syntax(&format!(
-            "{MINIMAL}[borrowers]\nrisk = {{ kind = \"beta\", mean = 0.5, sd = \"x\" }}\n"
-        ));
-        assert!(location.contains("field borrowers.risk.sd"), "{location}");
-        assert!(message.contains("expected a number"), "{message}");
+        assert!(message.contains("missing field `kind`"), "{message}");
+        let (_, message) = syntax(&format!("{MINIMAL}[borrowers]\nrisk = {{ kind = \"weibull\" }}\n"));
+        assert!(message.contains("unknown variant `weibull`"), "{message}");
     }
 
     #[test]
     fn distribution_forms_parse() {
         let text =
             format!("{MINIMAL}[borrowers]\nincome = {{ kind = \"lognormal\", mean = 1.3, cv = 0.4 }}\nrisk = 2\n");
-        let b = parse(&text, "case.toml").unwrap().borrowers.unwrap();
-        assert!(matches!(b.income, Some(RawDist::Lognormal { .. })));
-        assert!(matches!(b.risk, Some(RawDist::Number(Num { integer: Some(2), .. }))));
-        let text = format!("{MINIMAL}[borrowers]\nincome = {{ kind = \"weibull\" }}\n");
-        let b = parse(&text, "case.toml").unwrap().borrowers.unwrap();
-        assert_eq!(b.income, Some(RawDist::Unknown { kind: "weibull".into() }));
+        let b = parse(&text, "case.toml").unwrap().borrowers;
+        assert!(matches!(
+            b.income.unwrap().value,
+            RawDist::Table(DistTable::Lognormal { .. })
+        ));
+        assert!(matches!(
+            b.risk.unwrap().value,
+            RawDist::Number(Num { integer: Some(2), .. })
+        ));
     }
 
     #[test]
-    fn curve_tables_keep_key_order_and_report_value_paths() {
+    fn curve_tables_keep_key_order() {
         let shock = "[[shock]]\nname = \"a\"\nscope = \"member\"\n";
         let text = format!(
             "{MINIMAL}{shock}probability = {{ curve = \"table\", values = {{ \"3\" = 0.06, \"2\" = 0.08 }} }}\n"
         );
         let raw = parse(&text, "case.toml").unwrap();
-        match &raw.shock[0].probability {
-            Some(RawProbability::Curve(RawCurve::Table { values })) => {
-                let keys: Vec<&str> = values.iter().map(|(k, _)| k.as_str()).collect();
+        match &raw.shock[0].probability.as_ref().unwrap().value {
+            RawProbability::Curve(RawCurve::Table { values }) => {
+                let keys: Vec<&str> = values.0.iter().map(|(k, _)| k.as_str()).collect();
                 assert_eq!(keys, ["3", "2"]);
             }
             other => panic!("unexpected {other:?}"),
         }
-        let text = format!("{MINIMAL}{shock}probability = {{ curve = \"table\", values = {{ \"2\" = true }} }}\n");
-        let (location, _) = syntax(&text);
-        assert!(location.contains("field shock[0].probability.values.2"), "{location}");
         let text = format!("{MINIMAL}{shock}probability = {{ curve = \"power\", value = 0.5 }}\n");
-        let (_, message) = syntax(&text);
-        assert!(
-            message.contains("`value` is not a parameter of a power curve"),
-            "{message}"
-        );
+        let (location, message) = syntax(&text);
+        assert_eq!(location, "line 10, field shock[0].probability: ");
+        assert!(message.contains("unknown field `value`"), "{message}");
     }
 
     #[test]
-    fn sweep_keeps_key_order_and_types_each_element() {
-        let text = format!("{MINIMAL}[sweep]\nexclusion_cycles = [0, \"permanent\"]\ngroup_size = [3, 2]\n");
-        let sweep = parse(&text, "case.toml").unwrap().sweep.unwrap();
-        let keys: Vec<&str> = sweep.axes.iter().map(RawAxis::key).collect();
-        assert_eq!(keys, ["exclusion_cycles", "group_size"]);
-        assert_eq!(sweep.axes[1], RawAxis::GroupSize(vec![Int(3), Int(2)]));
-
-        let (location, message) = syntax(&format!("{MINIMAL}[sweep]\npeer_cover = [0.1, \"half\"]\n"));
-        assert!(location.contains("field sweep.peer_cover[1]"), "{location}");
-        assert!(message.contains("expected a number"), "{message}");
+    fn sweep_axes_follow_the_lines_of_their_keys() {
+        let text = format!(
+            "{MINIMAL}[[shock]]\nname = \"ill\"\nscope = \"member\"\nprobability = 0.1\n[sweep]\nshock.ill.reach = [1]\ngroup_size = [3, 2]\n\"shock.ill.village_correlation\" = [0.1]\nshock.ill.probability = [0.2]\n"
+        );
+        let sweep = parse(&text, "case.toml").unwrap().sweep;
+        let keys: Vec<&str> = sweep.axes.iter().map(|a| a.path.as_str()).collect();
+        assert_eq!(
+            keys,
+            [
+                "shock.ill.reach",
+                "group_size",
+                "shock.ill.village_correlation",
+                "shock.ill.probability"
+            ]
+        );
+        assert_eq!(sweep.axes[1].values[1].value, toml::Value::Integer(2));
 
         let (location, message) = syntax(&format!("{MINIMAL}[sweep]\ngroup_size = 4\n"));
-        assert!(location.contains("field sweep.group_size"), "{location}");
+        assert_eq!(location, "line 8, field sweep.group_size: ");
         assert!(message.contains("expected a list of alternative values"), "{message}");
-    }
-
-    #[test]
-    fn unknown_sweep_key_names_the_key() {
-        let (location, message) = syntax(&format!("{MINIMAL}[sweep]\nprincipal = [100, 200]\n"));
-        assert!(location.contains("field sweep.principal"), "{location}");
-        assert!(message.contains("`principal` is not a [policy] field"), "{message}");
     }
 
     #[test]
     fn exclusion_accepts_integers_and_words() {
         let text = format!("{MINIMAL}[policy]\nexclusion_cycles = \"forever\"\n");
-        let p = parse(&text, "case.toml").unwrap().policy.unwrap();
-        assert_eq!(p.exclusion_cycles, Some(RawExclusion::Word("forever".into())));
+        let p = parse(&text, "case.toml").unwrap().policy;
+        assert_eq!(p.exclusion_cycles.unwrap().value, RawExclusion::Word("forever".into()));
         let (_, message) = syntax(&format!("{MINIMAL}[policy]\nexclusion_cycles = 1.5\n"));
         assert!(
             message.contains("expected an integer >= 0 or \"permanent\""),

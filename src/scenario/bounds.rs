@@ -1,0 +1,163 @@
+//! The bounds table: one line per scalar field, with what it accepts and whether (and how) a
+//! `[sweep]` list may vary it. A field written in place and a swept value go through the same line.
+
+use super::limits::{MAX_BORROWERS, MAX_TOTAL_CYCLES};
+use super::raw::{RawScenario, W};
+use serde::de::DeserializeOwned;
+
+/// Which values a field accepts; every real bound refuses NaN and infinities.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Bound {
+    /// Finite and > 0.
+    Positive,
+    /// Finite and >= 0.
+    NonNegative,
+    /// In [0, 1], read as a probability.
+    Probability,
+    /// In [0, 1], read as a share.
+    Share,
+    /// In [0, 1), read as a probability.
+    ProbabilityBelowOne,
+    /// An integer in [min, max] (a max of `u32::MAX` only reflects the storage type).
+    Count(u32, u32),
+    /// A seed: an integer in [0, i64::MAX] (a TOML integer).
+    Seed,
+    /// Any value of the field's type (a word from a fixed list, a flag, a distribution); the type
+    /// and the cross-field rules are checked where the field is read.
+    Typed(&'static str),
+}
+
+impl Bound {
+    /// Whether a real number lies within the bound.
+    pub fn admits(self, x: f64) -> bool {
+        match self {
+            Bound::Positive => x.is_finite() && x > 0.0,
+            Bound::NonNegative => x.is_finite() && x >= 0.0,
+            Bound::Probability | Bound::Share => (0.0..=1.0).contains(&x),
+            Bound::ProbabilityBelowOne => (0.0..1.0).contains(&x),
+            Bound::Count(min, max) => x.fract() == 0.0 && x >= f64::from(min) && x <= f64::from(max),
+            Bound::Seed => x.fract() == 0.0 && x >= 0.0 && x <= i64::MAX as f64,
+            Bound::Typed(_) => true,
+        }
+    }
+
+    /// What is allowed, as error messages say it.
+    pub fn text(self) -> String {
+        match self {
+            Bound::Positive => "a finite number > 0".into(),
+            Bound::NonNegative => "a finite number >= 0".into(),
+            Bound::Probability => "a probability in [0, 1]".into(),
+            Bound::Share => "a share in [0, 1]".into(),
+            Bound::ProbabilityBelowOne => "a probability in [0, 1)".into(),
+            Bound::Count(min, u32::MAX) => format!("an integer >= {min}"),
+            Bound::Count(min, max) => format!("an integer in [{min}, {max}]"),
+            Bound::Seed => format!("an integer in [0, {}] (a TOML integer)", i64::MAX),
+            Bound::Typed(allowed) => allowed.into(),
+        }
+    }
+}
+
+/// Puts a swept value (shock index, value) into the raw scenario, typed like the field; the error is
+/// the type error's message.
+pub type Setter = fn(&mut RawScenario, usize, W<toml::Value>) -> Result<(), String>;
+
+/// One line of the table.
+pub struct Field {
+    /// Path as `[sweep]` writes it; `*` stands for a shock's name (or a stress window's index).
+    pub path: &'static str,
+    /// What the field accepts.
+    pub bound: Bound,
+    /// How a swept value replaces it; `None` for fields that cannot be swept.
+    pub sweep: Option<Setter>,
+    /// Whether a swept value may replace only a plain number (never a table such as a curve).
+    pub plain_only: bool,
+}
+
+const fn line(path: &'static str, bound: Bound, sweep: Option<Setter>) -> Field {
+    Field {
+        path,
+        bound,
+        sweep,
+        plain_only: false,
+    }
+}
+
+const fn plain(path: &'static str, bound: Bound, sweep: Setter) -> Field {
+    Field {
+        path,
+        bound,
+        sweep: Some(sweep),
+        plain_only: true,
+    }
+}
+
+/// Types a swept value like the field and puts it in place, keeping where it was written.
+fn put<T: DeserializeOwned>(slot: &mut Option<W<T>>, v: W<toml::Value>) -> Result<(), String> {
+    let value = T::deserialize(v.value).map_err(|e| e.message().to_owned())?;
+    *slot = Some(W {
+        value,
+        origin: v.origin,
+    });
+    Ok(())
+}
+
+/// Every scalar field of a scenario file. To add a field: one line here (and see DEVELOPERS.md).
+#[rustfmt::skip]
+pub const FIELDS: &[Field] = &[
+    line("seed", Bound::Seed, None),
+    line("replications", Bound::Count(1, u32::MAX), None),
+    line("cycles", Bound::Count(1, MAX_TOTAL_CYCLES), None),
+    line("warmup_cycles", Bound::Count(0, MAX_TOTAL_CYCLES), None),
+    line("portfolio.borrowers", Bound::Count(1, MAX_BORROWERS), None),
+    line("portfolio.villages", Bound::Count(1, MAX_BORROWERS), None),
+    line("loan.principal", Bound::Positive, Some(|r, _, v| put(&mut r.loan.principal, v))),
+    line("loan.interest_rate", Bound::NonNegative, Some(|r, _, v| put(&mut r.loan.interest_rate, v))),
+    line("loan.recovery_rate", Bound::Share, Some(|r, _, v| put(&mut r.loan.recovery_rate, v))),
+    plain("borrowers.income", Bound::NonNegative, |r, _, v| put(&mut r.borrowers.income, v)),
+    plain("borrowers.risk", Bound::NonNegative, |r, _, v| put(&mut r.borrowers.risk, v)),
+    plain("shock.*.probability", Bound::Probability, |r, i, v| put(&mut r.shock[i].probability, v)),
+    line("shock.*.village_correlation", Bound::NonNegative, Some(|r, i, v| put(&mut r.shock[i].village_correlation, v))),
+    line("shock.*.portfolio_correlation", Bound::NonNegative, Some(|r, i, v| put(&mut r.shock[i].portfolio_correlation, v))),
+    line("shock.*.reach", Bound::Share, Some(|r, i, v| put(&mut r.shock[i].reach, v))),
+    plain("shock.*.severity", Bound::Share, |r, i, v| put(&mut r.shock[i].severity, v)),
+    line("shock.*.stress.*.probability", Bound::Probability, None),
+    line("policy.group_size", Bound::Count(1, u32::MAX), Some(|r, _, v| put(&mut r.policy.group_size, v))),
+    line("policy.liability", Bound::Typed("joint or individual"), Some(|r, _, v| put(&mut r.policy.liability, v))),
+    line("policy.peer_cover", Bound::Share, Some(|r, _, v| put(&mut r.policy.peer_cover, v))),
+    line("policy.exclusion_cycles", Bound::Typed("an integer >= 0, or \"permanent\""), Some(|r, _, v| put(&mut r.policy.exclusion_cycles, v))),
+    line("policy.exclusion_scope", Bound::Typed("group or defaulters"), Some(|r, _, v| put(&mut r.policy.exclusion_scope, v))),
+    line("policy.formation", Bound::Typed("reshuffle or persistent"), Some(|r, _, v| put(&mut r.policy.formation, v))),
+    line("policy.matching", Bound::Typed("random or assortative"), Some(|r, _, v| put(&mut r.policy.matching, v))),
+    line("pool.dropout", Bound::ProbabilityBelowOne, Some(|r, _, v| put(&mut r.pool.dropout, v))),
+    line("pool.replace_departures", Bound::Typed("true or false"), Some(|r, _, v| put(&mut r.pool.replace_departures, v))),
+];
+
+/// The table's line for `path` (with `*` for a shock's name).
+pub fn field(path: &str) -> Option<&'static Field> {
+    FIELDS.iter().find(|f| f.path == path)
+}
+
+/// The bound of a field the validator reads; every such path has a line in the table.
+pub fn bound(path: &str) -> Bound {
+    field(path).map_or_else(|| panic!("no line for {path} in the bounds table"), |f| f.bound)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn paths_are_unique() {
+        for (i, f) in FIELDS.iter().enumerate() {
+            assert!(FIELDS[..i].iter().all(|g| g.path != f.path), "{} twice", f.path);
+        }
+    }
+
+    #[test]
+    fn texts_say_what_is_allowed() {
+        assert_eq!(Bound::Count(1, u32::MAX).text(), "an integer >= 1");
+        assert_eq!(Bound::Count(0, 9).text(), "an integer in [0, 9]");
+        assert!(!Bound::ProbabilityBelowOne.admits(1.0));
+        assert!(!Bound::NonNegative.admits(f64::INFINITY));
+    }
+}
