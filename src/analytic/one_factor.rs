@@ -9,8 +9,9 @@
 
 use super::quadrature::{hermite_until_stable, kronrod_adaptive};
 use super::tolerance::QUADRATURE_TARGET;
-use super::{AnalyticError, accurate_normal, bad, check_correlation, check_probability, normal, optimum};
+use super::{AnalyticError, bad, check_correlation, check_probability, normal, optimum};
 use crate::curve::GroupSizeCurve;
+use crate::maths::binomial_pmf_into;
 use crate::scenario::{Liability, Scenario, ShockProbability, ShockScope};
 use serde::Serialize;
 
@@ -188,39 +189,6 @@ pub struct OneFactorResult {
     pub method: String,
 }
 
-/// ln C(k, n) for n = 0..=k by a running sum, exact enough (~k * 1e-16) for k <= MAX_EXACT_GROUP_SIZE.
-fn log_binomial_coefficients(k: u32) -> Vec<f64> {
-    let mut out = Vec::with_capacity(k as usize + 1);
-    let mut acc = 0.0;
-    out.push(0.0);
-    for n in 0..k {
-        acc += ((k - n) as f64).ln() - ((n + 1) as f64).ln();
-        out.push(acc);
-    }
-    out
-}
-
-/// Writes the binomial(k, p) law into `out`, given p and 1 - p each computed without cancellation.
-fn binomial_pmf_into(log_coef: &[f64], p: f64, q: f64, out: &mut [f64]) {
-    let k = out.len() - 1;
-    if p <= 0.0 {
-        out.iter_mut()
-            .enumerate()
-            .for_each(|(n, v)| *v = if n == 0 { 1.0 } else { 0.0 });
-        return;
-    }
-    if q <= 0.0 {
-        out.iter_mut()
-            .enumerate()
-            .for_each(|(n, v)| *v = if n == k { 1.0 } else { 0.0 });
-        return;
-    }
-    let (lp, lq) = (p.ln(), q.ln());
-    for (n, v) in out.iter_mut().enumerate() {
-        *v = (log_coef[n] + n as f64 * lp + (k - n) as f64 * lq).exp();
-    }
-}
-
 /// The law of the number hit among k members sharing a factor of loading rho with marginal hit
 /// probability p: P(n) = E[C(k, n) p(M)^n (1 - p(M))^(k - n)], p(m) = Phi((Phi^-1(p) - sqrt(rho) m) /
 /// sqrt(1 - rho)). Returns the law and the name of the quadrature used.
@@ -239,17 +207,16 @@ pub fn hit_count_law(group_size: u32, p: f64, rho: f64) -> Result<(Vec<f64>, Str
     check_probability("hit probability", p)?;
     check_correlation("rho", rho)?;
     let dim = group_size as usize + 1;
-    let log_coef = log_binomial_coefficients(group_size);
     if p == 0.0 || p == 1.0 {
         let mut law = vec![0.0; dim];
-        binomial_pmf_into(&log_coef, p, 1.0 - p, &mut law);
+        binomial_pmf_into(p, 1.0 - p, &mut law);
         return Ok((law, "none needed (p is 0 or 1)".into()));
     }
     let threshold = normal::inv_cdf(p);
     let (load, idio) = (rho.sqrt(), (1.0 - rho).sqrt());
     let integrand = |m: f64, out: &mut [f64]| {
         let z = (threshold - load * m) / idio;
-        binomial_pmf_into(&log_coef, accurate_normal::cdf(z), accurate_normal::cdf(-z), out);
+        binomial_pmf_into(normal::cdf(z), normal::cdf(-z), out);
     };
     if rho <= 0.5
         && let Some(est) = hermite_until_stable(dim, integrand)
@@ -488,7 +455,7 @@ mod tests {
         let (law, _) = hit_count_law(2, p, rho).unwrap();
         let t = normal::inv_cdf(p);
         let both = super::super::quadrature::kronrod_adaptive_scalar(&[-40.0, 0.0, 40.0], 1e-13, |m| {
-            accurate_normal::cdf((t - rho.sqrt() * m) / (1.0 - rho).sqrt()).powi(2) * normal::pdf(m)
+            normal::cdf((t - rho.sqrt() * m) / (1.0 - rho).sqrt()).powi(2) * normal::pdf(m)
         })
         .unwrap();
         assert!((law[2] - both).abs() < QUADRATURE_CHECK);
