@@ -11,6 +11,7 @@ use super::quadrature::{hermite_until_stable, kronrod_adaptive};
 use super::tolerance::QUADRATURE_TARGET;
 use super::{AnalyticError, bad, check_correlation, check_probability, normal, optimum};
 use crate::curve::GroupSizeCurve;
+use crate::engine::settlement::{self, GroupPosition};
 use crate::maths::binomial_pmf_into;
 use crate::scenario::{Liability, Scenario, ShockProbability, ShockScope};
 use serde::Serialize;
@@ -18,10 +19,6 @@ use serde::Serialize;
 /// Largest group size whose hit-count law is computed exactly: the law has k + 1 entries at every
 /// quadrature node, and beyond this the cost outgrows any use (simulate instead).
 pub const MAX_EXACT_GROUP_SIZE: u32 = 10_000;
-
-/// The engine's slack in the joint rule, per member and per unit of amount due: sums of identical
-/// shortfalls and surpluses must not flip the verdict through rounding.
-const JOINT_SLACK_PER_MEMBER: f64 = 1e-9;
 
 /// Factor range integrated when the adaptive rule is used: the normal density is below 1e-300 beyond.
 const FACTOR_RANGE: f64 = 40.0;
@@ -246,7 +243,8 @@ pub fn hit_count_law(group_size: u32, p: f64, rho: f64) -> Result<(Vec<f64>, Str
 ///
 /// The engine's rules: a member's capacity is C = D w (1 - s) if hit and D w if not; shortfall
 /// S = max(0, D - C), surplus U = max(0, C - D). Joint liability repays iff sum S <= lambda sum U +
-/// 1e-9 k D; individual liability counts the group as repaid iff every member has C >= D.
+/// 1e-9 k D; individual liability counts the group as repaid iff every member has C >= D. Both are
+/// decided by the engine's own rule (`engine::settlement`), applied to each possible hit count.
 pub fn group_repayment(
     model: &OneFactorModel,
     group_size: u32,
@@ -278,27 +276,33 @@ pub fn group_repayment(
     let p = model.hit_probability(group_size)?;
     let (law, method) = hit_count_law(group_size, p, rho)?;
 
+    // The engine's rule, applied to the two positions a member can be in.
     let d = model.amount_due;
-    let capacity_hit = d * model.income_ratio * (1.0 - model.severity);
-    let capacity_unhit = d * model.income_ratio;
-    let (short_hit, surplus_hit) = ((d - capacity_hit).max(0.0), (capacity_hit - d).max(0.0));
-    let (short_unhit, surplus_unhit) = ((d - capacity_unhit).max(0.0), (capacity_unhit - d).max(0.0));
+    let hit = settlement::member_position(d * model.income_ratio * (1.0 - model.severity), d);
+    let unhit = settlement::member_position(d * model.income_ratio, d);
     let k = group_size;
     let repays = |n: u32| -> bool {
-        let (hit, unhit) = (n as f64, (k - n) as f64);
+        let (n_hit, n_unhit) = (n as f64, (k - n) as f64);
         match liability {
             Liability::Joint => {
-                let shortfall = hit * short_hit + unhit * short_unhit;
-                let cover = peer_cover * (hit * surplus_hit + unhit * surplus_unhit);
-                shortfall <= cover + JOINT_SLACK_PER_MEMBER * k as f64 * d
+                let group = GroupPosition {
+                    shortfall: n_hit * hit.shortfall + n_unhit * unhit.shortfall,
+                    surplus: n_hit * hit.surplus + n_unhit * unhit.surplus,
+                    paid_own: n_hit * hit.paid_own + n_unhit * unhit.paid_own,
+                };
+                let group_due = k as f64 * d;
+                settlement::settle_joint(group, group_due, group_due, peer_cover).repaid
             }
-            Liability::Individual => (n == 0 || capacity_hit >= d) && (n == k || capacity_unhit >= d),
+            Liability::Individual => {
+                let repaid = |m: settlement::MemberPosition| settlement::settle_individual(m, d).repaid;
+                (n == 0 || repaid(hit)) && (n == k || repaid(unhit))
+            }
         }
     };
     let repaying: Vec<u32> = (0..=k).filter(|&n| repays(n)).collect();
     let group = repaying.iter().map(|&n| law[n as usize]).sum::<f64>().clamp(0.0, 1.0);
     let member_shortfall =
-        p * f64::from(u8::from(short_hit > 0.0)) + (1.0 - p) * f64::from(u8::from(short_unhit > 0.0));
+        p * f64::from(u8::from(hit.shortfall > 0.0)) + (1.0 - p) * f64::from(u8::from(unhit.shortfall > 0.0));
     Ok(OneFactorResult {
         group_size: k,
         liability,

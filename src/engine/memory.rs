@@ -1,0 +1,1 @@
+//! Peak memory of a run, estimated before simulating.
