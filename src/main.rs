@@ -41,6 +41,9 @@ enum Command {
         /// Replace results already in the output directory.
         #[arg(long)]
         force: bool,
+        /// Memory limit in GiB (default: the memory available); a run estimated above it is refused.
+        #[arg(long, value_name = "GIB", allow_negative_numbers = true)]
+        max_memory: Option<f64>,
     },
     /// Validate a scenario file and list the arms it resolves to, without simulating.
     Check {
@@ -197,6 +200,7 @@ fn main() -> ExitCode {
             threads,
             quiet,
             force,
+            max_memory,
         } => {
             let (mut scenario, text, origin) = match load(file.as_ref()) {
                 Ok(x) => x,
@@ -210,6 +214,13 @@ fn main() -> ExitCode {
             }
             run::apply_overrides(&mut scenario, replications, seed);
             if let Err(e) = run::check_size(&scenario) {
+                eprintln!("error: {origin}: {e}");
+                return ExitCode::from(BAD_INPUT);
+            }
+            let options = run::RunOptions {
+                threads: threads.map(usize::from),
+            };
+            if let Err(e) = run::check_memory(&scenario, &options, max_memory) {
                 eprintln!("error: {origin}: {e}");
                 return ExitCode::from(BAD_INPUT);
             }
@@ -229,9 +240,6 @@ fn main() -> ExitCode {
                     .progress_chars("=> "),
             );
             let started = std::time::Instant::now();
-            let options = run::RunOptions {
-                threads: threads.map(usize::from),
-            };
             let results = match run::simulate(&scenario, options, &mut |done| bar.set_position(done)) {
                 Ok(r) => r,
                 Err(e) => {
