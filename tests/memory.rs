@@ -9,6 +9,8 @@ use std::process::Command;
 
 /// Runs the binary on `text` and returns its peak resident set in bytes, as the kernel reports it to
 /// the parent (`ru_maxrss` of wait4, in KiB on Linux: getrusage(2) man page).
+// The child is reaped by wait4, which clippy cannot see.
+#[allow(clippy::zombie_processes)]
 fn peak_rss_bytes(text: &str, threads: usize) -> u64 {
     let dir = tempfile::tempdir().unwrap();
     let file = dir.path().join("scenario.toml");
