@@ -3,7 +3,7 @@
 //! Each model step has its own file: `pool` (member and pool state, step 1 entry), `formation`
 //! (step 2), `shocks` (step 3), `settlement` (steps 4 and 5, capacity and repayment, with the
 //! repayment rule the closed forms share), `exclusion` (steps 6 exclusion and 7 dropout). This file
-//! holds the replication's state and the cycle loop. All randomness comes from `streams`, keyed by
+//! holds the replication's state and the cycle loop; `memory` estimates what a whole run holds. All randomness comes from `streams`, keyed by
 //! entity and cycle, so the arms of one replication share their draws (common random numbers) and
 //! scheduling never changes a result.
 //!
