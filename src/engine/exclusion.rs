@@ -15,12 +15,12 @@ impl ArmReplication<'_> {
         }
         let joint = self.policy.liability == Liability::Joint;
         let whole_group = self.policy.exclusion_scope == ExclusionScope::Group;
-        for g in self.groups.village_first[v]..self.groups.len() {
-            let repaid = self.group_repaid[g];
+        let first = self.groups.village_first[v];
+        for (group, &repaid) in self.groups.iter_from(first).zip(&self.group_repaid[first..]) {
             if joint && repaid {
                 continue;
             }
-            for &i in self.groups.group(g) {
+            for &i in group {
                 let i = i as usize;
                 if (joint && whole_group) || self.pool.short[i] {
                     match exclusion {

@@ -147,10 +147,10 @@ mod tests {
             &sim.groups
         };
         let layout = &sim.layout;
-        let mut sets: Vec<Vec<u32>> = (0..groups.len())
-            .map(|g| {
-                let mut slots: Vec<u32> = groups
-                    .group(g)
+        let mut sets: Vec<Vec<u32>> = groups
+            .iter_from(0)
+            .map(|group| {
+                let mut slots: Vec<u32> = group
                     .iter()
                     .map(|&i| {
                         let v = (0..layout.villages)

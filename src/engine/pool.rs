@@ -135,10 +135,13 @@ impl Groups {
         self.len() == 0
     }
 
-    /// Members of group `g`.
+    /// Members of each group from `first` on, in order.
     #[inline]
-    pub fn group(&self, g: usize) -> &[u32] {
-        &self.members[self.offsets[g] as usize..self.offsets[g + 1] as usize]
+    pub fn iter_from(&self, first: usize) -> impl Iterator<Item = &[u32]> {
+        let members = &self.members;
+        self.offsets[first..]
+            .windows(2)
+            .map(move |w| &members[w[0] as usize..w[1] as usize])
     }
 
     /// Member positions (in `members`) of groups `first..last`.

@@ -113,8 +113,7 @@ impl ArmReplication<'_> {
         let joint = self.policy.liability == Liability::Joint;
         let (first, last) = (self.groups.village_first[v], self.groups.len());
         self.group_repaid.resize(last, false);
-        for g in first..last {
-            let group = self.groups.group(g);
+        for (group, repaid) in self.groups.iter_from(first).zip(&mut self.group_repaid[first..]) {
             let k = group.len();
             let group_due = k as f64 * d;
             let group_principal = k as f64 * principal;
@@ -151,7 +150,7 @@ impl ArmReplication<'_> {
                 };
                 (s, n_short)
             };
-            self.group_repaid[g] = settlement.repaid;
+            *repaid = settlement.repaid;
             if counted {
                 let unpaid_principal = settlement.unpaid_principal;
                 let loss = (1.0 - recovery) * unpaid_principal;

@@ -238,8 +238,7 @@ impl ArmReplication<'_> {
                     let id = cycle_stream_id(Purpose::GroupStrike, cycle, si, v as u32);
                     self.dense.fill(key, id, size, 2);
                 }
-                for g in g_start..g_end {
-                    let group = groups.group(g);
+                for group in groups.iter_from(g_start).take(g_end - g_start) {
                     if shock.scope == ShockScope::Group {
                         // a group's strike is keyed by its lowest slot, the lowest index in the village
                         let lowest = *group.iter().min().expect("groups are not empty") - start as u32;
