@@ -122,14 +122,15 @@ impl ArmReplication<'_> {
                     );
                 }
                 let full = len / k * k;
-                for group in scratch.candidates[..full].chunks_exact(k) {
-                    for &c in group {
+                let assigned = &mut self.pool.assigned;
+                self.groups.push_equal_groups(
+                    k,
+                    scratch.candidates[..full].iter().map(|&c| {
                         let i = start + (c & index_mask) as usize;
-                        self.pool.assigned[i] = true;
-                        self.groups.members.push(i as u32);
-                    }
-                    self.groups.close_group();
-                }
+                        assigned[i] = true;
+                        i as u32
+                    }),
+                );
             }
             Matching::Assortative => {
                 scratch.assortative.clear();
@@ -144,13 +145,14 @@ impl ArmReplication<'_> {
                     .assortative
                     .sort_unstable_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)).then(a.2.cmp(&b.2)));
                 let full = scratch.assortative.len() / k * k;
-                for group in scratch.assortative[..full].chunks_exact(k) {
-                    for &(_, _, i) in group {
-                        self.pool.assigned[i as usize] = true;
-                        self.groups.members.push(i);
-                    }
-                    self.groups.close_group();
-                }
+                let assigned = &mut self.pool.assigned;
+                self.groups.push_equal_groups(
+                    k,
+                    scratch.assortative[..full].iter().map(|&(_, _, i)| {
+                        assigned[i as usize] = true;
+                        i
+                    }),
+                );
             }
         }
     }

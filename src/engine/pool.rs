@@ -150,16 +150,19 @@ impl Groups {
         self.offsets[first] as usize..self.offsets[last] as usize
     }
 
-    /// Closes the members pushed since the last group into a new group.
-    #[inline]
-    pub fn close_group(&mut self) {
-        self.offsets.push(self.members.len() as u32);
-    }
-
     /// Appends a whole group.
     pub fn push_group(&mut self, members: &[u32]) {
         self.members.extend_from_slice(members);
-        self.close_group();
+        self.offsets.push(self.members.len() as u32);
+    }
+
+    /// Appends members cut into consecutive groups of `size`; their number is a multiple of `size`.
+    #[inline]
+    pub fn push_equal_groups(&mut self, size: usize, members: impl ExactSizeIterator<Item = u32>) {
+        let base = self.members.len() as u32;
+        let groups = (members.len() / size) as u32;
+        self.members.extend(members);
+        self.offsets.extend((1..=groups).map(|j| base + j * size as u32));
     }
 }
 
