@@ -3,7 +3,8 @@
 //! All computation lives in this library; the `loancycle` binary only parses arguments and prints.
 //! Layout: `scenario` (file format and validation), `engine` (one replication of one arm, random
 //! streams), `stats` (mergeable per-replication tallies and interval estimates), `analytic` (closed
-//! forms of the independent-borrower and one-factor models), `output` (writers that turn finished
+//! forms of the independent-borrower and one-factor models), `maths` (the special functions the
+//! engine and the closed forms share), `output` (writers that turn finished
 //! results into bytes), `run` (orchestration across replications and threads).
 //!
 //! ```
@@ -38,6 +39,7 @@ pub mod curve;
 pub mod demo;
 pub mod dist;
 pub mod engine;
+pub mod maths;
 pub mod output;
 pub mod report;
 pub mod run;

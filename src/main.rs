@@ -44,6 +44,9 @@ enum Command {
         /// Replace results already in the output directory.
         #[arg(long)]
         force: bool,
+        /// Memory limit in GiB (default: the memory available); a run estimated above it is refused.
+        #[arg(long, value_name = "GIB", allow_negative_numbers = true)]
+        max_memory: Option<f64>,
     },
     /// Validate a scenario file and list the arms it resolves to, without simulating.
     Check {
@@ -252,6 +255,7 @@ fn execute(command: Command) -> Result<(), Failure> {
             threads,
             quiet,
             force,
+            max_memory,
         } => {
             // Only `run` catches signals: it has files to protect. The other commands write nothing
             // and keep the default action, so Ctrl-C ends them at once.
@@ -261,6 +265,10 @@ fn execute(command: Command) -> Result<(), Failure> {
             if file.is_none() && !quiet {
                 eprintln!("no scenario file given: running the built-in baseline demo, {origin}");
             }
+            let options = run::RunOptions {
+                threads: threads.map(usize::from),
+            };
+            run::check_memory(&scenario, &options, max_memory).map_err(|e| Failure::BadInput(format!("{origin}: {e}")))?;
             let created = output::prepare_destination(&out, force).map_err(|e| {
                 if e.is_bad_destination() {
                     Failure::BadInput(e.to_string())
@@ -285,9 +293,6 @@ fn execute(command: Command) -> Result<(), Failure> {
                     .progress_chars("=> "),
             );
             let started = std::time::Instant::now();
-            let options = run::RunOptions {
-                threads: threads.map(usize::from),
-            };
             let simulated = run::simulate_until(&scenario, options, &stopped, &mut |done| bar.set_position(done));
             bar.finish_and_clear();
             let results = match simulated {

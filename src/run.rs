@@ -54,9 +54,7 @@ pub fn simulate_until(
     stop: &(dyn Fn() -> bool + Sync),
     progress: &mut dyn FnMut(u64),
 ) -> Result<RunResults, RunError> {
-    let threads = options
-        .threads
-        .unwrap_or_else(|| std::thread::available_parallelism().map_or(1, |n| n.get()));
+    let threads = worker_threads(&options);
     let pool = rayon::ThreadPoolBuilder::new()
         .num_threads(threads)
         .build()
@@ -96,4 +94,22 @@ pub fn simulate_until(
         arms: tallies,
         served_member_cycles,
     })
+}
+
+/// Worker threads a run with `options` uses: the requested number, or every core.
+pub fn worker_threads(options: &RunOptions) -> usize {
+    options
+        .threads
+        .unwrap_or_else(|| std::thread::available_parallelism().map_or(1, |n| n.get()))
+}
+
+/// Refuses a run whose estimated peak memory exceeds `max_memory_gib`, or without it the memory the
+/// machine has available (checked before any work, after command-line overrides).
+pub fn check_memory(
+    scenario: &Scenario,
+    options: &RunOptions,
+    max_memory_gib: Option<f64>,
+) -> Result<(), crate::engine::memory::MemoryError> {
+    let estimate = crate::engine::memory::estimate(scenario, worker_threads(options));
+    crate::engine::memory::check(&estimate, max_memory_gib)
 }

@@ -143,6 +143,8 @@ fn engine_value_stability() {
         t7.groups_repaid,
         t7.empty_slot_cycles,
         t7.collected,
+        t0.groups_rescued,
+        t0.shortfall_free_groups,
     );
     assert_eq!(
         got,
@@ -155,7 +157,9 @@ fn engine_value_stability() {
             1260,
             728,
             0,
-            517923.57792428706
+            517923.57792428706,
+            343,
+            523
         ),
         "{got:?}"
     );

@@ -8,7 +8,7 @@
 //! Supervision, International Convergence of Capital Measurement and Capital Standards, June 2006,
 //! paras 328-330.
 
-use super::{AnalyticError, accurate_normal, bad, check_probability, normal};
+use super::{AnalyticError, bad, check_probability, normal};
 
 /// The confidence level of the IRB formula.
 pub const CONFIDENCE: f64 = 0.999;
@@ -39,7 +39,7 @@ pub fn conditional_hit_probability_at(pd: f64, correlation: f64) -> Result<f64, 
     if pd == 0.0 || pd == 1.0 {
         return Ok(pd);
     }
-    Ok(accurate_normal::cdf(
+    Ok(normal::cdf(
         normal::inv_cdf(pd) / (1.0 - correlation).sqrt()
             + (correlation / (1.0 - correlation)).sqrt() * normal::inv_cdf(CONFIDENCE),
     ))

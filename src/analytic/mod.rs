@@ -5,7 +5,6 @@
 //! narrower class exactly (to quadrature precision), so they serve both as planning figures in their own
 //! right and as fixed points the engine's tests can be held to.
 
-pub mod accurate_normal;
 pub mod basel;
 pub mod normal;
 pub mod one_factor;

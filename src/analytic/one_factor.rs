@@ -9,18 +9,16 @@
 
 use super::quadrature::{hermite_until_stable, kronrod_adaptive};
 use super::tolerance::QUADRATURE_TARGET;
-use super::{AnalyticError, accurate_normal, bad, check_correlation, check_probability, normal, optimum};
+use super::{AnalyticError, bad, check_correlation, check_probability, normal, optimum};
 use crate::curve::GroupSizeCurve;
+use crate::engine::settlement::{self, GroupPosition};
+use crate::maths::binomial_pmf_into;
 use crate::scenario::{Liability, Scenario, ShockProbability, ShockScope};
 use serde::Serialize;
 
 /// Largest group size whose hit-count law is computed exactly: the law has k + 1 entries at every
 /// quadrature node, and beyond this the cost outgrows any use (simulate instead).
 pub const MAX_EXACT_GROUP_SIZE: u32 = 10_000;
-
-/// The engine's slack in the joint rule, per member and per unit of amount due: sums of identical
-/// shortfalls and surpluses must not flip the verdict through rounding.
-const JOINT_SLACK_PER_MEMBER: f64 = 1e-9;
 
 /// Factor range integrated when the adaptive rule is used: the normal density is below 1e-300 beyond.
 const FACTOR_RANGE: f64 = 40.0;
@@ -193,39 +191,6 @@ pub struct OneFactorResult {
     pub method: String,
 }
 
-/// ln C(k, n) for n = 0..=k by a running sum, exact enough (~k * 1e-16) for k <= MAX_EXACT_GROUP_SIZE.
-fn log_binomial_coefficients(k: u32) -> Vec<f64> {
-    let mut out = Vec::with_capacity(k as usize + 1);
-    let mut acc = 0.0;
-    out.push(0.0);
-    for n in 0..k {
-        acc += ((k - n) as f64).ln() - ((n + 1) as f64).ln();
-        out.push(acc);
-    }
-    out
-}
-
-/// Writes the binomial(k, p) law into `out`, given p and 1 - p each computed without cancellation.
-fn binomial_pmf_into(log_coef: &[f64], p: f64, q: f64, out: &mut [f64]) {
-    let k = out.len() - 1;
-    if p <= 0.0 {
-        out.iter_mut()
-            .enumerate()
-            .for_each(|(n, v)| *v = if n == 0 { 1.0 } else { 0.0 });
-        return;
-    }
-    if q <= 0.0 {
-        out.iter_mut()
-            .enumerate()
-            .for_each(|(n, v)| *v = if n == k { 1.0 } else { 0.0 });
-        return;
-    }
-    let (lp, lq) = (p.ln(), q.ln());
-    for (n, v) in out.iter_mut().enumerate() {
-        *v = (log_coef[n] + n as f64 * lp + (k - n) as f64 * lq).exp();
-    }
-}
-
 /// The law of the number hit among k members sharing a factor of loading rho with marginal hit
 /// probability p: P(n) = E[C(k, n) p(M)^n (1 - p(M))^(k - n)], p(m) = Phi((Phi^-1(p) - sqrt(rho) m) /
 /// sqrt(1 - rho)). Returns the law and the name of the quadrature used.
@@ -244,17 +209,16 @@ pub fn hit_count_law(group_size: u32, p: f64, rho: f64) -> Result<(Vec<f64>, Str
     check_probability("hit probability", p)?;
     check_correlation("rho", rho)?;
     let dim = group_size as usize + 1;
-    let log_coef = log_binomial_coefficients(group_size);
     if p == 0.0 || p == 1.0 {
         let mut law = vec![0.0; dim];
-        binomial_pmf_into(&log_coef, p, 1.0 - p, &mut law);
+        binomial_pmf_into(p, 1.0 - p, &mut law);
         return Ok((law, "none needed (p is 0 or 1)".into()));
     }
     let threshold = normal::inv_cdf(p);
     let (load, idio) = (rho.sqrt(), (1.0 - rho).sqrt());
     let integrand = |m: f64, out: &mut [f64]| {
         let z = (threshold - load * m) / idio;
-        binomial_pmf_into(&log_coef, accurate_normal::cdf(z), accurate_normal::cdf(-z), out);
+        binomial_pmf_into(normal::cdf(z), normal::cdf(-z), out);
     };
     if rho <= 0.5
         && let Some(est) = hermite_until_stable(dim, integrand)
@@ -284,7 +248,8 @@ pub fn hit_count_law(group_size: u32, p: f64, rho: f64) -> Result<(Vec<f64>, Str
 ///
 /// The engine's rules: a member's capacity is C = D w (1 - s) if hit and D w if not; shortfall
 /// S = max(0, D - C), surplus U = max(0, C - D). Joint liability repays iff sum S <= lambda sum U +
-/// 1e-9 k D; individual liability counts the group as repaid iff every member has C >= D.
+/// 1e-9 k D; individual liability counts the group as repaid iff every member has C >= D. Both are
+/// decided by the engine's own rule (`engine::settlement`), applied to each possible hit count.
 pub fn group_repayment(
     model: &OneFactorModel,
     group_size: u32,
@@ -316,27 +281,33 @@ pub fn group_repayment(
     let p = model.hit_probability(group_size)?;
     let (law, method) = hit_count_law(group_size, p, rho)?;
 
+    // The engine's rule, applied to the two positions a member can be in.
     let d = model.amount_due;
-    let capacity_hit = d * model.income_ratio * (1.0 - model.severity);
-    let capacity_unhit = d * model.income_ratio;
-    let (short_hit, surplus_hit) = ((d - capacity_hit).max(0.0), (capacity_hit - d).max(0.0));
-    let (short_unhit, surplus_unhit) = ((d - capacity_unhit).max(0.0), (capacity_unhit - d).max(0.0));
+    let hit = settlement::member_position(d * model.income_ratio * (1.0 - model.severity), d);
+    let unhit = settlement::member_position(d * model.income_ratio, d);
     let k = group_size;
     let repays = |n: u32| -> bool {
-        let (hit, unhit) = (n as f64, (k - n) as f64);
+        let (n_hit, n_unhit) = (n as f64, (k - n) as f64);
         match liability {
             Liability::Joint => {
-                let shortfall = hit * short_hit + unhit * short_unhit;
-                let cover = peer_cover * (hit * surplus_hit + unhit * surplus_unhit);
-                shortfall <= cover + JOINT_SLACK_PER_MEMBER * k as f64 * d
+                let group = GroupPosition {
+                    shortfall: n_hit * hit.shortfall + n_unhit * unhit.shortfall,
+                    surplus: n_hit * hit.surplus + n_unhit * unhit.surplus,
+                    paid_own: n_hit * hit.paid_own + n_unhit * unhit.paid_own,
+                };
+                let group_due = k as f64 * d;
+                settlement::settle_joint(group, group_due, group_due, peer_cover).repaid
             }
-            Liability::Individual => (n == 0 || capacity_hit >= d) && (n == k || capacity_unhit >= d),
+            Liability::Individual => {
+                let repaid = |m: settlement::MemberPosition| settlement::settle_individual(m, d).repaid;
+                (n == 0 || repaid(hit)) && (n == k || repaid(unhit))
+            }
         }
     };
     let repaying: Vec<u32> = (0..=k).filter(|&n| repays(n)).collect();
     let group = repaying.iter().map(|&n| law[n as usize]).sum::<f64>().clamp(0.0, 1.0);
     let member_shortfall =
-        p * f64::from(u8::from(short_hit > 0.0)) + (1.0 - p) * f64::from(u8::from(short_unhit > 0.0));
+        p * f64::from(u8::from(hit.shortfall > 0.0)) + (1.0 - p) * f64::from(u8::from(unhit.shortfall > 0.0));
     Ok(OneFactorResult {
         group_size: k,
         liability,
@@ -492,7 +463,7 @@ mod tests {
         let (law, _) = hit_count_law(2, p, rho).unwrap();
         let t = normal::inv_cdf(p);
         let both = super::super::quadrature::kronrod_adaptive_scalar(&[-40.0, 0.0, 40.0], 1e-13, |m| {
-            accurate_normal::cdf((t - rho.sqrt() * m) / (1.0 - rho).sqrt()).powi(2) * normal::pdf(m)
+            normal::cdf((t - rho.sqrt() * m) / (1.0 - rho).sqrt()).powi(2) * normal::pdf(m)
         })
         .unwrap();
         assert!((law[2] - both).abs() < QUADRATURE_CHECK);

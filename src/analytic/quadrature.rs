@@ -381,8 +381,8 @@ pub fn kronrod_adaptive_scalar(
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::analytic::normal;
     use crate::analytic::tolerance::{QUADRATURE_CHECK, SCIPY_MATCH};
-    use crate::analytic::{accurate_normal, normal};
 
     #[test]
     fn hermite_weights_sum_to_one_and_match_low_moments() {
@@ -460,8 +460,8 @@ mod tests {
             (0.3, 0.2),
             (-3.0, 1.0),
         ] {
-            let exact = accurate_normal::cdf(a / (1.0f64 + b * b).sqrt());
-            let estimate = hermite_until_stable(1, |z, out| out[0] = accurate_normal::cdf(a + b * z)).unwrap();
+            let exact = normal::cdf(a / (1.0f64 + b * b).sqrt());
+            let estimate = hermite_until_stable(1, |z, out| out[0] = normal::cdf(a + b * z)).unwrap();
             assert!(
                 (estimate.value[0] - exact).abs() < QUADRATURE_CHECK,
                 "a = {a}, b = {b}: {} vs {exact}",
@@ -474,7 +474,7 @@ mod tests {
     fn hermite_node_doubling_settles() {
         // A smooth integrand: doubling the nodes beyond the accepted rule changes nothing at 1e-10.
         let f = |z: f64, out: &mut [f64]| {
-            let p = accurate_normal::cdf((normal::inv_cdf(0.05) - 0.5f64.sqrt() * z) / 0.5f64.sqrt());
+            let p = normal::cdf((normal::inv_cdf(0.05) - 0.5f64.sqrt() * z) / 0.5f64.sqrt());
             out[0] = p;
             out[1] = p * p;
             out[2] = (1.0 - p).powi(5);

@@ -7,8 +7,8 @@
 //! the engine's tests can compare simulated hit shares with either.
 
 use super::quadrature::kronrod_adaptive_scalar;
-use super::{AnalyticError, accurate_normal, bad, check_correlation, check_probability, normal};
-use statrs::function::gamma::ln_gamma;
+use super::{AnalyticError, bad, check_correlation, check_probability, normal};
+use crate::maths::binomial_cdf;
 
 /// Largest pool the finite law is computed for: beyond it ln-gamma rounding (~1e-8 relative) starts
 /// to matter, and the large-pool law is within a fraction of a per cent anyway.
@@ -40,7 +40,7 @@ pub fn cdf(x: f64, p: f64, rho: f64) -> Result<f64, AnalyticError> {
     } else if rho == 0.0 {
         if x >= p { 1.0 } else { 0.0 }
     } else {
-        accurate_normal::cdf(((1.0 - rho).sqrt() * normal::inv_cdf(x) - normal::inv_cdf(p)) / rho.sqrt())
+        normal::cdf(((1.0 - rho).sqrt() * normal::inv_cdf(x) - normal::inv_cdf(p)) / rho.sqrt())
     })
 }
 
@@ -56,46 +56,8 @@ pub fn quantile(q: f64, p: f64, rho: f64) -> Result<f64, AnalyticError> {
     } else if q == 1.0 {
         1.0
     } else {
-        accurate_normal::cdf((normal::inv_cdf(p) + rho.sqrt() * normal::inv_cdf(q)) / (1.0 - rho).sqrt())
+        normal::cdf((normal::inv_cdf(p) + rho.sqrt() * normal::inv_cdf(q)) / (1.0 - rho).sqrt())
     })
-}
-
-/// P(N <= j) for N ~ binomial(n, p), given p and 1 - p each without cancellation. Sums the pmf from j
-/// away from the mean, where terms fall geometrically, and stops once they no longer matter.
-fn binomial_cdf(j: u32, n: u32, p: f64, q: f64) -> f64 {
-    if j >= n || p <= 0.0 {
-        return 1.0;
-    }
-    if q <= 0.0 {
-        return 0.0;
-    }
-    let (nf, lp, lq) = (n as f64, p.ln(), q.ln());
-    let log_pmf = |i: u32| {
-        let i = i as f64;
-        ln_gamma(nf + 1.0) - ln_gamma(i + 1.0) - ln_gamma(nf - i + 1.0) + i * lp + (nf - i) * lq
-    };
-    let odds = p / q;
-    if j as f64 <= nf * p {
-        let mut term = log_pmf(j).exp();
-        let mut sum = term;
-        let mut i = j;
-        while i > 0 && term > 1e-17 * sum {
-            term *= i as f64 / ((n - i + 1) as f64 * odds);
-            sum += term;
-            i -= 1;
-        }
-        sum.min(1.0)
-    } else {
-        let mut i = j + 1;
-        let mut term = log_pmf(i).exp();
-        let mut sum = term;
-        while i < n && term > 1e-17 * sum {
-            term *= (n - i) as f64 * odds / (i + 1) as f64;
-            sum += term;
-            i += 1;
-        }
-        (1.0 - sum).max(0.0)
-    }
 }
 
 /// P(N <= j) for the number N hit among `members` who share one factor of loading rho, each hit with
@@ -119,14 +81,14 @@ pub fn finite_hit_share_cdf(j: u32, members: u32, p: f64, rho: f64) -> Result<f6
     }
     let threshold = normal::inv_cdf(p);
     if rho == 0.0 {
-        return Ok(binomial_cdf(j, members, p, accurate_normal::cdf(-threshold)));
+        return Ok(binomial_cdf(j, members, p, normal::cdf(-threshold)));
     }
     let (load, idio) = (rho.sqrt(), (1.0 - rho).sqrt());
     let target = ((j as f64 + 0.5) / members as f64).min(1.0);
     let centre = ((threshold - idio * normal::inv_cdf(target)) / load).clamp(-FACTOR_RANGE, FACTOR_RANGE);
     let value = kronrod_adaptive_scalar(&[-FACTOR_RANGE, centre, FACTOR_RANGE], 1e-12, |m| {
         let z = (threshold - load * m) / idio;
-        binomial_cdf(j, members, accurate_normal::cdf(z), accurate_normal::cdf(-z)) * normal::pdf(m)
+        binomial_cdf(j, members, normal::cdf(z), normal::cdf(-z)) * normal::pdf(m)
     })?;
     Ok(value.clamp(0.0, 1.0))
 }

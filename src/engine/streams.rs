@@ -73,11 +73,8 @@ pub fn entry_stream_id(slot: u32, occupant: u32) -> u64 {
     ((Purpose::Entry as u64) << 60) | (u64::from(slot) << 32) | u64::from(occupant)
 }
 
-/// A uniform double in [0, 1) from the top 53 bits of a word.
-#[inline]
-pub fn unit_f64(x: u64) -> f64 {
-    (x >> 11) as f64 * (1.0 / (1u64 << 53) as f64)
-}
+/// A uniform double in [0, 1) from the top 53 bits of a word (the shared conversion).
+pub use crate::maths::unit_f64;
 
 /// Opens a stream at word position 0.
 pub fn open(key: &[u8; 32], stream_id: u64) -> ChaCha8Rng {

@@ -1,0 +1,196 @@
+//! Model step 2 (formation): who borrows together this cycle, and the four slot shares.
+//!
+//! Within each village, persistent groups whose members are all still there and eligible are
+//! kept; the remaining eligible members are ordered (a random shuffle, or ascending risk) and cut
+//! into groups of k. The fewer-than-k left over wait.
+
+use super::ArmReplication;
+use super::streams::{Purpose, cycle_stream_id};
+use crate::scenario::{Formation, Matching};
+use crate::stats::CycleRecord;
+
+/// Scratch buffers of formation, reused across villages and cycles.
+#[derive(Default)]
+pub(super) struct FormationScratch {
+    candidates: Vec<u64>,
+    sort_scratch: Vec<u64>,
+    sort_counts: Vec<u32>,
+    assortative: Vec<(f64, u64, u32)>,
+}
+
+impl ArmReplication<'_> {
+    /// Step 2: forms the village's groups and counts its shares of the pool.
+    pub(super) fn formation(&mut self, v: usize, cycle: u32, counted: bool, record: &mut CycleRecord) {
+        let range = self.layout.range(v);
+        self.pool.assigned[range.clone()].fill(false);
+        self.groups.village_first[v] = self.groups.len();
+        if self.policy.formation == Formation::Persistent && !self.previous.is_empty() {
+            self.keep_persistent_groups(v, cycle);
+        }
+        self.form_village(v, cycle);
+        if counted {
+            // Branch-free counts: served members are exactly the grouped ones.
+            let mut occupied = 0u64;
+            let mut excluded = 0u64;
+            for (&occ, &through) in self.pool.occupied[range.clone()]
+                .iter()
+                .zip(&self.pool.excluded_through[range.clone()])
+            {
+                occupied += u64::from(occ);
+                excluded += u64::from(occ & (through >= cycle));
+            }
+            let first = self.groups.village_first[v];
+            let last = self.groups.len();
+            let served = self.groups.member_range(first, last).len() as u64;
+            let empty = range.len() as u64 - occupied;
+            let waiting = occupied - excluded - served;
+            self.tally.served_slot_cycles += served;
+            self.tally.excluded_slot_cycles += excluded;
+            self.tally.waiting_slot_cycles += waiting;
+            self.tally.empty_slot_cycles += empty;
+            record.excluded += excluded as u32;
+            record.served += served as u32;
+            record.groups += (last - first) as u32;
+        }
+    }
+
+    /// Keeps last cycle's groups of village `v` whose members are all the same people and eligible.
+    fn keep_persistent_groups(&mut self, v: usize, cycle: u32) {
+        let previous = &self.previous;
+        for g in previous.village_first[v]..previous.village_first[v + 1] {
+            let positions = previous.member_range(g, g + 1);
+            let members = &previous.members[positions.clone()];
+            let entrants = &self.previous_entrants[positions];
+            let keep = members.iter().zip(entrants).all(|(&i, &e)| {
+                let i = i as usize;
+                self.pool.eligible(i, cycle) && self.pool.entrants[i] == e + 1
+            });
+            if keep {
+                for &i in members {
+                    self.pool.assigned[i as usize] = true;
+                }
+                self.groups.push_group(members);
+            }
+        }
+    }
+
+    /// Orders the village's unassigned eligible members and cuts them into groups of k.
+    fn form_village(&mut self, v: usize, cycle: u32) {
+        let k = self.policy.group_size as usize;
+        let (start, end) = (self.layout.village_start[v], self.layout.village_start[v + 1]);
+        let size = end - start;
+        let needs_keys = k > 1;
+        if needs_keys {
+            let id = cycle_stream_id(Purpose::Formation, cycle, 0, v as u32);
+            self.dense.fill(&self.key, id, size, 2);
+        }
+        let scratch = &mut self.formation_scratch;
+        match self.policy.matching {
+            Matching::Random => {
+                // Sort keys pack the slot's random word above its index in the village, so one
+                // integer comparison orders by the random word and breaks ties by position.
+                // Village sizes are below 2^28 (validated), so the index fits in the low bits.
+                let index_bits = usize::BITS - size.leading_zeros();
+                let index_mask = (1u64 << index_bits) - 1;
+                scratch.candidates.clear();
+                scratch.candidates.resize(size, 0);
+                let mut len = 0usize;
+                let assigned = &self.pool.assigned[start..end];
+                let occupied = &self.pool.occupied[start..end];
+                let through = &self.pool.excluded_through[start..end];
+                let candidates = &mut scratch.candidates[..];
+                if needs_keys {
+                    let dense = &self.dense;
+                    for (m, ((&a, &o), &t)) in assigned.iter().zip(occupied).zip(through).enumerate() {
+                        let random = dense.u64_at(m as u32);
+                        // written unconditionally, kept only when eligible: avoids a hard-to-predict branch
+                        candidates[len] = (random & !index_mask) | m as u64;
+                        len += usize::from(!a & o & (t < cycle));
+                    }
+                } else {
+                    for (m, ((&a, &o), &t)) in assigned.iter().zip(occupied).zip(through).enumerate() {
+                        candidates[len] = m as u64;
+                        len += usize::from(!a & o & (t < cycle));
+                    }
+                }
+                scratch.candidates.truncate(len);
+                if needs_keys {
+                    sort_uniform_keys(
+                        &mut scratch.candidates,
+                        &mut scratch.sort_scratch,
+                        &mut scratch.sort_counts,
+                    );
+                }
+                let full = len / k * k;
+                let assigned = &mut self.pool.assigned;
+                self.groups.push_equal_groups(
+                    k,
+                    scratch.candidates[..full].iter().map(|&c| {
+                        let i = start + (c & index_mask) as usize;
+                        assigned[i] = true;
+                        i as u32
+                    }),
+                );
+            }
+            Matching::Assortative => {
+                scratch.assortative.clear();
+                for m in 0..size {
+                    let i = start + m;
+                    if !self.pool.assigned[i] && self.pool.eligible(i, cycle) {
+                        let random = if needs_keys { self.dense.u64_at(m as u32) } else { 0 };
+                        scratch.assortative.push((self.pool.risk[i], random, i as u32));
+                    }
+                }
+                scratch
+                    .assortative
+                    .sort_unstable_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)).then(a.2.cmp(&b.2)));
+                let full = scratch.assortative.len() / k * k;
+                let assigned = &mut self.pool.assigned;
+                self.groups.push_equal_groups(
+                    k,
+                    scratch.assortative[..full].iter().map(|&(_, _, i)| {
+                        assigned[i as usize] = true;
+                        i
+                    }),
+                );
+            }
+        }
+    }
+}
+
+/// Sorts keys whose high bits are uniformly random in expected linear time: a counting pass on the
+/// top bits spreads them into about one key per bucket, then insertion sort fixes the few keys that
+/// share a bucket. Gives exactly the order of a comparison sort.
+pub(super) fn sort_uniform_keys(keys: &mut Vec<u64>, scratch: &mut Vec<u64>, counts: &mut Vec<u32>) {
+    let n = keys.len();
+    if n < 2 {
+        return;
+    }
+    let bits = (usize::BITS - (n - 1).leading_zeros()).clamp(1, 20);
+    let shift = 64 - bits;
+    counts.clear();
+    counts.resize((1usize << bits) + 1, 0);
+    for &key in keys.iter() {
+        counts[(key >> shift) as usize + 1] += 1;
+    }
+    for b in 1..counts.len() {
+        counts[b] += counts[b - 1];
+    }
+    scratch.clear();
+    scratch.resize(n, 0);
+    for &key in keys.iter() {
+        let bucket = (key >> shift) as usize;
+        scratch[counts[bucket] as usize] = key;
+        counts[bucket] += 1;
+    }
+    for i in 1..n {
+        let key = scratch[i];
+        let mut j = i;
+        while j > 0 && scratch[j - 1] > key {
+            scratch[j] = scratch[j - 1];
+            j -= 1;
+        }
+        scratch[j] = key;
+    }
+    std::mem::swap(keys, scratch);
+}

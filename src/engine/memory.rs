@@ -1,0 +1,219 @@
+//! Peak memory of a run, estimated from the scenario before anything is simulated.
+//!
+//! A run within the scenario limits can still need more memory than the machine has (large pools
+//! with several member shocks on many workers, or many replications of many cycles of many arms).
+//! Finding out after minutes of simulation, through the kernel killing the process, helps nobody,
+//! so a run is refused up front when its estimate exceeds the memory available. The estimate is
+//! the sum of what the run holds at its peak (the formula is in DEVELOPERS.md, section "Memory"):
+//!
+//! - each worker's replication state: per-slot arrays, per-village scratch, per-shock village
+//!   blocks and the tally being filled;
+//! - every finished replication's tally with its per-cycle records, kept until the report is built;
+//! - while one arm is summarised, its per-cycle loss rates and a sorted copy;
+//! - a fixed base for the program, its thread stacks and the report.
+
+use crate::scenario::{Formation, Scenario, ShockScope};
+use crate::stats::{CycleRecord, ReplicationTally};
+
+/// Bytes in one GiB (2^30), the unit of `--max-memory` and of the messages.
+pub const BYTES_PER_GIB: f64 = 1_073_741_824.0;
+
+/// The program, its libraries, the thread stacks in use and the report: measured peak of a tiny run
+/// (about 6 MiB on x86-64 Linux), rounded up.
+const BASE_BYTES: u64 = 16 << 20;
+
+/// Per slot and worker: occupied, entrants, income, risk, excluded-through, assigned, multiplier,
+/// short (35 bytes), group members and offsets (about 5), padding of the allocator.
+const SLOT_BYTES: u64 = 40;
+/// Per slot, worker and member-scope shock: the cached hit probability and threshold.
+const SLOT_SHOCK_BYTES: u64 = 16;
+/// Per slot and worker under persistent formation: last cycle's members, offsets and entrant numbers.
+const SLOT_PERSISTENT_BYTES: u64 = 9;
+/// Per slot of the largest village and worker: dense random blocks (up to 4 words), formation keys
+/// and their sorting buffer, the assortative order and hits.
+const VILLAGE_SLOT_BYTES: u64 = 16 + 8 + 8 + 24 + 4;
+/// Per village, shock and worker: the cycle's village block of two words.
+const VILLAGE_SHOCK_BYTES: u64 = 8;
+/// Per per-cycle record while one arm is summarised: its loss rate and the sorted copy.
+const SUMMARY_RECORD_BYTES: u64 = 16;
+/// Allocator rounding and bookkeeping per heap block (glibc: 16 bytes of header, 16-byte steps).
+const ALLOCATION_BYTES: u64 = 32;
+
+/// A run's estimated peak memory, by part.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct MemoryEstimate {
+    /// Worker threads that hold a replication at the same time.
+    pub workers: u64,
+    /// One worker's replication state.
+    pub worker_bytes: u64,
+    /// Every finished replication's tally and per-cycle records.
+    pub tally_bytes: u64,
+    /// The per-cycle figures of one arm while it is summarised.
+    pub summary_bytes: u64,
+    /// Program, stacks and report.
+    pub base_bytes: u64,
+}
+
+impl MemoryEstimate {
+    /// The estimated peak in bytes.
+    pub fn total_bytes(&self) -> u64 {
+        self.base_bytes + self.workers * self.worker_bytes + self.tally_bytes + self.summary_bytes
+    }
+
+    /// The estimated peak in GiB.
+    pub fn total_gib(&self) -> f64 {
+        self.total_bytes() as f64 / BYTES_PER_GIB
+    }
+}
+
+/// Estimates the peak memory of simulating and reporting `scenario` on `threads` worker threads.
+pub fn estimate(scenario: &Scenario, threads: usize) -> MemoryEstimate {
+    let slots = u64::from(scenario.borrowers);
+    let villages = u64::from(scenario.villages.max(1));
+    let largest_village = slots.div_ceil(villages);
+    let member_shocks = scenario.shocks.iter().filter(|s| s.scope == ShockScope::Member).count() as u64;
+    let shocks = scenario.shocks.len() as u64;
+    let persistent = scenario
+        .arms
+        .iter()
+        .any(|a| a.policy.formation == Formation::Persistent);
+    let largest_group = scenario
+        .arms
+        .iter()
+        .map(|a| u64::from(a.policy.group_size))
+        .max()
+        .unwrap_or(1);
+    let cycles = u64::from(scenario.cycles);
+    let record_bytes = std::mem::size_of::<CycleRecord>() as u64;
+    let tally_bytes = std::mem::size_of::<ReplicationTally>() as u64;
+    // One replication's tally: the struct (twice: the arm's list grows by doubling), its per-cycle
+    // records and its histogram, each heap block with the allocator's share.
+    let one_tally = 2 * tally_bytes + cycles * record_bytes + (largest_group + 1) * 8 + 2 * ALLOCATION_BYTES;
+
+    let per_slot = SLOT_BYTES + member_shocks * SLOT_SHOCK_BYTES + if persistent { SLOT_PERSISTENT_BYTES } else { 0 };
+    let worker_bytes =
+        slots * per_slot + largest_village * VILLAGE_SLOT_BYTES + villages * shocks * VILLAGE_SHOCK_BYTES + one_tally;
+    let tasks = u64::from(scenario.replications) * scenario.arms.len() as u64;
+    MemoryEstimate {
+        workers: (threads.max(1) as u64).min(tasks.max(1)),
+        worker_bytes,
+        tally_bytes: tasks * one_tally,
+        summary_bytes: u64::from(scenario.replications) * cycles * SUMMARY_RECORD_BYTES,
+        base_bytes: BASE_BYTES,
+    }
+}
+
+/// The memory the kernel reports as available for new work (`MemAvailable` in /proc/meminfo), in
+/// bytes; `None` where there is no such file (not Linux).
+pub fn available_bytes() -> Option<u64> {
+    let text = std::fs::read_to_string("/proc/meminfo").ok()?;
+    parse_mem_available(&text)
+}
+
+/// The `MemAvailable:  N kB` line of /proc/meminfo, in bytes.
+fn parse_mem_available(meminfo: &str) -> Option<u64> {
+    let line = meminfo.lines().find(|l| l.starts_with("MemAvailable:"))?;
+    let mut words = line.split_whitespace().skip(1);
+    let kib: u64 = words.next()?.parse().ok()?;
+    Some(kib * 1024)
+}
+
+/// Why a run is refused for its memory.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum MemoryError {
+    /// The estimate exceeds the limit.
+    #[error(
+        "the run needs an estimated {needed_gib:.2} GiB of memory, above the {limit_gib:.2} GiB {source_text}; \
+         lower replications, cycles, arms, borrowers or --threads, or set the limit with --max-memory GIB"
+    )]
+    TooLarge {
+        /// The estimate, in GiB.
+        needed_gib: f64,
+        /// The limit, in GiB.
+        limit_gib: f64,
+        /// Where the limit came from ("available (MemAvailable in /proc/meminfo)" or "given by --max-memory").
+        source_text: String,
+    },
+    /// A `--max-memory` value that is not a positive finite number of GiB.
+    #[error("--max-memory = {0} is not allowed: a positive number of GiB, such as 8 or 0.5")]
+    BadLimit(f64),
+}
+
+/// Refuses a run whose estimate exceeds `max_memory_gib`, or without it the memory available.
+/// With neither (no /proc/meminfo), the run goes ahead.
+pub fn check(estimate: &MemoryEstimate, max_memory_gib: Option<f64>) -> Result<(), MemoryError> {
+    let (limit_bytes, source_text) = match max_memory_gib {
+        Some(gib) if gib.is_finite() && gib > 0.0 => (gib * BYTES_PER_GIB, "given by --max-memory".to_string()),
+        Some(gib) => return Err(MemoryError::BadLimit(gib)),
+        None => match available_bytes() {
+            Some(bytes) => (bytes as f64, "available (MemAvailable in /proc/meminfo)".to_string()),
+            None => return Ok(()),
+        },
+    };
+    let needed = estimate.total_bytes() as f64;
+    if needed > limit_bytes {
+        return Err(MemoryError::TooLarge {
+            needed_gib: needed / BYTES_PER_GIB,
+            limit_gib: limit_bytes / BYTES_PER_GIB,
+            source_text,
+        });
+    }
+    Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn scenario(extra: &str) -> Scenario {
+        let text = format!(
+            "replications = 10\ncycles = 20\n[portfolio]\nborrowers = 10000\nvillages = 10\n[loan]\nprincipal = 100\n{extra}"
+        );
+        Scenario::from_toml_str(&text, "inline").unwrap()
+    }
+
+    #[test]
+    fn reads_mem_available_in_bytes() {
+        let text = "MemTotal:       24000000 kB\nMemFree:  100 kB\nMemAvailable:   22557628 kB\n";
+        assert_eq!(parse_mem_available(text), Some(22_557_628 * 1024));
+        assert_eq!(parse_mem_available("MemTotal: 5 kB\n"), None);
+    }
+
+    #[test]
+    fn estimate_grows_with_each_part_of_the_run() {
+        let base = estimate(&scenario(""), 1);
+        let two = estimate(&scenario(""), 2);
+        assert_eq!(two.total_bytes() - base.total_bytes(), base.worker_bytes);
+        let shocked = estimate(
+            &scenario("[[shock]]\nname = \"illness\"\nscope = \"member\"\nprobability = 0.1\n"),
+            1,
+        );
+        assert_eq!(
+            shocked.worker_bytes - base.worker_bytes,
+            10_000 * SLOT_SHOCK_BYTES + 10 * 8
+        );
+        let longer = estimate(&scenario("[sweep]\ngroup_size = [4, 5]\n"), 1);
+        assert!(longer.tally_bytes > 2 * base.tally_bytes - 1);
+        // more workers than tasks never run at once
+        assert_eq!(estimate(&scenario(""), 64).workers, 10);
+    }
+
+    #[test]
+    fn a_run_above_the_limit_is_refused_with_its_estimate() {
+        let e = estimate(&scenario(""), 1);
+        assert!(check(&e, Some(1.0)).is_ok());
+        let err = check(&e, Some(0.001)).unwrap_err().to_string();
+        assert!(
+            err.contains("GiB of memory, above the 0.00 GiB given by --max-memory"),
+            "{err}"
+        );
+        assert!(err.contains(&format!("{:.2}", e.total_gib())), "{err}");
+        assert!(
+            check(&e, Some(-1.0))
+                .unwrap_err()
+                .to_string()
+                .starts_with("--max-memory = -1")
+        );
+        assert!(check(&e, Some(f64::NAN)).is_err());
+    }
+}

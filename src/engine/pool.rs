@@ -1,0 +1,197 @@
+//! Member and pool state, and model step 1 (entry).
+//!
+//! Members are stored village by village (structure of arrays) so that everything one village
+//! touches in a cycle is contiguous; groups are stored as member lists with offsets, so a group's
+//! size is whatever formation made it.
+
+use super::ArmReplication;
+use super::streams;
+
+/// Per-member state, stored village by village (structure of arrays).
+pub(super) struct Pool {
+    /// Whether the slot holds a member.
+    pub occupied: Vec<bool>,
+    /// Entrants so far; the current member is entrant number `entrants - 1`.
+    pub entrants: Vec<u32>,
+    /// Income ratio w (income / amount due).
+    pub income: Vec<f64>,
+    /// Risk multiplier u.
+    pub risk: Vec<f64>,
+    /// Last cycle of exclusion; eligible in cycle t iff `excluded_through < t`.
+    pub excluded_through: Vec<u32>,
+    /// Hit probability min(1, u p) per member-scope shock row: `hit_probability[row * N + index]`.
+    pub hit_probability: Vec<f64>,
+    /// Its normal quantile Phi^-1(min(1, u p)), the threshold of the factor model.
+    pub threshold: Vec<f64>,
+    /// Whether the member is in a group this cycle.
+    pub assigned: Vec<bool>,
+    /// Capacity multiplier prod (1 - s) this cycle.
+    pub multiplier: Vec<f64>,
+    /// Whether the member fell short of the amount due this cycle (S > 0).
+    pub short: Vec<bool>,
+}
+
+impl Pool {
+    /// An empty pool of `n` slots with `member_shocks` member-scope shocks.
+    pub fn new(n: usize, member_shocks: usize) -> Self {
+        Pool {
+            occupied: vec![false; n],
+            entrants: vec![0; n],
+            income: vec![0.0; n],
+            risk: vec![0.0; n],
+            excluded_through: vec![0; n],
+            hit_probability: vec![0.0; member_shocks * n],
+            threshold: vec![f64::NEG_INFINITY; member_shocks * n],
+            assigned: vec![false; n],
+            multiplier: vec![1.0; n],
+            short: vec![false; n],
+        }
+    }
+
+    /// Whether slot `i` holds a member who may borrow in `cycle`.
+    #[inline]
+    pub fn eligible(&self, i: usize, cycle: u32) -> bool {
+        self.occupied[i] && self.excluded_through[i] < cycle
+    }
+}
+
+/// Where each village's members sit in the pool arrays.
+pub(super) struct Layout {
+    /// Slots (= villages' total size).
+    pub n: usize,
+    /// Villages V.
+    pub villages: usize,
+    /// First internal index of each village, and one past the last (length V + 1).
+    pub village_start: Vec<usize>,
+}
+
+impl Layout {
+    /// Slot j lives in village j % V; village v's members are stored at `village_start[v]..`.
+    pub fn new(borrowers: u32, villages: u32, village_size: impl Fn(u32) -> u32) -> Self {
+        let mut village_start = Vec::with_capacity(villages as usize + 1);
+        let mut at = 0usize;
+        for v in 0..villages {
+            village_start.push(at);
+            at += village_size(v) as usize;
+        }
+        village_start.push(at);
+        Layout {
+            n: borrowers as usize,
+            villages: villages as usize,
+            village_start,
+        }
+    }
+
+    /// Internal indices of village `v`.
+    #[inline]
+    pub fn range(&self, v: usize) -> std::ops::Range<usize> {
+        self.village_start[v]..self.village_start[v + 1]
+    }
+
+    /// The scenario's slot number of internal index `i` in village `v` (used to key streams).
+    #[inline]
+    pub fn slot_of(&self, v: usize, i: usize) -> u32 {
+        (v + self.villages * (i - self.village_start[v])) as u32
+    }
+}
+
+/// One cycle's groups: group g's members are `members[offsets[g] .. offsets[g + 1]]`, and the
+/// groups of village v are `village_first[v] .. village_first[v + 1]`.
+#[derive(Debug, Clone)]
+pub(super) struct Groups {
+    /// Internal indices of grouped members, group after group.
+    pub members: Vec<u32>,
+    /// Start of each group in `members`, then one past the last (length groups + 1).
+    pub offsets: Vec<u32>,
+    /// First group of each village, then one past the last (length V + 1).
+    pub village_first: Vec<usize>,
+}
+
+impl Groups {
+    /// No groups, for a pool of `villages` villages.
+    pub fn new(villages: usize, capacity: usize) -> Self {
+        Groups {
+            members: Vec::with_capacity(capacity),
+            offsets: vec![0],
+            village_first: vec![0; villages + 1],
+        }
+    }
+
+    /// Removes every group.
+    pub fn clear(&mut self) {
+        self.members.clear();
+        self.offsets.clear();
+        self.offsets.push(0);
+    }
+
+    /// Number of groups.
+    #[inline]
+    pub fn len(&self) -> usize {
+        self.offsets.len() - 1
+    }
+
+    /// Whether there is no group.
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+
+    /// Members of each group from `first` on, in order.
+    #[inline]
+    pub fn iter_from(&self, first: usize) -> impl Iterator<Item = &[u32]> {
+        let members = &self.members;
+        self.offsets[first..]
+            .windows(2)
+            .map(move |w| &members[w[0] as usize..w[1] as usize])
+    }
+
+    /// Member positions (in `members`) of groups `first..last`.
+    #[inline]
+    pub fn member_range(&self, first: usize, last: usize) -> std::ops::Range<usize> {
+        self.offsets[first] as usize..self.offsets[last] as usize
+    }
+
+    /// Appends a whole group.
+    pub fn push_group(&mut self, members: &[u32]) {
+        self.members.extend_from_slice(members);
+        self.offsets.push(self.members.len() as u32);
+    }
+
+    /// Appends members cut into consecutive groups of `size`; their number is a multiple of `size`.
+    #[inline]
+    pub fn push_equal_groups(&mut self, size: usize, members: impl ExactSizeIterator<Item = u32>) {
+        let base = self.members.len() as u32;
+        let groups = (members.len() / size) as u32;
+        self.members.extend(members);
+        self.offsets.extend((1..=groups).map(|j| base + j * size as u32));
+    }
+}
+
+impl ArmReplication<'_> {
+    /// Step 1: empty slots get new entrants (always in the first cycle, later only when departures
+    /// are replaced). Each entrant's attributes come from its own (slot, entrant) stream, so a
+    /// rejection sampler's retries can never shift another entrant's draws.
+    pub(super) fn entry(&mut self, v: usize, cycle: u32) {
+        if cycle > 1 && !self.arm.replace_departures {
+            return;
+        }
+        for i in self.layout.range(v) {
+            if self.pool.occupied[i] {
+                continue;
+            }
+            let entrant = self.pool.entrants[i];
+            self.pool.entrants[i] += 1;
+            let slot = self.layout.slot_of(v, i);
+            let mut rng = streams::open(&self.key, streams::entry_stream_id(slot, entrant));
+            let income = self.arm.income.sample(&mut rng);
+            let risk = self.arm.risk.sample(&mut rng);
+            self.pool.occupied[i] = true;
+            self.pool.income[i] = income;
+            self.pool.risk[i] = risk;
+            self.pool.excluded_through[i] = 0;
+            for row in 0..self.shocks.member_shocks.len() {
+                let p = self.shocks.cached_probability[row];
+                self.set_threshold(row, i, p);
+            }
+        }
+    }
+}

@@ -1,0 +1,146 @@
+//! The memory estimate against the peak memory of real runs, and the refusal of a run above
+//! `--max-memory`.
+
+mod common;
+
+use common::scenario;
+use loancycle::engine::memory;
+use std::process::Command;
+
+/// Runs the binary on `text` and returns its peak resident set in bytes, as the kernel reports it to
+/// the parent (`ru_maxrss` of wait4, in KiB on Linux: getrusage(2) man page).
+// The child is reaped by wait4, which clippy cannot see.
+#[allow(clippy::zombie_processes)]
+fn peak_rss_bytes(text: &str, threads: usize) -> u64 {
+    let dir = tempfile::tempdir().unwrap();
+    let file = dir.path().join("scenario.toml");
+    std::fs::write(&file, text).unwrap();
+    let child = Command::new(env!("CARGO_BIN_EXE_loancycle"))
+        .arg("run")
+        .arg(&file)
+        .arg("--out")
+        .arg(dir.path().join("out"))
+        .args(["--quiet", "--threads", &threads.to_string()])
+        .spawn()
+        .unwrap();
+    let mut status = 0;
+    // SAFETY: rusage is plain data, and wait4 reaps the child we spawned above.
+    let mut usage: libc::rusage = unsafe { std::mem::zeroed() };
+    let pid = unsafe { libc::wait4(child.id() as libc::pid_t, &mut status, 0, &mut usage) };
+    assert_eq!(pid, child.id() as libc::pid_t);
+    assert!(
+        libc::WIFEXITED(status) && libc::WEXITSTATUS(status) == 0,
+        "run failed: {status}"
+    );
+    usage.ru_maxrss as u64 * 1024
+}
+
+/// The estimate must lie within this factor of the measured peak, either way. Calibrated on the
+/// project machine (x86-64 Linux, glibc), where the estimates of the two runs below were 1.05 and
+/// 1.03 times their measured peaks.
+const FACTOR: f64 = 1.25;
+
+fn assert_estimate_close(label: &str, text: &str, threads: usize) {
+    let s = scenario(text);
+    let estimated = memory::estimate(&s, threads).total_bytes() as f64;
+    let measured = peak_rss_bytes(text, threads) as f64;
+    let ratio = estimated / measured;
+    assert!(
+        (1.0 / FACTOR..=FACTOR).contains(&ratio),
+        "{label}: estimated {estimated:.0} bytes, measured peak {measured:.0} bytes (ratio {ratio:.3})"
+    );
+}
+
+/// A large pool with two member shocks and persistent groups, on two workers: the per-slot arrays
+/// dominate (about 240 MB).
+#[test]
+fn estimate_matches_the_peak_of_a_large_pool() {
+    assert_estimate_close(
+        "large pool",
+        r#"
+        replications = 2
+        cycles = 3
+        [portfolio]
+        borrowers = 1500000
+        villages = 1000
+        [loan]
+        principal = 100
+        [[shock]]
+        name = "illness"
+        scope = "member"
+        probability = 0.05
+        village_correlation = 0.1
+        [[shock]]
+        name = "fever"
+        scope = "member"
+        probability = 0.05
+        [policy]
+        formation = "persistent"
+        "#,
+        2,
+    );
+}
+
+/// Many replications of many cycles of two arms: the per-cycle records dominate (2 million records,
+/// about 110 MB).
+#[test]
+fn estimate_matches_the_peak_of_many_records() {
+    assert_estimate_close(
+        "many records",
+        r#"
+        replications = 1000
+        cycles = 1000
+        [portfolio]
+        borrowers = 20
+        [loan]
+        principal = 100
+        [[shock]]
+        name = "illness"
+        scope = "member"
+        probability = 0.05
+        [sweep]
+        group_size = [4, 5]
+        "#,
+        1,
+    );
+}
+
+/// A run estimated above `--max-memory` is refused before it starts: exit 2, one line with the
+/// estimate; a limit that is not a positive number is refused the same way.
+#[test]
+fn a_run_above_max_memory_exits_2() {
+    let dir = tempfile::tempdir().unwrap();
+    let file = dir.path().join("scenario.toml");
+    std::fs::write(
+        &file,
+        "replications = 2\ncycles = 3\n[portfolio]\nborrowers = 20\n[loan]\nprincipal = 100\n",
+    )
+    .unwrap();
+    for (limit, expected) in [
+        ("0.001", "GiB of memory, above the 0.00 GiB given by --max-memory"),
+        ("-3", "--max-memory = -3 is not allowed"),
+    ] {
+        let out = Command::new(env!("CARGO_BIN_EXE_loancycle"))
+            .arg("run")
+            .arg(&file)
+            .arg("--out")
+            .arg(dir.path().join("out"))
+            .args(["--quiet", "--max-memory", limit])
+            .output()
+            .unwrap();
+        assert_eq!(out.status.code(), Some(2), "--max-memory {limit}");
+        let stderr = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(stderr.lines().count(), 1, "{stderr}");
+        assert!(stderr.contains(expected), "{stderr}");
+        assert!(!dir.path().join("out").exists(), "nothing may be written");
+    }
+    let ok = Command::new(env!("CARGO_BIN_EXE_loancycle"))
+        .arg("run")
+        .arg(&file)
+        .arg("--out")
+        .arg(dir.path().join("out"))
+        .args(["--quiet", "--max-memory", "4"])
+        .status()
+        .unwrap();
+    assert_eq!(ok.code(), Some(0));
+}
