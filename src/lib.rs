@@ -33,6 +33,7 @@
 //! ```
 
 pub mod analytic;
+pub mod board;
 pub mod companion;
 pub mod curve;
 pub mod demo;

@@ -5,7 +5,7 @@ use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 use loancycle::analytic::{self, optimum};
 use loancycle::output::{self, terminal};
 use loancycle::scenario::Scenario;
-use loancycle::{demo, report, run};
+use loancycle::{board, demo, report, run};
 use std::path::PathBuf;
 use std::process::ExitCode;
 
@@ -41,6 +41,14 @@ enum Command {
         /// Replace results already in the output directory.
         #[arg(long)]
         force: bool,
+        /// Also write the board report (report.html and charts/) into the output directory.
+        #[arg(long)]
+        report: bool,
+    },
+    /// Write DIR/report.html and DIR/charts/*.svg from a finished run, without simulating again.
+    Report {
+        /// The run's output directory.
+        dir: PathBuf,
     },
     /// Validate a scenario file and list the arms it resolves to, without simulating.
     Check {
@@ -129,6 +137,24 @@ fn optimum_request(
     Ok(optimum::OptimumRequest { curve, band, range })
 }
 
+/// Writes the board report of the run in `dir`; bad input exits with code 2.
+fn board_report(dir: &std::path::Path, quiet: bool) -> ExitCode {
+    match board::write_report(dir) {
+        Ok(paths) => {
+            if !quiet {
+                for p in paths {
+                    println!("wrote {}", p.display());
+                }
+            }
+            ExitCode::SUCCESS
+        }
+        Err(e) => {
+            eprintln!("error: {e}");
+            ExitCode::from(if e.is_bad_input() { BAD_INPUT } else { 1 })
+        }
+    }
+}
+
 fn main() -> ExitCode {
     let cli = Cli::parse();
     match cli.command {
@@ -175,6 +201,7 @@ fn main() -> ExitCode {
                 ExitCode::from(BAD_INPUT)
             }
         },
+        Command::Report { dir } => board_report(&dir, false),
         Command::DemoScenario => {
             print!("{}", demo::BASELINE);
             ExitCode::SUCCESS
@@ -197,6 +224,7 @@ fn main() -> ExitCode {
             threads,
             quiet,
             force,
+            report: with_report,
         } => {
             let (mut scenario, text, origin) = match load(file.as_ref()) {
                 Ok(x) => x,
@@ -260,6 +288,9 @@ fn main() -> ExitCode {
                         for w in &report.warnings {
                             eprintln!("warning: {w}");
                         }
+                    }
+                    if with_report {
+                        return board_report(&out, quiet);
                     }
                     ExitCode::SUCCESS
                 }
