@@ -1019,7 +1019,13 @@ fn frontier(d: &RunData) -> Result<Option<Chart>, BoardError> {
                 let b = (px + ox, py + oy, px + ox + w, py + oy + h);
                 (b.0 >= left && b.2 <= right && b.1 >= top_px && b.3 <= bottom && !overlaps(&b, &taken)).then_some(b)
             };
-            let chosen = candidates.iter().find_map(|&c| fits(c)).unwrap_or((px + 10, py - 20, px + 10 + w, py - 4));
+            // A crowded dominated arm goes unlabelled rather than covering another label: its hover
+            // text and the summary table still name it. Frontier arms are always labelled.
+            let chosen = match candidates.iter().find_map(|&c| fits(c)) {
+                Some(b) => b,
+                None if *on => (px + 10, py - 20, px + 10 + w, py - 4),
+                None => continue,
+            };
             taken.push(chosen);
             let color = if *on { INK } else { MUTED };
             root.draw(&Text::new(text, (chosen.0 + 1, chosen.1), TextStyle::from((FONT, 15).into_font()).color(&color)))?;
@@ -1035,7 +1041,8 @@ fn frontier(d: &RunData) -> Result<Option<Chart>, BoardError> {
     let caption = "Each marker is one arm, numbered as in the summary table: across, the share of borrower slots \
         served; up, the loss as a share of the amount lent. Filled markers joined by the line form the frontier: for \
         each of them, no other arm both serves more borrowers and loses less. Choosing among them is a trade-off \
-        between outreach and loss; an arm off the frontier is beaten on both."
+        between outreach and loss; an arm off the frontier is beaten on both. Where markers crowd, some arms off the \
+        frontier go unnumbered; hovering over a marker names its arm."
         .to_string();
     Ok(Some(finish("frontier", title, caption, svg, marks)))
 }
