@@ -15,7 +15,9 @@ fn bin() -> Command {
 }
 
 fn data(name: &str) -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/data/report").join(name)
+    Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("tests/data/report")
+        .join(name)
 }
 
 /// Runs a scenario with `--report` into a fresh directory.
@@ -38,7 +40,11 @@ fn read_csv(path: &Path) -> Vec<HashMap<String, String>> {
     r.records()
         .map(|rec| {
             let rec = rec.expect("record");
-            headers.iter().zip(rec.iter()).map(|(h, v)| (h.to_string(), v.to_string())).collect()
+            headers
+                .iter()
+                .zip(rec.iter())
+                .map(|(h, v)| (h.to_string(), v.to_string()))
+                .collect()
         })
         .collect()
 }
@@ -69,7 +75,10 @@ fn marks_of(doc: &roxmltree::Document) -> Vec<Mark> {
         let chart = svg.attribute("data-chart").unwrap_or("").to_string();
         for m in svg.descendants().filter(|n| n.attribute("class") == Some("mark")) {
             let num = |k: &str| -> f64 {
-                m.attribute(k).unwrap_or_else(|| panic!("mark without {k}")).parse().expect("number")
+                m.attribute(k)
+                    .unwrap_or_else(|| panic!("mark without {k}"))
+                    .parse()
+                    .expect("number")
             };
             out.push(Mark {
                 chart: chart.clone(),
@@ -131,12 +140,20 @@ fn check_report(dir: &Path) -> Vec<Mark> {
             .descendants()
             .find(|n| n.has_tag_name("svg") && n.attribute("data-chart") == Some(name))
             .unwrap_or_else(|| panic!("chart {name} is not inline in report.html"));
-        assert_eq!(inline.parent_element().and_then(|p| p.attribute("id")), Some(name), "chart {name} in its figure");
+        assert_eq!(
+            inline.parent_element().and_then(|p| p.attribute("id")),
+            Some(name),
+            "chart {name} in its figure"
+        );
         let file = std::fs::read_to_string(dir.join("charts").join(format!("{name}.svg"))).expect("chart file");
         let standalone = parse(&file);
         let count = marks_of(&standalone).len();
         assert!(count > 0, "chart {name} has no marks");
-        assert_eq!(count, marks.iter().filter(|m| m.chart == name).count(), "chart {name}: file and page differ");
+        assert_eq!(
+            count,
+            marks.iter().filter(|m| m.chart == name).count(),
+            "chart {name}: file and page differ"
+        );
     }
     assert!(
         doc.descendants().filter(|n| n.has_tag_name("svg")).count() >= CHARTS.len(),
@@ -166,25 +183,44 @@ fn check_report(dir: &Path) -> Vec<Mark> {
                 row["difference"].parse().expect("number")
             }
             _ => {
-                let row = by_arm.get(m.arm.as_str()).unwrap_or_else(|| panic!("mark of unknown arm {}", m.arm));
+                let row = by_arm
+                    .get(m.arm.as_str())
+                    .unwrap_or_else(|| panic!("mark of unknown arm {}", m.arm));
                 row.get(&m.series)
                     .unwrap_or_else(|| panic!("{}: summary.csv has no column {}", m.chart, m.series))
                     .parse()
                     .unwrap_or_else(|_| panic!("{} {} plotted but empty in summary.csv", m.arm, m.series))
             }
         };
-        assert!(close(m.value, expected), "{} {} {}: plotted {} but the run says {expected}", m.chart, m.arm, m.series, m.value);
+        assert!(
+            close(m.value, expected),
+            "{} {} {}: plotted {} but the run says {expected}",
+            m.chart,
+            m.arm,
+            m.series,
+            m.value
+        );
     }
 
     // Every arm's headline figures are on the charts.
     for row in &summary {
         let arm = row["arm"].as_str();
-        let has = |chart: &str, series: &str| marks.iter().any(|m| m.chart == chart && m.series == series && m.arm == arm);
+        let has = |chart: &str, series: &str| {
+            marks
+                .iter()
+                .any(|m| m.chart == chart && m.series == series && m.arm == arm)
+        };
         assert!(has("repayment", "group_repayment_rate"), "{arm}: repayment not plotted");
         assert!(has("losses", "loss_rate"), "{arm}: loss not plotted");
-        assert!(has("frontier", "served_share") && has("frontier", "loss_rate"), "{arm}: not on the frontier chart");
+        assert!(
+            has("frontier", "served_share") && has("frontier", "loss_rate"),
+            "{arm}: not on the frontier chart"
+        );
         if !row["analytic_group_repayment"].is_empty() {
-            assert!(has("repayment", "analytic_group_repayment"), "{arm}: exact value not plotted");
+            assert!(
+                has("repayment", "analytic_group_repayment"),
+                "{arm}: exact value not plotted"
+            );
         }
         for q in ["loss_p95", "loss_p99"] {
             if !row[q].is_empty() {
@@ -211,8 +247,15 @@ fn check_report(dir: &Path) -> Vec<Mark> {
     // Positions agree with values on every axis scale.
     let mut groups: BTreeMap<(String, String, String), Vec<&Mark>> = BTreeMap::new();
     for m in &marks {
-        let panel = if m.chart == "cycles" || m.chart == "differences" { m.series.clone() } else { String::new() };
-        groups.entry((m.chart.clone(), m.axis.clone(), panel)).or_default().push(m);
+        let panel = if m.chart == "cycles" || m.chart == "differences" {
+            m.series.clone()
+        } else {
+            String::new()
+        };
+        groups
+            .entry((m.chart.clone(), m.axis.clone(), panel))
+            .or_default()
+            .push(m);
     }
     for ((chart, axis, panel), group) in &groups {
         assert_linear(&format!("{chart} {axis} {panel}"), group);
@@ -228,10 +271,17 @@ fn assert_offline(html: &str) {
     for n in doc.descendants() {
         for a in n.attributes() {
             if a.name() == "src" || a.name() == "href" {
-                assert!(a.value().starts_with('#'), "{} = {} leaves the page", a.name(), a.value());
+                assert!(
+                    a.value().starts_with('#'),
+                    "{} = {} leaves the page",
+                    a.name(),
+                    a.value()
+                );
             }
         }
-        assert!(!n.has_tag_name("script") && !n.has_tag_name("img") && !n.has_tag_name("iframe") && !n.has_tag_name("link"));
+        assert!(
+            !n.has_tag_name("script") && !n.has_tag_name("img") && !n.has_tag_name("iframe") && !n.has_tag_name("link")
+        );
     }
     let stripped = html.replace("xmlns=\"http://www.w3.org/2000/svg\"", "");
     for scheme in ["http:", "https:", "ftp:", "//cdn", "url(", "@import", "data:"] {
@@ -247,19 +297,43 @@ fn report_of_a_real_run_agrees_with_its_files() {
     let cycles = std::fs::read_to_string(dir.join("charts/cycles.svg")).expect("cycles chart");
     assert!(cycles.contains("drought stress"), "stress window label missing");
     // Of eight arms, at most six are drawn, each over twelve counted cycles in three panels.
-    let drawn: std::collections::BTreeSet<&str> =
-        marks.iter().filter(|m| m.chart == "cycles").map(|m| m.arm.as_str()).collect();
+    let drawn: std::collections::BTreeSet<&str> = marks
+        .iter()
+        .filter(|m| m.chart == "cycles")
+        .map(|m| m.arm.as_str())
+        .collect();
     assert!((3..=6).contains(&drawn.len()), "{drawn:?}");
-    assert_eq!(marks.iter().filter(|m| m.chart == "cycles").count(), drawn.len() * 12 * 3);
+    assert_eq!(
+        marks.iter().filter(|m| m.chart == "cycles").count(),
+        drawn.len() * 12 * 3
+    );
     let html = std::fs::read_to_string(dir.join("report.html")).expect("report");
-    for needed in ["model estimates for planning", "client-protection practice", "scenario SHA-256", "4242"] {
-        assert!(html.to_lowercase().contains(&needed.to_lowercase()), "report lacks {needed}");
+    for needed in [
+        "model estimates for planning",
+        "client-protection practice",
+        "scenario SHA-256",
+        "4242",
+    ] {
+        assert!(
+            html.to_lowercase().contains(&needed.to_lowercase()),
+            "report lacks {needed}"
+        );
     }
     let json: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(dir.join("summary.json")).expect("json")).expect("valid json");
-    assert!(html.contains(json["scenario_sha256"].as_str().expect("hash")), "stamp lacks the scenario hash");
-    assert!(html.contains(json["tool"].as_str().expect("tool")), "stamp lacks the tool version");
-    assert!(!dir.read_dir().expect("dir").any(|e| e.expect("entry").file_name().to_string_lossy().ends_with(".partial")));
+    assert!(
+        html.contains(json["scenario_sha256"].as_str().expect("hash")),
+        "stamp lacks the scenario hash"
+    );
+    assert!(
+        html.contains(json["tool"].as_str().expect("tool")),
+        "stamp lacks the tool version"
+    );
+    assert!(
+        !dir.read_dir()
+            .expect("dir")
+            .any(|e| e.expect("entry").file_name().to_string_lossy().ends_with(".partial"))
+    );
 }
 
 #[test]
@@ -342,9 +416,21 @@ fn synthetic_run(dir: &Path, arms: usize, replications: usize, cycles: usize) {
             ts.push_str(&format!("\"{l}\",{c},{served},{repay},{loss},{}\n", 1.0 - served));
         }
         if a > 0 {
-            for metric in ["group_repayment_rate", "loss_rate", "net_yield", "served_share", "excluded_share"] {
+            for metric in [
+                "group_repayment_rate",
+                "loss_rate",
+                "net_yield",
+                "served_share",
+                "excluded_share",
+            ] {
                 let d = uniform() * 0.02 - 0.01;
-                diffs.push_str(&format!("\"{l}\",\"{}\",{metric},{d},0.001,{},{},{},0.2\n", label(0), d - 0.002, d + 0.002, d.abs() > 0.002));
+                diffs.push_str(&format!(
+                    "\"{l}\",\"{}\",{metric},{d},0.001,{},{},{},0.2\n",
+                    label(0),
+                    d - 0.002,
+                    d + 0.002,
+                    d.abs() > 0.002
+                ));
             }
         }
     }
@@ -398,7 +484,10 @@ fn fifty_arms_and_a_thousand_replications_stay_under_two_megabytes() {
     // quantile, the significance verdict, and the group-size table.
     let summary = read_csv(&dir.join("summary.csv"));
     for row in &summary {
-        let flag = marks.iter().find(|m| m.chart == "frontier" && m.arm == row["arm"]).expect("frontier mark");
+        let flag = marks
+            .iter()
+            .find(|m| m.chart == "frontier" && m.arm == row["arm"])
+            .expect("frontier mark");
         assert_eq!(flag.attrs["data-frontier"], row["on_frontier"]);
         let worst = marks
             .iter()
@@ -408,11 +497,17 @@ fn fifty_arms_and_a_thousand_replications_stay_under_two_megabytes() {
     }
     let diffs = read_csv(&dir.join("differences.csv"));
     for m in marks.iter().filter(|m| m.chart == "differences") {
-        let row = diffs.iter().find(|r| r["arm"] == m.arm && r["metric"] == m.series).expect("row");
+        let row = diffs
+            .iter()
+            .find(|r| r["arm"] == m.arm && r["metric"] == m.series)
+            .expect("row");
         assert_eq!(m.attrs["data-significant"], row["significant"]);
     }
     assert!(html.contains("id=\"group-size\""), "group-size table missing");
-    assert!(html.contains("9.9.9") && html.contains(&"ab".repeat(32)), "stamp missing");
+    assert!(
+        html.contains("9.9.9") && html.contains(&"ab".repeat(32)),
+        "stamp missing"
+    );
     assert_offline(&html);
 }
 
@@ -435,7 +530,10 @@ fn bad_input_is_refused_in_one_line_and_nothing_is_half_written() {
     let empty = tmp.path().join("empty");
     std::fs::create_dir(&empty).expect("dir");
     let e = refused(&["report".as_ref(), empty.as_os_str()]);
-    assert!(e.contains("summary.csv") && e.contains("not a finished run directory"), "{e}");
+    assert!(
+        e.contains("summary.csv") && e.contains("not a finished run directory"),
+        "{e}"
+    );
 
     let dir = tmp.path().join("run");
     synthetic_run(&dir, 3, 20, 5);
@@ -445,8 +543,14 @@ fn bad_input_is_refused_in_one_line_and_nothing_is_half_written() {
     lines[2] = lines[2].replacen(",0.", ",zero.", 3);
     std::fs::write(dir.join("summary.csv"), lines.join("\n") + "\n").expect("write");
     let e = refused(&["report".as_ref(), dir.as_os_str()]);
-    assert!(e.contains("summary.csv line 3, column ") && e.contains("value \"zero."), "{e}");
-    assert_eq!(std::fs::read_to_string(dir.join("report.html")).expect("report"), "earlier report");
+    assert!(
+        e.contains("summary.csv line 3, column ") && e.contains("value \"zero."),
+        "{e}"
+    );
+    assert_eq!(
+        std::fs::read_to_string(dir.join("report.html")).expect("report"),
+        "earlier report"
+    );
     assert!(!dir.join("charts").exists(), "no chart is written from bad input");
 
     std::fs::write(dir.join("summary.csv"), summary).expect("restore");
@@ -463,8 +567,14 @@ fn bad_input_is_refused_in_one_line_and_nothing_is_half_written() {
     let summary = std::fs::read_to_string(dir.join("summary.csv")).expect("summary");
     std::fs::write(dir.join("summary.csv"), summary.replacen("loss_rate,", "loss,", 1)).expect("write");
     let e = refused(&["report".as_ref(), dir.as_os_str()]);
-    assert!(e.contains("summary.csv line 1, column loss_rate") && e.contains("missing"), "{e}");
-    assert_eq!(std::fs::read_to_string(dir.join("report.html")).expect("report"), "earlier report");
+    assert!(
+        e.contains("summary.csv line 1, column loss_rate") && e.contains("missing"),
+        "{e}"
+    );
+    assert_eq!(
+        std::fs::read_to_string(dir.join("report.html")).expect("report"),
+        "earlier report"
+    );
 }
 
 #[test]
@@ -477,6 +587,9 @@ fn older_runs_without_optional_files_still_get_a_report() {
     }
     loancycle::board::write_report(&dir).expect("report without optional files");
     let html = std::fs::read_to_string(dir.join("report.html")).expect("report");
-    assert!(!html.contains("data-chart=\"differences\""), "no comparison without differences.csv");
+    assert!(
+        !html.contains("data-chart=\"differences\""),
+        "no comparison without differences.csv"
+    );
     assert!(html.contains("data-chart=\"frontier\""));
 }

@@ -50,7 +50,9 @@ struct Marks(Vec<String>);
 
 impl Marks {
     /// Records a plotted figure at pixel `px`; `axis` says which pixel coordinate encodes the value.
-    fn add(&mut self, px: (i32, i32), axis: char, arm: &str, series: &str, value: f64, extra: &[(&str, String)], tip: &str) {
+    /// `what` is the (arm label, column name) of the figure.
+    fn add(&mut self, px: (i32, i32), axis: char, what: (&str, &str), value: f64, extra: &[(&str, String)], tip: &str) {
+        let (arm, series) = what;
         let mut s = format!(
             "<circle class=\"mark\" cx=\"{}\" cy=\"{}\" r=\"7\" fill=\"#000\" fill-opacity=\"0\" data-axis=\"{axis}\" \
              data-arm=\"{}\" data-series=\"{series}\" data-value=\"{value}\"",
@@ -86,7 +88,10 @@ pub fn escape(s: &str) -> String {
 fn finish(name: &'static str, title: String, caption: String, svg: String, marks: Marks) -> Chart {
     let mut svg = svg.replacen(
         "<svg ",
-        &format!("<svg data-chart=\"{name}\" role=\"img\" aria-label=\"{}\" ", escape(&title)),
+        &format!(
+            "<svg data-chart=\"{name}\" role=\"img\" aria-label=\"{}\" ",
+            escape(&title)
+        ),
         1,
     );
     let layer = format!("<g class=\"marks\">\n{}\n</g>\n", marks.0.join("\n"));
@@ -139,7 +144,11 @@ fn step_decimals(step: f64) -> usize {
 /// A signed tick label; zero is written plainly, never as -0.
 fn signed(v: f64, decimals: usize) -> String {
     let text = format!("{v:+.decimals$}");
-    if text[1..].chars().all(|c| c == '0' || c == '.') { "0".to_string() } else { text }
+    if text[1..].chars().all(|c| c == '0' || c == '.') {
+        "0".to_string()
+    } else {
+        text
+    }
 }
 
 /// A padded range around values; `floor_zero` keeps it from crossing below 0.
@@ -218,7 +227,13 @@ fn x_layout(swept: &[String], arms: &[&ArmRow]) -> XLayout {
         .filter(|k| arms.iter().all(|a| a.keys.iter().any(|(ak, _)| ak == *k)))
         .cloned();
     if let Some(key) = key {
-        let value = |a: &ArmRow| a.keys.iter().find(|(k, _)| *k == key).map(|(_, v)| v.clone()).unwrap_or_default();
+        let value = |a: &ArmRow| {
+            a.keys
+                .iter()
+                .find(|(k, _)| *k == key)
+                .map(|(_, v)| v.clone())
+                .unwrap_or_default()
+        };
         let rest = |a: &ArmRow| {
             a.keys
                 .iter()
@@ -246,10 +261,19 @@ fn x_layout(swept: &[String], arms: &[&ArmRow]) -> XLayout {
             };
             let mut ticks: Vec<(f64, String)> = categories.iter().map(|c| (position(c), c.clone())).collect();
             ticks.sort_by(|a, b| a.0.total_cmp(&b.0));
-            let gap = ticks.windows(2).map(|w| w[1].0 - w[0].0).filter(|g| *g > 0.0).fold(f64::INFINITY, f64::min);
+            let gap = ticks
+                .windows(2)
+                .map(|w| w[1].0 - w[0].0)
+                .filter(|g| *g > 0.0)
+                .fold(f64::INFINITY, f64::min);
             let place = arms
                 .iter()
-                .map(|a| (series.iter().position(|s| *s == rest(a)).unwrap_or(0), position(&value(a))))
+                .map(|a| {
+                    (
+                        series.iter().position(|s| *s == rest(a)).unwrap_or(0),
+                        position(&value(a)),
+                    )
+                })
                 .collect();
             return XLayout {
                 desc: key_words(&key),
@@ -271,7 +295,12 @@ fn x_layout(swept: &[String], arms: &[&ArmRow]) -> XLayout {
 }
 
 /// Draws tick labels under the x axis at given positions (categorical axes).
-fn x_ticks(root: &DrawingArea<Svg<'_>, Shift>, chart: &Plot<'_, '_>, y: f64, ticks: &[(f64, String)]) -> Result<(), BoardError> {
+fn x_ticks(
+    root: &DrawingArea<Svg<'_>, Shift>,
+    chart: &Plot<'_, '_>,
+    y: f64,
+    ticks: &[(f64, String)],
+) -> Result<(), BoardError> {
     let style = font(TICK_FONT).pos(Pos::new(HPos::Center, VPos::Top));
     // Thin the labels when they would collide; every position keeps its tick mark.
     let mut last_right = i32::MIN;
@@ -304,22 +333,41 @@ fn repayment(d: &RunData) -> Result<Option<Chart>, BoardError> {
         .series
         .iter()
         .enumerate()
-        .map(|(i, s)| LegendEntry::series(if s.is_empty() { "simulated".to_string() } else { format!("simulated, {s}") }, SERIES[i]))
+        .map(|(i, s)| {
+            LegendEntry::series(
+                if s.is_empty() {
+                    "simulated".to_string()
+                } else {
+                    format!("simulated, {s}")
+                },
+                SERIES[i],
+            )
+        })
         .collect();
     entries.push(LegendEntry::line("95% confidence interval", INK, None));
     if any_exact {
-        entries.push(LegendEntry::mark("exact one-factor value (hollow)", INK, Marker::Circle, true));
+        entries.push(LegendEntry::mark(
+            "exact one-factor value (hollow)",
+            INK,
+            Marker::Circle,
+            true,
+        ));
     }
     let legend_h = style::legend_height(&entries, WIDTH);
     let height = 560 + legend_h;
     let values = arms.iter().flat_map(|a| {
         let r = a.repayment.unwrap_or(0.0) * 100.0;
         let (lo, hi) = a.repayment_ci.map_or((r, r), |(l, h)| (l * 100.0, h * 100.0));
-        [Some(r), Some(lo), Some(hi), a.exact.map(|e| e * 100.0)].into_iter().flatten()
+        [Some(r), Some(lo), Some(hi), a.exact.map(|e| e * 100.0)]
+            .into_iter()
+            .flatten()
     });
     let (y0, y1) = padded(values, 0.15, true, Some(100.0));
     let xs = layout.ticks.iter().map(|t| t.0);
-    let (xmin, xmax) = (xs.clone().fold(f64::INFINITY, f64::min), xs.fold(f64::NEG_INFINITY, f64::max));
+    let (xmin, xmax) = (
+        xs.clone().fold(f64::INFINITY, f64::min),
+        xs.fold(f64::NEG_INFINITY, f64::max),
+    );
     let (x0, x1) = (xmin - 0.6 * layout.gap, xmax + 0.6 * layout.gap);
     let n_series = layout.series.len() as f64;
     let slot = layout.gap * 0.5 / n_series;
@@ -352,8 +400,7 @@ fn repayment(d: &RunData) -> Result<Option<Chart>, BoardError> {
             .axis_style(MUTED)
             .draw()?;
         x_ticks(&root, &chart, y0, &layout.ticks)?;
-        for s in 0..layout.series.len() {
-            let st = SERIES[s];
+        for (s, &st) in SERIES.iter().enumerate().take(layout.series.len()) {
             let offset = (s as f64 - (n_series - 1.0) / 2.0) * slot;
             let mut members: Vec<(&ArmRow, f64)> = arms
                 .iter()
@@ -362,7 +409,10 @@ fn repayment(d: &RunData) -> Result<Option<Chart>, BoardError> {
                 .map(|(a, (_, x))| (*a, *x + offset))
                 .collect();
             members.sort_by(|a, b| a.1.total_cmp(&b.1));
-            let path: Vec<(f64, f64)> = members.iter().map(|(a, x)| (*x, a.repayment.unwrap_or(0.0) * 100.0)).collect();
+            let path: Vec<(f64, f64)> = members
+                .iter()
+                .map(|(a, x)| (*x, a.repayment.unwrap_or(0.0) * 100.0))
+                .collect();
             if path.len() > 1 {
                 style::line(chart.plotting_area(), path, st.color, 2, st.dash)?;
             }
@@ -370,18 +420,25 @@ fn repayment(d: &RunData) -> Result<Option<Chart>, BoardError> {
                 let r = a.repayment.unwrap_or(0.0);
                 if let Some((lo, hi)) = a.repayment_ci {
                     let area = chart.plotting_area();
-                    area.draw(&PathElement::new(vec![(*x, lo * 100.0), (*x, hi * 100.0)], INK.stroke_width(2)))?;
+                    area.draw(&PathElement::new(
+                        vec![(*x, lo * 100.0), (*x, hi * 100.0)],
+                        INK.stroke_width(2),
+                    ))?;
                     for v in [lo, hi] {
-                        area.draw(&(EmptyElement::at((*x, v * 100.0)) + PathElement::new(vec![(-6, 0), (6, 0)], INK.stroke_width(2))))?;
+                        area.draw(
+                            &(EmptyElement::at((*x, v * 100.0))
+                                + PathElement::new(vec![(-6, 0), (6, 0)], INK.stroke_width(2))),
+                        )?;
                     }
                 }
                 style::marker(chart.plotting_area(), (*x, r * 100.0), st.marker, st.color, false, 6)?;
-                let ci = a.repayment_ci.map_or(String::new(), |(l, h)| format!(" (95% CI {} to {})", pct(l, 2), pct(h, 2)));
+                let ci = a.repayment_ci.map_or(String::new(), |(l, h)| {
+                    format!(" (95% CI {} to {})", pct(l, 2), pct(h, 2))
+                });
                 marks.add(
                     chart.backend_coord(&(*x, r * 100.0)),
                     'y',
-                    &a.label,
-                    "group_repayment_rate",
+                    (&a.label, "group_repayment_rate"),
                     r,
                     &[],
                     &format!("{}: {} of groups repaid in full{ci}", a.label, pct(r, 2)),
@@ -392,8 +449,7 @@ fn repayment(d: &RunData) -> Result<Option<Chart>, BoardError> {
                     marks.add(
                         chart.backend_coord(&(ex, e * 100.0)),
                         'y',
-                        &a.label,
-                        "analytic_group_repayment",
+                        (&a.label, "analytic_group_repayment"),
                         e,
                         &[],
                         &format!("{}: exact one-factor value {}", a.label, pct(e, 2)),
@@ -447,9 +503,14 @@ fn losses(d: &RunData) -> Result<Option<Chart>, BoardError> {
     // Worst-cycle figure: the run's own quantile when it writes one, else from replications.csv,
     // else the single-cycle tail over all replication-cycles that older runs write.
     let has_worst = arms.iter().any(|a| a.worst_q[2].is_some())
-        || d.replications.as_ref().is_some_and(|r| r.values().any(|v| v.worst_cycle.len() >= 100));
+        || d.replications
+            .as_ref()
+            .is_some_and(|r| r.values().any(|v| v.worst_cycle.len() >= 100));
     let (worst_series, worst_words) = if has_worst {
-        ("worst_cycle_loss_p99", "worst single cycle, 99th percentile over replications")
+        (
+            "worst_cycle_loss_p99",
+            "worst single cycle, 99th percentile over replications",
+        )
     } else {
         ("loss_cycle_p99", "single-cycle loss, 99th percentile over all cycles")
     };
@@ -492,18 +553,35 @@ fn losses(d: &RunData) -> Result<Option<Chart>, BoardError> {
         .collect();
     let any_spread = rows.iter().any(|r| r.spread.is_some());
     let title = "Loss across replications, with the tail marked".to_string();
-    let qstyle = [(SERIES[2], "95th percentile"), (SERIES[1], "99th percentile"), (SERIES[3], "99.9th percentile")];
-    let mut entries = vec![LegendEntry::mark("mean loss over the horizon", SERIES[0].color, Marker::Circle, false)];
+    let qstyle = [
+        (SERIES[2], "95th percentile"),
+        (SERIES[1], "99th percentile"),
+        (SERIES[3], "99.9th percentile"),
+    ];
+    let mut entries = vec![LegendEntry::mark(
+        "mean loss over the horizon",
+        SERIES[0].color,
+        Marker::Circle,
+        false,
+    )];
     for (i, (s, words)) in qstyle.iter().enumerate() {
         if rows.iter().any(|r| r.q[i].is_some()) {
-            entries.push(LegendEntry::mark(format!("{words} of replications"), s.color, s.marker, false));
+            entries.push(LegendEntry::mark(
+                format!("{words} of replications"),
+                s.color,
+                s.marker,
+                false,
+            ));
         }
     }
     if rows.iter().any(|r| r.worst.is_some()) {
         entries.push(LegendEntry::mark(worst_words, SERIES[5].color, Marker::Cross, false));
     }
     if any_spread {
-        entries.push(LegendEntry::band("middle half of replications (line: lowest to highest)", BOX));
+        entries.push(LegendEntry::band(
+            "middle half of replications (line: lowest to highest)",
+            BOX,
+        ));
     } else {
         entries.push(LegendEntry::line("median to highest percentile", MUTED, None));
     }
@@ -563,48 +641,84 @@ fn losses(d: &RunData) -> Result<Option<Chart>, BoardError> {
             root.draw(&Text::new(row_label(r.arm, chars), (lx - 12, ly), label_style.clone()))?;
             match r.spread {
                 Some([min, p25, p50, p75, max]) => {
-                    area.draw(&PathElement::new(vec![(min * 100.0, y), (max * 100.0, y)], MUTED.stroke_width(1)))?;
-                    area.draw(&Rectangle::new([(p25 * 100.0, y - 0.28), (p75 * 100.0, y + 0.28)], BOX.filled()))?;
-                    area.draw(&PathElement::new(vec![(p50 * 100.0, y - 0.28), (p50 * 100.0, y + 0.28)], INK.stroke_width(2)))?;
+                    area.draw(&PathElement::new(
+                        vec![(min * 100.0, y), (max * 100.0, y)],
+                        MUTED.stroke_width(1),
+                    ))?;
+                    area.draw(&Rectangle::new(
+                        [(p25 * 100.0, y - 0.28), (p75 * 100.0, y + 0.28)],
+                        BOX.filled(),
+                    ))?;
+                    area.draw(&PathElement::new(
+                        vec![(p50 * 100.0, y - 0.28), (p50 * 100.0, y + 0.28)],
+                        INK.stroke_width(2),
+                    ))?;
                 }
                 None => {
                     let top = r.q.iter().flatten().copied().fold(f64::NEG_INFINITY, f64::max);
                     if let (Some(p50), true) = (r.arm.loss_q[0], top.is_finite()) {
-                        area.draw(&PathElement::new(vec![(p50 * 100.0, y), (top * 100.0, y)], MUTED.stroke_width(2)))?;
+                        area.draw(&PathElement::new(
+                            vec![(p50 * 100.0, y), (top * 100.0, y)],
+                            MUTED.stroke_width(2),
+                        ))?;
                     }
                 }
             }
             let label = &r.arm.label;
             if let Some(w) = r.worst {
                 style::marker(&area, (w * 100.0, y), Marker::Cross, SERIES[5].color, false, 5)?;
-                marks.add(chart.backend_coord(&(w * 100.0, y)), 'x', label, worst_series, w, &[], &format!("{label}: {worst_words} {}", pct(w, 2)));
+                marks.add(
+                    chart.backend_coord(&(w * 100.0, y)),
+                    'x',
+                    (label, worst_series),
+                    w,
+                    &[],
+                    &format!("{label}: {worst_words} {}", pct(w, 2)),
+                );
             }
             let names = ["loss_p95", "loss_p99", "loss_p999"];
             for (k, q) in r.q.iter().enumerate() {
                 if let Some(q) = q {
                     let (s, words) = qstyle[k];
                     style::marker(&area, (q * 100.0, y), s.marker, s.color, false, 5)?;
-                    marks.add(chart.backend_coord(&(q * 100.0, y)), 'x', label, names[k], *q, &[], &format!("{label}: {words} of replications {}", pct(*q, 2)));
+                    marks.add(
+                        chart.backend_coord(&(q * 100.0, y)),
+                        'x',
+                        (label, names[k]),
+                        *q,
+                        &[],
+                        &format!("{label}: {words} of replications {}", pct(*q, 2)),
+                    );
                 }
             }
             let mean = r.arm.loss.unwrap_or(0.0);
             style::marker(&area, (mean * 100.0, y), Marker::Circle, SERIES[0].color, false, 6)?;
-            marks.add(chart.backend_coord(&(mean * 100.0, y)), 'x', label, "loss_rate", mean, &[], &format!("{label}: mean loss {}", pct(mean, 2)));
+            marks.add(
+                chart.backend_coord(&(mean * 100.0, y)),
+                'x',
+                (label, "loss_rate"),
+                mean,
+                &[],
+                &format!("{label}: mean loss {}", pct(mean, 2)),
+            );
         }
         style::legend(&legend_area, &entries)?;
         root.present()?;
     }
-    let mut caption = "Each row is one arm. The circle is the loss over the whole horizon, as a share of the amount lent, \
+    let mut caption =
+        "Each row is one arm. The circle is the loss over the whole horizon, as a share of the amount lent, \
         averaged over replications; the coloured markers show how bad an unlucky replication gets (its 95th, 99th and \
         99.9th percentiles, where there are enough replications to estimate them)."
-        .to_string();
+            .to_string();
     caption.push_str(if has_worst {
         " The cross is the worst single cycle of a replication, at its 99th percentile: the figure for \"the worst period in a bad year\"."
     } else {
         " The cross is the 99th percentile of the loss in a single cycle, the one-period figure to set against capital."
     });
     if any_spread {
-        caption.push_str(" The shaded box holds the middle half of replications; the thin line runs from the lowest to the highest.");
+        caption.push_str(
+            " The shaded box holds the middle half of replications; the thin line runs from the lowest to the highest.",
+        );
     }
     Ok(Some(finish("losses", title, caption, svg, marks)))
 }
@@ -678,12 +792,32 @@ fn cycles(d: &RunData) -> Result<Option<Chart>, BoardError> {
     if series.is_empty() {
         return Ok(None);
     }
-    let first = series.iter().flat_map(|(_, r)| r.iter().map(|c| c.cycle)).min().unwrap_or(1) as f64;
-    let last = series.iter().flat_map(|(_, r)| r.iter().map(|c| c.cycle)).max().unwrap_or(1) as f64;
+    let first = series
+        .iter()
+        .flat_map(|(_, r)| r.iter().map(|c| c.cycle))
+        .min()
+        .unwrap_or(1) as f64;
+    let last = series
+        .iter()
+        .flat_map(|(_, r)| r.iter().map(|c| c.cycle))
+        .max()
+        .unwrap_or(1) as f64;
     let title = "Served, excluded and lost, cycle by cycle".to_string();
-    let mut entries: Vec<LegendEntry> =
-        series.iter().enumerate().map(|(j, (i, _))| LegendEntry::series(format!("{} · {}", d.arms[*i].number, short(&d.arms[*i].label, 48)), SERIES[j])).collect();
-    let stress: Vec<_> = d.stress.iter().filter(|w| (w.to as f64) >= first && (w.from as f64) <= last).collect();
+    let mut entries: Vec<LegendEntry> = series
+        .iter()
+        .enumerate()
+        .map(|(j, (i, _))| {
+            LegendEntry::series(
+                format!("{} · {}", d.arms[*i].number, short(&d.arms[*i].label, 48)),
+                SERIES[j],
+            )
+        })
+        .collect();
+    let stress: Vec<_> = d
+        .stress
+        .iter()
+        .filter(|w| (w.to as f64) >= first && (w.from as f64) <= last)
+        .collect();
     if !stress.is_empty() {
         entries.push(LegendEntry::band("stress window", STRESS));
     }
@@ -696,7 +830,11 @@ fn cycles(d: &RunData) -> Result<Option<Chart>, BoardError> {
     {
         let root = SVGBackend::with_string(&mut svg, (WIDTH as u32, height as u32)).into_drawing_area();
         root.fill(&WHITE)?;
-        root.draw(&Text::new(title.clone(), (WIDTH / 2, 16), font(TITLE_FONT).pos(Pos::new(HPos::Center, VPos::Top))))?;
+        root.draw(&Text::new(
+            title.clone(),
+            (WIDTH / 2, 16),
+            font(TITLE_FONT).pos(Pos::new(HPos::Center, VPos::Top)),
+        ))?;
         let (body, legend_area) = root.split_vertically(height - legend_h);
         let (_, body) = body.split_vertically(title_h);
         let areas = body.split_evenly((3, 1));
@@ -704,7 +842,9 @@ fn cycles(d: &RunData) -> Result<Option<Chart>, BoardError> {
         let tick_count = ((span + 1.0) as usize).min(13);
         for (p, ((series_name, desc, get), area)) in panels.iter().zip(areas.iter()).enumerate() {
             let bottom = p == panels.len() - 1;
-            let values = series.iter().flat_map(|(_, rows)| rows.iter().filter_map(|c| get(c).map(|v| v * 100.0)));
+            let values = series
+                .iter()
+                .flat_map(|(_, rows)| rows.iter().filter_map(|c| get(c).map(|v| v * 100.0)));
             let (y0, y1) = padded(values, 0.12, true, Some(100.0));
             let mut chart = ChartBuilder::on(area)
                 .margin_left(18)
@@ -714,7 +854,13 @@ fn cycles(d: &RunData) -> Result<Option<Chart>, BoardError> {
                 .y_label_area_size(92)
                 .build_cartesian_2d((first - 0.5)..(last + 0.5), y0..y1)?;
             let dec = decimals(y1 - y0);
-            let x_fmt = |v: &f64| if (v - v.round()).abs() < 1e-6 { format!("{v:.0}") } else { String::new() };
+            let x_fmt = |v: &f64| {
+                if (v - v.round()).abs() < 1e-6 {
+                    format!("{v:.0}")
+                } else {
+                    String::new()
+                }
+            };
             let y_fmt = |v: &f64| format!("{v:.dec$}");
             let mut mesh = chart.configure_mesh();
             mesh.x_labels(tick_count)
@@ -733,7 +879,10 @@ fn cycles(d: &RunData) -> Result<Option<Chart>, BoardError> {
             mesh.draw()?;
             let plot = chart.plotting_area().clone();
             for w in &stress {
-                plot.draw(&Rectangle::new([(w.from as f64 - 0.5, y0), (w.to as f64 + 0.5, y1)], STRESS.mix(0.8).filled()))?;
+                plot.draw(&Rectangle::new(
+                    [(w.from as f64 - 0.5, y0), (w.to as f64 + 0.5, y1)],
+                    STRESS.mix(0.8).filled(),
+                ))?;
                 if p == 0 {
                     let (px, py) = chart.backend_coord(&(w.from as f64 - 0.5, y1));
                     root.draw(&Text::new(format!("{} stress", w.shock), (px + 4, py + 4), font(13)))?;
@@ -743,7 +892,10 @@ fn cycles(d: &RunData) -> Result<Option<Chart>, BoardError> {
             for (j, (i, rows)) in series.iter().enumerate() {
                 let st = SERIES[j];
                 let arm = &d.arms[*i];
-                let points: Vec<(f64, f64)> = rows.iter().filter_map(|c| get(c).map(|v| (c.cycle as f64, v * 100.0))).collect();
+                let points: Vec<(f64, f64)> = rows
+                    .iter()
+                    .filter_map(|c| get(c).map(|v| (c.cycle as f64, v * 100.0)))
+                    .collect();
                 style::line(&plot, points.clone(), st.color, 2, st.dash)?;
                 for (k, c) in rows.iter().enumerate() {
                     let Some(v) = get(c) else { continue };
@@ -755,11 +907,16 @@ fn cycles(d: &RunData) -> Result<Option<Chart>, BoardError> {
                     marks.add(
                         chart.backend_coord(&at),
                         'y',
-                        &arm.label,
-                        series_name,
+                        (&arm.label, series_name),
                         v,
                         &[("cycle", c.cycle.to_string())],
-                        &format!("{}, cycle {}: {} {}", arm.label, c.cycle, desc.split(',').next().unwrap_or(""), pct(v, 2)),
+                        &format!(
+                            "{}, cycle {}: {} {}",
+                            arm.label,
+                            c.cycle,
+                            desc.split(',').next().unwrap_or(""),
+                            pct(v, 2)
+                        ),
                     );
                 }
             }
@@ -767,11 +924,15 @@ fn cycles(d: &RunData) -> Result<Option<Chart>, BoardError> {
         style::legend(&legend_area, &entries)?;
         root.present()?;
     }
-    let mut caption = "Means over replications for each counted cycle: the share of borrower slots served and excluded, \
+    let mut caption =
+        "Means over replications for each counted cycle: the share of borrower slots served and excluded, \
         and the loss of the cycle as a share of what was lent in it."
-        .to_string();
+            .to_string();
     if d.warmup > 0 {
-        caption.push_str(&format!(" Warm-up cycles 1 to {} are not counted and not shown.", d.warmup));
+        caption.push_str(&format!(
+            " Warm-up cycles 1 to {} are not counted and not shown.",
+            d.warmup
+        ));
     }
     if !stress.is_empty() {
         caption.push_str(" Shaded cycles are stress windows, when a shock strikes more often.");
@@ -807,11 +968,25 @@ fn differences(d: &RunData) -> Result<Option<Chart>, BoardError> {
     if metrics.is_empty() || rows.is_empty() {
         return Ok(None);
     }
-    let base_number = d.arms.iter().find(|a| a.label == baseline).map_or(String::new(), |a| format!("arm {} ", a.number));
+    let base_number = d
+        .arms
+        .iter()
+        .find(|a| a.label == baseline)
+        .map_or(String::new(), |a| format!("arm {} ", a.number));
     let title = format!("Each arm against the baseline, {base_number}({})", short(&baseline, 50));
     let entries = vec![
-        LegendEntry::mark("difference; interval excludes zero", SERIES[0].color, Marker::Circle, false),
-        LegendEntry::mark("difference; interval includes zero", SERIES[0].color, Marker::Circle, true),
+        LegendEntry::mark(
+            "difference; interval excludes zero",
+            SERIES[0].color,
+            Marker::Circle,
+            false,
+        ),
+        LegendEntry::mark(
+            "difference; interval includes zero",
+            SERIES[0].color,
+            Marker::Circle,
+            true,
+        ),
         LegendEntry::line("95% confidence interval, paired by replication", INK, None),
     ];
     let legend_h = style::legend_height(&entries, WIDTH);
@@ -826,7 +1001,11 @@ fn differences(d: &RunData) -> Result<Option<Chart>, BoardError> {
     {
         let root = SVGBackend::with_string(&mut svg, (WIDTH as u32, height as u32)).into_drawing_area();
         root.fill(&WHITE)?;
-        root.draw(&Text::new(title.clone(), (WIDTH / 2, 14), font(TITLE_FONT).pos(Pos::new(HPos::Center, VPos::Top))))?;
+        root.draw(&Text::new(
+            title.clone(),
+            (WIDTH / 2, 14),
+            font(TITLE_FONT).pos(Pos::new(HPos::Center, VPos::Top)),
+        ))?;
         let (body, legend_area) = root.split_vertically(height - legend_h);
         let (_, body) = body.split_vertically(title_h);
         let (_, panels_area) = body.split_horizontally(label_w);
@@ -836,7 +1015,10 @@ fn differences(d: &RunData) -> Result<Option<Chart>, BoardError> {
                 .iter()
                 .enumerate()
                 .filter_map(|(i, a)| {
-                    d.differences.iter().find(|r| r.arm == a.label && r.metric == *metric && r.baseline == baseline).map(|r| (i, r))
+                    d.differences
+                        .iter()
+                        .find(|r| r.arm == a.label && r.metric == *metric && r.baseline == baseline)
+                        .map(|r| (i, r))
                 })
                 .collect();
             let values = found.iter().flat_map(|(_, r)| {
@@ -854,7 +1036,7 @@ fn differences(d: &RunData) -> Result<Option<Chart>, BoardError> {
                 .build_cartesian_2d(x0..x1, -0.6..(n as f64 - 0.4))?;
             // As many tick labels as the panel's width holds without collisions.
             let width = chart.plotting_area().dim_in_pixel().0 as f64;
-            let ticks = ((width / 78.0).floor() as usize).clamp(2, 8);
+            let ticks = ((width / 55.0).floor() as usize).clamp(3, 8);
             let dec = step_decimals((x1 - x0) / ticks as f64);
             chart
                 .configure_mesh()
@@ -870,37 +1052,57 @@ fn differences(d: &RunData) -> Result<Option<Chart>, BoardError> {
                 .axis_style(MUTED)
                 .draw()?;
             let plot = chart.plotting_area().clone();
-            for i in 0..n {
+            for (i, arm) in rows.iter().enumerate() {
                 let y = (n - 1 - i) as f64;
                 if i % 2 == 1 {
                     plot.draw(&Rectangle::new([(x0, y - 0.5), (x1, y + 0.5)], ROW.filled()))?;
                 }
                 if p == 0 {
                     let (px, py) = chart.backend_coord(&(x0, y));
-                    root.draw(&Text::new(row_label(rows[i], chars), (px - 20, py), font(TICK_FONT).pos(Pos::new(HPos::Right, VPos::Center))))?;
+                    root.draw(&Text::new(
+                        row_label(arm, chars),
+                        (px - 20, py),
+                        font(TICK_FONT).pos(Pos::new(HPos::Right, VPos::Center)),
+                    ))?;
                 }
             }
-            plot.draw(&PathElement::new(vec![(0.0, -0.6), (0.0, n as f64 - 0.4)], INK.stroke_width(1)))?;
+            plot.draw(&PathElement::new(
+                vec![(0.0, -0.6), (0.0, n as f64 - 0.4)],
+                INK.stroke_width(1),
+            ))?;
             for (i, r) in &found {
                 let y = (n - 1 - i) as f64;
                 let v = r.difference * 100.0;
-                let significant = r.significant.or(r.ci.map(|(lo, hi)| lo > 0.0 || hi < 0.0)).unwrap_or(false);
+                let significant = r
+                    .significant
+                    .or(r.ci.map(|(lo, hi)| lo > 0.0 || hi < 0.0))
+                    .unwrap_or(false);
                 if let Some((lo, hi)) = r.ci {
-                    plot.draw(&PathElement::new(vec![(lo * 100.0, y), (hi * 100.0, y)], INK.stroke_width(2)))?;
+                    plot.draw(&PathElement::new(
+                        vec![(lo * 100.0, y), (hi * 100.0, y)],
+                        INK.stroke_width(2),
+                    ))?;
                     for e in [lo, hi] {
-                        plot.draw(&(EmptyElement::at((e * 100.0, y)) + PathElement::new(vec![(0, -6), (0, 6)], INK.stroke_width(2))))?;
+                        plot.draw(
+                            &(EmptyElement::at((e * 100.0, y))
+                                + PathElement::new(vec![(0, -6), (0, 6)], INK.stroke_width(2))),
+                        )?;
                     }
                 }
                 style::marker(&plot, (v, y), Marker::Circle, SERIES[0].color, !significant, 6)?;
-                let ci = r.ci.map_or(String::new(), |(l, h)| format!(" (95% CI {:+.2} to {:+.2})", l * 100.0, h * 100.0));
+                let ci = r.ci.map_or(String::new(), |(l, h)| {
+                    format!(" (95% CI {:+.2} to {:+.2})", l * 100.0, h * 100.0)
+                });
                 marks.add(
                     chart.backend_coord(&(v, y)),
                     'x',
-                    &r.arm,
-                    metric,
+                    (&r.arm, metric),
                     r.difference,
                     &[("baseline", baseline.clone()), ("significant", significant.to_string())],
-                    &format!("{} against {}: {words} {:+.2} percentage points{ci}", r.arm, baseline, v),
+                    &format!(
+                        "{} against {}: {words} {:+.2} percentage points{ci}",
+                        r.arm, baseline, v
+                    ),
                 );
             }
         }
@@ -999,8 +1201,8 @@ fn frontier(d: &RunData) -> Result<Option<Chart>, BoardError> {
                 y,
                 if *on { "; on the frontier" } else { "" }
             );
-            marks.add(px, 'x', &a.label, "served_share", x / 100.0, &extra, &tip);
-            marks.add(px, 'y', &a.label, "loss_rate", y / 100.0, &extra, &tip);
+            marks.add(px, 'x', (&a.label, "served_share"), x / 100.0, &extra, &tip);
+            marks.add(px, 'y', (&a.label, "loss_rate"), y / 100.0, &extra, &tip);
         }
         // Number labels placed where they overlap neither another label nor a marker.
         let pixels: Vec<(i32, i32)> = points.iter().map(|p| chart.backend_coord(&(p.2, p.3))).collect();
@@ -1014,7 +1216,16 @@ fn frontier(d: &RunData) -> Result<Option<Chart>, BoardError> {
             let text = a.number.to_string();
             let w = style::text_width(&text, 15) + 2;
             let h = 16;
-            let candidates = [(10, -20), (10, 4), (-10 - w, -20), (-10 - w, 4), (-w / 2, -28), (-w / 2, 12), (18, -8), (-18 - w, -8)];
+            let candidates = [
+                (10, -20),
+                (10, 4),
+                (-10 - w, -20),
+                (-10 - w, 4),
+                (-w / 2, -28),
+                (-w / 2, 12),
+                (18, -8),
+                (-18 - w, -8),
+            ];
             let fits = |(ox, oy): (i32, i32)| {
                 let b = (px + ox, py + oy, px + ox + w, py + oy + h);
                 (b.0 >= left && b.2 <= right && b.1 >= top_px && b.3 <= bottom && !overlaps(&b, &taken)).then_some(b)
@@ -1028,7 +1239,11 @@ fn frontier(d: &RunData) -> Result<Option<Chart>, BoardError> {
             };
             taken.push(chosen);
             let color = if *on { INK } else { MUTED };
-            root.draw(&Text::new(text, (chosen.0 + 1, chosen.1), TextStyle::from((FONT, 15).into_font()).color(&color)))?;
+            root.draw(&Text::new(
+                text,
+                (chosen.0 + 1, chosen.1),
+                TextStyle::from((FONT, 15).into_font()).color(&color),
+            ))?;
         }
         root.draw(&Text::new(
             "better: more served, less lost ↘".to_string(),

@@ -69,13 +69,13 @@ fn label_html(label: &str) -> String {
 }
 
 /// The arm with the largest (or smallest) value of a figure; ties go to the earlier arm.
-fn extreme<'a>(arms: &'a [ArmRow], f: impl Fn(&ArmRow) -> Option<f64>, largest: bool) -> Option<(&'a ArmRow, f64)> {
+fn extreme(arms: &[ArmRow], f: impl Fn(&ArmRow) -> Option<f64>, largest: bool) -> Option<(&ArmRow, f64)> {
     let mut best: Option<(&ArmRow, f64)> = None;
     for a in arms {
-        if let Some(v) = f(a) {
-            if best.is_none_or(|(_, b)| if largest { v > b } else { v < b }) {
-                best = Some((a, v));
-            }
+        if let Some(v) = f(a)
+            && best.is_none_or(|(_, b)| if largest { v > b } else { v < b })
+        {
+            best = Some((a, v));
         }
     }
     best
@@ -84,7 +84,11 @@ fn extreme<'a>(arms: &'a [ArmRow], f: impl Fn(&ArmRow) -> Option<f64>, largest: 
 /// Assembles the whole page.
 pub fn page(d: &RunData, charts: &[Chart]) -> String {
     let mut h = String::with_capacity(256 * 1024);
-    let title = if d.scenario_name.is_empty() { "Loan-cycle simulation".to_string() } else { d.scenario_name.clone() };
+    let title = if d.scenario_name.is_empty() {
+        "Loan-cycle simulation".to_string()
+    } else {
+        d.scenario_name.clone()
+    };
     let _ = write!(
         h,
         "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\"/>\n\
@@ -99,7 +103,8 @@ pub fn page(d: &RunData, charts: &[Chart]) -> String {
         escape(&title),
         d.arms.len(),
         if d.arms.len() == 1 { "" } else { "s" },
-        d.replications_per_arm.map_or(String::new(), |r| format!(", {r} replications each")),
+        d.replications_per_arm
+            .map_or(String::new(), |r| format!(", {r} replications each")),
         cycles.map_or(String::new(), |c| format!(", {c} counted loan cycles"))
     );
     h.push_str(
@@ -131,7 +136,9 @@ pub fn page(d: &RunData, charts: &[Chart]) -> String {
         );
     }
     if let Some(t) = &d.group_size {
-        h.push_str("<h2 id=\"group-size\">Best group size, by each criterion</h2>\n<div class=\"wide\"><table>\n<thead><tr>");
+        h.push_str(
+            "<h2 id=\"group-size\">Best group size, by each criterion</h2>\n<div class=\"wide\"><table>\n<thead><tr>",
+        );
         for head in &t.headers {
             let _ = write!(h, "<th class=\"l\">{}</th>", escape(&head.replace('_', " ")));
         }
@@ -164,15 +171,33 @@ fn glance(h: &mut String, d: &RunData) {
     let flags = frontier_flags(&d.arms);
     let mut cards: Vec<(String, String, String)> = Vec::new();
     if let Some((a, v)) = extreme(&d.arms, |a| a.repayment, true) {
-        cards.push(("Highest share of groups repaying in full".into(), format!("{:.2}%", v * 100.0), arm_name(a)));
+        cards.push((
+            "Highest share of groups repaying in full".into(),
+            format!("{:.2}%", v * 100.0),
+            arm_name(a),
+        ));
     }
     if let Some((a, v)) = extreme(&d.arms, |a| a.loss, false) {
-        cards.push(("Lowest loss, % of amount lent".into(), format!("{:.2}%", v * 100.0), arm_name(a)));
+        cards.push((
+            "Lowest loss, % of amount lent".into(),
+            format!("{:.2}%", v * 100.0),
+            arm_name(a),
+        ));
     }
     if let Some((a, v)) = extreme(&d.arms, |a| a.served, true) {
-        cards.push(("Most borrower slots served".into(), format!("{:.1}%", v * 100.0), arm_name(a)));
+        cards.push((
+            "Most borrower slots served".into(),
+            format!("{:.1}%", v * 100.0),
+            arm_name(a),
+        ));
     }
-    let on: Vec<String> = d.arms.iter().zip(&flags).filter(|(_, f)| **f).map(|(a, _)| a.number.to_string()).collect();
+    let on: Vec<String> = d
+        .arms
+        .iter()
+        .zip(&flags)
+        .filter(|(_, f)| **f)
+        .map(|(a, _)| a.number.to_string())
+        .collect();
     if !on.is_empty() {
         cards.push((
             "On the loss–outreach frontier".into(),
@@ -204,7 +229,11 @@ fn summary_table(h: &mut String, d: &RunData) {
     let flags = frontier_flags(&d.arms);
     let any_exact = d.arms.iter().any(|a| a.exact.is_some());
     let any_worst = d.arms.iter().any(|a| a.worst_q[2].is_some());
-    let tail_head = if any_worst { "worst cycle p99" } else { "single-cycle loss p99" };
+    let tail_head = if any_worst {
+        "worst cycle p99"
+    } else {
+        "single-cycle loss p99"
+    };
     h.push_str(
         "<h2 id=\"summary\">Summary table</h2>\n<p>Percentages, with 95% confidence intervals in brackets. \
          Loss is principal lost as a share of principal lent; net yield is what came back (collections and \
@@ -280,11 +309,20 @@ fn scenario(h: &mut String, d: &RunData) {
     h.push_str("<h2 id=\"scenario\">The scenario</h2>\n<dl class=\"facts\">\n");
     let get = |k: &str| s.get(k).map(num).unwrap_or_else(|| "–".into());
     fact(h, "name", get("name"));
-    fact(h, "borrowers, villages", format!("{} borrowers in {} villages", get("borrowers"), get("villages")));
+    fact(
+        h,
+        "borrowers, villages",
+        format!("{} borrowers in {} villages", get("borrowers"), get("villages")),
+    );
     fact(
         h,
         "cycles",
-        format!("{} counted after {} warm-up cycles; {} replications", get("cycles"), get("warmup_cycles"), get("replications")),
+        format!(
+            "{} counted after {} warm-up cycles; {} replications",
+            get("cycles"),
+            get("warmup_cycles"),
+            get("replications")
+        ),
     );
     fact(
         h,
@@ -327,22 +365,30 @@ fn scenario(h: &mut String, d: &RunData) {
         fact(
             h,
             "pool",
-            format!("dropout {} per member per cycle; departures replaced: {}", get("dropout"), get("replace_departures")),
+            format!(
+                "dropout {} per member per cycle; departures replaced: {}",
+                get("dropout"),
+                get("replace_departures")
+            ),
         );
     }
     if !d.swept.is_empty() {
         fact(h, "swept", d.swept.join(", "));
     }
-    if let Some(policy) = s.get("arms").and_then(Value::as_array).and_then(|a| a.first()).and_then(|a| a.get("policy")) {
-        if let Some(map) = policy.as_object() {
-            let fixed: Vec<String> = map
-                .iter()
-                .filter(|(k, _)| !d.swept.iter().any(|sk| sk == *k))
-                .map(|(k, v)| format!("{k} = {}", num(v)))
-                .collect();
-            if !fixed.is_empty() {
-                fact(h, "policy of every arm", fixed.join(", "));
-            }
+    if let Some(policy) = s
+        .get("arms")
+        .and_then(Value::as_array)
+        .and_then(|a| a.first())
+        .and_then(|a| a.get("policy"))
+        && let Some(map) = policy.as_object()
+    {
+        let fixed: Vec<String> = map
+            .iter()
+            .filter(|(k, _)| !d.swept.iter().any(|sk| sk == *k))
+            .map(|(k, v)| format!("{k} = {}", num(v)))
+            .collect();
+        if !fixed.is_empty() {
+            fact(h, "policy of every arm", fixed.join(", "));
         }
     }
     h.push_str("</dl>\n");
@@ -362,11 +408,35 @@ fn scenario(h: &mut String, d: &RunData) {
 
 fn stamp(h: &mut String, d: &RunData) {
     h.push_str("<h2 id=\"stamp\">Reproducibility</h2>\n<dl class=\"facts stamp\">\n");
-    fact(h, "simulated by", if d.tool.is_empty() { "–".into() } else { d.tool.clone() });
+    fact(
+        h,
+        "simulated by",
+        if d.tool.is_empty() {
+            "–".into()
+        } else {
+            d.tool.clone()
+        },
+    );
     fact(h, "report drawn by", format!("loancycle {}", env!("CARGO_PKG_VERSION")));
     fact(h, "seed", d.seed.map_or("–".into(), |s| s.to_string()));
-    fact(h, "scenario SHA-256", if d.scenario_sha256.is_empty() { "–".into() } else { d.scenario_sha256.clone() });
-    fact(h, "scenario file", if d.scenario_origin.is_empty() { "–".into() } else { d.scenario_origin.clone() });
+    fact(
+        h,
+        "scenario SHA-256",
+        if d.scenario_sha256.is_empty() {
+            "–".into()
+        } else {
+            d.scenario_sha256.clone()
+        },
+    );
+    fact(
+        h,
+        "scenario file",
+        if d.scenario_origin.is_empty() {
+            "–".into()
+        } else {
+            d.scenario_origin.clone()
+        },
+    );
     fact(h, "run directory", d.dir.display().to_string());
     h.push_str("</dl>\n<p>The same scenario file, seed and tool version give identical figures on any machine and any number of threads.</p>\n");
     if !d.warnings.is_empty() {

@@ -161,10 +161,20 @@ impl Table {
             .has_headers(true)
             .from_path(path)
             .map_err(|e| csv_error(path, e))?;
-        let headers: Vec<String> =
-            reader.headers().map_err(|e| csv_error(path, e))?.iter().map(|h| h.trim().to_string()).collect();
+        let headers: Vec<String> = reader
+            .headers()
+            .map_err(|e| csv_error(path, e))?
+            .iter()
+            .map(|h| h.trim().to_string())
+            .collect();
         if headers.iter().all(|h| h.is_empty()) {
-            return Err(BoardError::input(path, Some(1), None, None, "the file has no header line"));
+            return Err(BoardError::input(
+                path,
+                Some(1),
+                None,
+                None,
+                "the file has no header line",
+            ));
         }
         let index = headers.iter().enumerate().map(|(i, h)| (h.clone(), i)).collect();
         let mut rows = Vec::new();
@@ -186,7 +196,13 @@ impl Table {
         if self.index.contains_key(column) {
             Ok(())
         } else {
-            Err(BoardError::input(&self.path, Some(1), Some(column), None, "required column is missing"))
+            Err(BoardError::input(
+                &self.path,
+                Some(1),
+                Some(column),
+                None,
+                "required column is missing",
+            ))
         }
     }
 
@@ -209,7 +225,11 @@ struct Row<'a> {
 impl Row<'_> {
     /// The cell's text, or None when the column is absent.
     fn text(&self, column: &str) -> Option<&str> {
-        self.table.index.get(column).and_then(|&i| self.record.get(i)).map(str::trim)
+        self.table
+            .index
+            .get(column)
+            .and_then(|&i| self.record.get(i))
+            .map(str::trim)
     }
 
     fn bad(&self, column: &str, value: &str, what: &str) -> BoardError {
@@ -277,7 +297,10 @@ fn csv_error(path: &Path, e: csv::Error) -> BoardError {
 pub fn label_keys(label: &str) -> Vec<(String, String)> {
     label
         .split(',')
-        .filter_map(|part| part.split_once('=').map(|(k, v)| (k.trim().to_string(), v.trim().to_string())))
+        .filter_map(|part| {
+            part.split_once('=')
+                .map(|(k, v)| (k.trim().to_string(), v.trim().to_string()))
+        })
         .collect()
 }
 
@@ -290,21 +313,39 @@ pub fn read_run(dir: &Path) -> Result<RunData, BoardError> {
     let json_path = dir.join("summary.json");
     for p in [&summary_path, &json_path, &dir.join("timeseries.csv")] {
         if !p.is_file() {
-            return Err(BoardError::input(p, None, None, None, "file is missing: this is not a finished run directory"));
+            return Err(BoardError::input(
+                p,
+                None,
+                None,
+                None,
+                "file is missing: this is not a finished run directory",
+            ));
         }
     }
     let arms = read_summary(&summary_path)?;
     let cycles = read_timeseries(&dir.join("timeseries.csv"))?;
     let diff_path = dir.join("differences.csv");
-    let differences = if diff_path.is_file() { read_differences(&diff_path)? } else { Vec::new() };
+    let differences = if diff_path.is_file() {
+        read_differences(&diff_path)?
+    } else {
+        Vec::new()
+    };
     let rep_path = dir.join("replications.csv");
-    let replications = if rep_path.is_file() { Some(read_replications(&rep_path)?) } else { None };
+    let replications = if rep_path.is_file() {
+        Some(read_replications(&rep_path)?)
+    } else {
+        None
+    };
     let gs_path = dir.join("group_size.csv");
     let group_size = if gs_path.is_file() {
         let t = Table::read(&gs_path)?;
         Some(PlainTable {
             headers: t.headers.clone(),
-            rows: t.rows.iter().map(|(_, r)| r.iter().map(str::to_string).collect()).collect(),
+            rows: t
+                .rows
+                .iter()
+                .map(|(_, r)| r.iter().map(str::to_string).collect())
+                .collect(),
         })
     } else {
         None
@@ -341,7 +382,13 @@ pub fn read_run(dir: &Path) -> Result<RunData, BoardError> {
 
 fn read_summary(path: &Path) -> Result<Vec<ArmRow>, BoardError> {
     let t = Table::read(path)?;
-    for column in ["arm", "group_repayment_rate", "loss_rate", "served_share", "excluded_share"] {
+    for column in [
+        "arm",
+        "group_repayment_rate",
+        "loss_rate",
+        "served_share",
+        "excluded_share",
+    ] {
         t.require(column)?;
     }
     if t.rows.is_empty() {
@@ -364,7 +411,11 @@ fn read_summary(path: &Path) -> Result<Vec<ArmRow>, BoardError> {
             served: q("served_share")?,
             excluded: q("excluded_share")?,
             loss_q: [q("loss_p50")?, q("loss_p95")?, q("loss_p99")?, q("loss_p999")?],
-            worst_q: [q("worst_cycle_loss_p50")?, q("worst_cycle_loss_p95")?, q("worst_cycle_loss_p99")?],
+            worst_q: [
+                q("worst_cycle_loss_p50")?,
+                q("worst_cycle_loss_p95")?,
+                q("worst_cycle_loss_p99")?,
+            ],
             cycle_p99: q("loss_cycle_p99")?,
             on_frontier: row.boolean("on_frontier")?,
         });
@@ -380,7 +431,9 @@ fn read_timeseries(path: &Path) -> Result<Vec<CycleRow>, BoardError> {
     t.rows()
         .map(|row| {
             let raw = row.label("cycle")?;
-            let cycle = raw.parse::<u32>().map_err(|_| row.bad("cycle", &raw, "is not a cycle number"))?;
+            let cycle = raw
+                .parse::<u32>()
+                .map_err(|_| row.bad("cycle", &raw, "is not a cycle number"))?;
             Ok(CycleRow {
                 arm: row.label("arm")?,
                 cycle,
@@ -397,7 +450,11 @@ fn read_differences(path: &Path) -> Result<Vec<DiffRow>, BoardError> {
     for column in ["arm", "metric", "difference"] {
         t.require(column)?;
     }
-    let baseline_column = if t.index.contains_key("baseline") { "baseline" } else { "reference_arm" };
+    let baseline_column = if t.index.contains_key("baseline") {
+        "baseline"
+    } else {
+        "reference_arm"
+    };
     t.require(baseline_column)?;
     t.rows()
         .filter_map(|row| {
@@ -441,7 +498,13 @@ fn read_replications(path: &Path) -> Result<HashMap<String, ReplicationValues>, 
 fn read_json(path: &Path, data: &mut RunData) -> Result<(), BoardError> {
     let text = std::fs::read_to_string(path).map_err(|e| BoardError::input(path, None, None, None, &e.to_string()))?;
     let v: Value = serde_json::from_str(&text).map_err(|e| {
-        BoardError::input(path, Some(e.line() as u64), None, None, &format!("column {}: {e}", e.column()))
+        BoardError::input(
+            path,
+            Some(e.line() as u64),
+            None,
+            None,
+            &format!("column {}: {e}", e.column()),
+        )
     })?;
     if !v.is_object() {
         return Err(BoardError::input(path, Some(1), None, None, "is not a JSON object"));
@@ -451,7 +514,10 @@ fn read_json(path: &Path, data: &mut RunData) -> Result<(), BoardError> {
     data.scenario_sha256 = text_of("scenario_sha256");
     data.scenario_origin = text_of("scenario_origin");
     data.seed = v.get("seed").and_then(Value::as_u64);
-    data.analytic_note = v.get("analytic_out_of_class").and_then(Value::as_str).map(str::to_string);
+    data.analytic_note = v
+        .get("analytic_out_of_class")
+        .and_then(Value::as_str)
+        .map(str::to_string);
     data.warnings = v
         .get("warnings")
         .and_then(Value::as_array)
@@ -469,7 +535,10 @@ fn read_json(path: &Path, data: &mut RunData) -> Result<(), BoardError> {
     for shock in scenario.get("shocks").and_then(Value::as_array).into_iter().flatten() {
         let name = shock.get("name").and_then(Value::as_str).unwrap_or("shock");
         for w in shock.get("stress").and_then(Value::as_array).into_iter().flatten() {
-            if let (Some(from), Some(to)) = (w.get("from").and_then(Value::as_u64), w.get("to").and_then(Value::as_u64)) {
+            if let (Some(from), Some(to)) = (
+                w.get("from").and_then(Value::as_u64),
+                w.get("to").and_then(Value::as_u64),
+            ) {
                 data.stress.push(StressWindow {
                     shock: name.to_string(),
                     from: from as u32,

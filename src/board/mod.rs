@@ -46,7 +46,13 @@ pub enum BoardError {
 }
 
 impl BoardError {
-    pub(crate) fn input(path: &Path, line: Option<u64>, column: Option<&str>, value: Option<&str>, message: &str) -> Self {
+    pub(crate) fn input(
+        path: &Path,
+        line: Option<u64>,
+        column: Option<&str>,
+        value: Option<&str>,
+        message: &str,
+    ) -> Self {
         BoardError::Input {
             path: path.to_path_buf(),
             line,
@@ -128,11 +134,17 @@ pub fn write_report(dir: &Path) -> Result<Vec<PathBuf>, BoardError> {
         source,
     })?;
     let mut staged: Vec<(PathBuf, PathBuf)> = Vec::new();
-    let mut files: Vec<(PathBuf, &str)> =
-        report.charts.iter().map(|c| (charts_dir.join(format!("{}.svg", c.name)), c.svg.as_str())).collect();
+    let mut files: Vec<(PathBuf, &str)> = report
+        .charts
+        .iter()
+        .map(|c| (charts_dir.join(format!("{}.svg", c.name)), c.svg.as_str()))
+        .collect();
     files.push((dir.join("report.html"), report.html.as_str()));
     for (path, content) in &files {
-        let name = path.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
+        let name = path
+            .file_name()
+            .map(|n| n.to_string_lossy().into_owned())
+            .unwrap_or_default();
         let tmp = path.with_file_name(format!(".{name}.partial"));
         if let Err(source) = std::fs::write(&tmp, content) {
             for (t, _) in &staged {

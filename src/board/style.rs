@@ -244,7 +244,10 @@ fn legend_rows(entries: &[LegendEntry], width: i32) -> Vec<Vec<(usize, i32)>> {
 }
 
 /// Draws a legend across the top of `area`, wrapping to more rows when it does not fit.
-pub fn legend(area: &DrawingArea<Svg<'_>, plotters::coord::Shift>, entries: &[LegendEntry]) -> Result<(), super::BoardError> {
+pub fn legend(
+    area: &DrawingArea<Svg<'_>, plotters::coord::Shift>,
+    entries: &[LegendEntry],
+) -> Result<(), super::BoardError> {
     let width = area.dim_in_pixel().0 as i32;
     let font = (FONT, LEGEND_FONT).into_font().color(&INK);
     for (r, row) in legend_rows(entries, width).iter().enumerate() {
