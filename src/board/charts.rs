@@ -755,15 +755,14 @@ fn shown_arms(d: &RunData) -> Vec<usize> {
             chosen.push(c);
         }
     }
-    // Arms spread evenly through the list fill the remaining places, so the middle of a sweep shows too.
+    // Arms from the middle and quarters of the list fill the remaining places, so the middle of a
+    // sweep shows too.
     let target = SERIES.len() - 1;
-    let mut k = 1;
-    while chosen.len() < target && k < target * 4 {
-        let c = k * n / (target * 4);
-        if !chosen.contains(&c) {
+    for fraction in [0.5, 0.25, 0.75, 0.375, 0.625] {
+        let c = (fraction * (n - 1) as f64).round() as usize;
+        if chosen.len() < target && !chosen.contains(&c) {
             chosen.push(c);
         }
-        k += 2;
     }
     chosen.sort_unstable();
     chosen
