@@ -109,7 +109,7 @@ pub fn page(d: &RunData, charts: &[Chart]) -> String {
     );
     h.push_str(
         "<div class=\"caution\" id=\"caution\"><strong>Model estimates for planning, not forecasts.</strong>\
-         Every figure here comes from a simulation model of invented or assumed inputs. Lending decisions follow local \
+         Every figure here comes from a simulation model and the assumptions of its scenario. Lending decisions follow local \
          regulation and client-protection practice: fair treatment, transparent pricing, avoiding over-indebtedness and \
          respectful collection. No simulated repayment rate justifies pressure on borrowers or their peers.</div>\n",
     );
