@@ -34,6 +34,7 @@
 //! ```
 
 pub mod analytic;
+pub mod board;
 pub mod companion;
 pub mod curve;
 pub mod demo;

@@ -5,7 +5,7 @@ use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 use loancycle::analytic::{self, optimum};
 use loancycle::output::{self, terminal};
 use loancycle::scenario::{Overrides, Scenario};
-use loancycle::{demo, report, run};
+use loancycle::{board, demo, report, run};
 use signal_hook::consts::{SIGINT, SIGTERM};
 use std::path::PathBuf;
 use std::process::ExitCode;
@@ -47,6 +47,14 @@ enum Command {
         /// Memory limit in GiB (default: the memory available); a run estimated above it is refused.
         #[arg(long, value_name = "GIB", allow_negative_numbers = true)]
         max_memory: Option<f64>,
+        /// Also write the board report (report.html and charts/) into the output directory.
+        #[arg(long)]
+        report: bool,
+    },
+    /// Write DIR/report.html and DIR/charts/*.svg from a finished run, without simulating again.
+    Report {
+        /// The run's output directory.
+        dir: PathBuf,
     },
     /// Validate a scenario file and list the arms it resolves to, without simulating.
     Check {
@@ -187,6 +195,23 @@ fn optimum_request(
     Ok(optimum::OptimumRequest { curve, band, range })
 }
 
+/// Writes the board report of the run in `dir`.
+fn board_report(dir: &std::path::Path, quiet: bool) -> Result<(), Failure> {
+    let paths = board::write_report(dir).map_err(|e| {
+        if e.is_bad_input() {
+            Failure::BadInput(e.to_string())
+        } else {
+            Failure::Running(e.to_string())
+        }
+    })?;
+    if !quiet {
+        for p in paths {
+            println!("wrote {}", p.display());
+        }
+    }
+    Ok(())
+}
+
 fn main() -> ExitCode {
     let cli = Cli::parse();
     match execute(cli.command) {
@@ -238,6 +263,7 @@ fn execute(command: Command) -> Result<(), Failure> {
             );
             Ok(())
         }
+        Command::Report { dir } => board_report(&dir, false),
         Command::DemoScenario => {
             print!("{}", demo::BASELINE);
             Ok(())
@@ -256,6 +282,7 @@ fn execute(command: Command) -> Result<(), Failure> {
             quiet,
             force,
             max_memory,
+            report: with_report,
         } => {
             // Only `run` catches signals: it has files to protect. The other commands write nothing
             // and keep the default action, so Ctrl-C ends them at once.
@@ -328,6 +355,9 @@ fn execute(command: Command) -> Result<(), Failure> {
                 for w in &report.warnings {
                     eprintln!("warning: {w}");
                 }
+            }
+            if with_report {
+                board_report(&out, quiet)?;
             }
             Ok(())
         }
