@@ -38,6 +38,7 @@ pub mod curve;
 pub mod demo;
 pub mod dist;
 pub mod engine;
+pub mod fit;
 pub mod output;
 pub mod report;
 pub mod run;
