@@ -530,8 +530,11 @@ fn recommend(
 ) -> Result<OptimumSummary, FitError> {
     let x_star = kind.optimum(&estimate.theta);
     let villages = data.village_patterns.len();
-    let independent = Estimate {
+    // The refit's floor at rho = 0 is not refitted: a resample whose search ends at rho < 1e-6 is on
+    // the boundary anyway, and only the curve's optimum is kept from each refit.
+    let no_floor = Estimate {
         rho: 0.0,
+        log_likelihood: f64::NEG_INFINITY,
         ..estimate.clone()
     };
     let one = |i: u32| -> Option<f64> {
@@ -542,8 +545,7 @@ fn recommend(
             draws[rng.random_range(0..villages)] += 1;
         }
         let w = data.resample_weights(&draws);
-        let ind = model::fit_independent(kind, data, &w, Some(&independent.theta), model::BOOTSTRAP);
-        let clu = model::fit_clustered(kind, data, &w, estimate, &ind, model::BOOTSTRAP);
+        let clu = model::fit_clustered(kind, data, &w, estimate, &no_floor, model::BOOTSTRAP);
         kind.optimum(&clu.theta)
     };
     let pool = rayon::ThreadPoolBuilder::new()

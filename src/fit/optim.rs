@@ -6,7 +6,7 @@
 //! robust choice; the observed information then comes from finite differences at the optimum.
 
 /// Minimises `f` from `start` with the Nelder-Mead simplex (standard coefficients 1, 2, 0.5, 0.5),
-/// restarting once from the point found so that a collapsed simplex cannot stop it early. Stops when
+/// restarting `restarts` times from the point found so that a collapsed simplex cannot stop it early. Stops when
 /// the simplex spans less than `x_tol` in every coordinate and its values less than `f_tol`, or after
 /// `max_evaluations`. Non-finite values count as +inf, so `f` may refuse points by returning NaN.
 pub fn nelder_mead(
@@ -16,11 +16,12 @@ pub fn nelder_mead(
     x_tol: f64,
     f_tol: f64,
     max_evaluations: usize,
+    restarts: usize,
 ) -> (Vec<f64>, f64) {
     let mut best = start.to_vec();
     let mut value = f64::INFINITY;
     let mut budget = max_evaluations;
-    for round in 0..2 {
+    for round in 0..=restarts {
         let scale = if round == 0 { step } else { step * 0.1 };
         let (x, v, used) = simplex(f, &best, scale, x_tol, f_tol, budget);
         budget = budget.saturating_sub(used);
@@ -188,7 +189,7 @@ mod tests {
     fn nelder_mead_finds_the_rosenbrock_minimum() {
         // Rosenbrock's function has its minimum 0 at (1, 1) (textbook test function).
         let mut f = |x: &[f64]| (1.0 - x[0]).powi(2) + 100.0 * (x[1] - x[0] * x[0]).powi(2);
-        let (x, v) = nelder_mead(&mut f, &[-1.2, 1.0], 0.5, 1e-10, 1e-14, 20_000);
+        let (x, v) = nelder_mead(&mut f, &[-1.2, 1.0], 0.5, 1e-10, 1e-14, 20_000, 1);
         assert!((x[0] - 1.0).abs() < 1e-6 && (x[1] - 1.0).abs() < 1e-6, "{x:?}");
         assert!(v < 1e-12);
     }
