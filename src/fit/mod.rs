@@ -233,7 +233,14 @@ pub struct FitReport {
     pub quadrature_check: f64,
     /// Statements about the data and the fit a modeller should read.
     pub notes: Vec<String>,
-    /// Wall time of the bootstrap in seconds (not written to the files, which stay reproducible).
+    /// Wall time of reading the book in seconds (timings are not written to the files, which stay
+    /// reproducible).
+    #[serde(skip)]
+    pub read_seconds: f64,
+    /// Wall time of the fits, the bootstrap excluded.
+    #[serde(skip)]
+    pub fit_seconds: f64,
+    /// Wall time of the bootstrap.
     #[serde(skip)]
     pub bootstrap_seconds: f64,
     /// Mean amount due per loan (the scenario's principal).
@@ -243,8 +250,12 @@ pub struct FitReport {
 
 /// Reads a loan book and fits it.
 pub fn fit_file(path: &std::path::Path, skip_bad_rows: bool, options: &FitOptions) -> Result<FitReport, FitError> {
+    let started = std::time::Instant::now();
     let book = read_loan_book(path, skip_bad_rows)?;
-    fit_book(&book, options)
+    let read_seconds = started.elapsed().as_secs_f64();
+    let mut report = fit_book(&book, options)?;
+    report.read_seconds = read_seconds;
+    Ok(report)
 }
 
 fn unusable(book: &LoanBook, reason: impl Into<String>) -> FitError {
@@ -266,7 +277,11 @@ pub fn fit_book(book: &LoanBook, options: &FitOptions) -> Result<FitReport, FitE
     if book.groups.is_empty() {
         return Err(unusable(book, "no loan rows to fit (every row was empty or skipped)"));
     }
+    let fit_started = std::time::Instant::now();
     let mut notes = Vec::new();
+    for example in &book.skipped_examples {
+        notes.push(format!("skipped: {example}"));
+    }
     let by_size_counts = size_rows(book);
     let sizes: Vec<u32> = by_size_counts.iter().map(|r| r.group_size).collect();
     if sizes.len() == 1 {
@@ -348,6 +363,7 @@ pub fn fit_book(book: &LoanBook, options: &FitOptions) -> Result<FitReport, FitE
     let independent_bias = bias(&curves);
     let beta_binomial = betabinom::fit(&village_cycle_counts(book));
     let started = std::time::Instant::now();
+    let fit_seconds = fit_started.elapsed().as_secs_f64();
     let optimum = recommend(best_kind, &best_estimate, best_data, &sizes, options)?;
     let bootstrap_seconds = started.elapsed().as_secs_f64();
     if let Some(x) = optimum.x_star
@@ -384,6 +400,8 @@ pub fn fit_book(book: &LoanBook, options: &FitOptions) -> Result<FitReport, FitE
         quadrature_nodes: model::HERMITE_NODES,
         quadrature_check,
         notes,
+        read_seconds: 0.0,
+        fit_seconds,
         bootstrap_seconds,
         mean_due: book.total_due / book.loans.max(1) as f64,
     })

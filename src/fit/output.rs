@@ -160,6 +160,11 @@ impl FitReport {
         for n in &self.notes {
             let _ = writeln!(out, "  note: {n}");
         }
+        let _ = writeln!(
+            out,
+            "\nRead in {:.2} s, fitted in {:.2} s, bootstrap {:.2} s",
+            self.read_seconds, self.fit_seconds, self.bootstrap_seconds
+        );
         let _ = writeln!(out, "\n{}", crate::CAUTION);
         out
     }
