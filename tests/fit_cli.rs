@@ -37,7 +37,8 @@ fn fit_writes_csv_json_and_a_scenario_that_check_accepts() {
     let stdout = String::from_utf8_lossy(&o.stdout);
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     assert!(stdout.contains("Recommended group size"), "{stdout}");
-    let json: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(out.join("fit.json")).unwrap()).unwrap();
+    let json: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("fit.json")).unwrap()).unwrap();
     let curves = json["curves"].as_array().unwrap();
     assert_eq!(curves.len(), 8, "four curves in two forms");
     for c in curves {
@@ -73,10 +74,22 @@ fn fit_writes_csv_json_and_a_scenario_that_check_accepts() {
 
 /// (fixture, line, column, value, part of what is allowed)
 const BAD: [(&str, u64, &str, &str, &str); 6] = [
-    ("missing_column.csv", 1, "paid", "missing from the header", "columns cycle, village"),
+    (
+        "missing_column.csv",
+        1,
+        "paid",
+        "missing from the header",
+        "columns cycle, village",
+    ),
     ("non_numeric_amount.csv", 3, "due", "\"12O.00\"", "a finite number"),
     ("negative_amount.csv", 4, "paid", "\"-15.00\"", "an amount >= 0"),
-    ("paid_above_due.csv", 3, "paid", "\"131.00\"", "at most the amount due (120)"),
+    (
+        "paid_above_due.csv",
+        3,
+        "paid",
+        "\"131.00\"",
+        "at most the amount due (120)",
+    ),
     (
         "group_two_villages.csv",
         4,
@@ -84,7 +97,13 @@ const BAD: [(&str, u64, &str, &str, &str); 6] = [
         "\"Bellmoor\"",
         "the village of the group's other members in cycle 1, \"Ashgrove\"",
     ),
-    ("duplicate_member.csv", 5, "member", "\"ash2\"", "one row per member and cycle"),
+    (
+        "duplicate_member.csv",
+        5,
+        "member",
+        "\"ash2\"",
+        "one row per member and cycle",
+    ),
 ];
 
 #[test]
@@ -100,7 +119,10 @@ fn every_bad_record_is_named_with_file_line_column_and_value_and_exits_2() {
         assert!(stderr.contains(&expected), "{file}: expected {expected}\ngot {stderr}");
         assert!(stderr.contains(allowed), "{file}: {stderr}");
         assert!(!stderr.contains("panicked"), "{file}");
-        assert!(!out.join("fit.json").exists() && !out.join("fit.csv").exists(), "{file}");
+        assert!(
+            !out.join("fit.json").exists() && !out.join("fit.csv").exists(),
+            "{file}"
+        );
     }
 }
 
@@ -131,7 +153,8 @@ fn skip_bad_rows_counts_them_and_fits_the_rest() {
     ]);
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     assert!(String::from_utf8_lossy(&o.stdout).contains("5 bad rows skipped"));
-    let json: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(out.join("fit.json")).unwrap()).unwrap();
+    let json: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("fit.json")).unwrap()).unwrap();
     assert_eq!(json["rows_skipped"], 5);
     assert_eq!(json["loans"], 632);
 }

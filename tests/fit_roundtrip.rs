@@ -65,10 +65,9 @@ fn full_fit_recovers_the_curve_the_correlation_and_the_optimum() {
     // power with p = 0.7 has an interior optimum: x ln(1 - x^-0.7) peaks where
     // -(1 - phi) ln(1 - phi) / phi = 0.7 (calculus), which the project's solver gives.
     let curve = |k: u32| (k as f64).powf(-0.7);
-    let truth_x = loancycle::analytic::optimum::closed_form_optimum(
-        &loancycle::curve::GroupSizeCurve::power(0.7).unwrap(),
-    )
-    .unwrap();
+    let truth_x =
+        loancycle::analytic::optimum::closed_form_optimum(&loancycle::curve::GroupSizeCurve::power(0.7).unwrap())
+            .unwrap();
     let text = loan_book(&BookSpec {
         villages: 60,
         cycles: 5,
@@ -102,7 +101,10 @@ fn full_fit_recovers_the_curve_the_correlation_and_the_optimum() {
     let se = power.std_errors["p"].unwrap();
     assert!((power.params["p"] - 0.7).abs() <= STANDARD_ERRORS * se, "{power:?}");
     let se_rho = power.std_errors["rho"].unwrap();
-    assert!((power.params["rho"] - 0.15).abs() <= STANDARD_ERRORS * se_rho, "{power:?}");
+    assert!(
+        (power.params["rho"] - 0.15).abs() <= STANDARD_ERRORS * se_rho,
+        "{power:?}"
+    );
     let o = &report.optimum;
     // The interval may be open above: resamples whose refitted curve has no finite maximiser count as
     // an optimum beyond every size.

@@ -74,8 +74,8 @@ pub fn fit(clusters: &[(u32, u32, u64)]) -> Option<BetaBinomialFit> {
     };
     let mut best: Option<(Vec<f64>, f64)> = None;
     let pooled_logit = (pooled.clamp(1e-9, 1.0 - 1e-9) / (1.0 - pooled.clamp(1e-9, 1.0 - 1e-9))).ln();
-    for icc in [0.001, 0.05, 0.3] {
-        let start = [pooled_logit, (icc / (1.0 - icc) as f64).sqrt()];
+    for icc in [0.001f64, 0.05, 0.3] {
+        let start = [pooled_logit, (icc / (1.0 - icc)).sqrt()];
         let found = nelder_mead(&mut objective, &start, 0.2, 1e-10, 1e-11, 4000, 1);
         if best.as_ref().is_none_or(|b| found.1 < b.1) {
             best = Some(found);

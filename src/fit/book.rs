@@ -218,10 +218,9 @@ fn read_from(reader: impl Read, file: &str, skip_bad_rows: bool) -> Result<LoanB
     let mut open: Vec<OpenGroup> = Vec::new();
     let mut record = csv::StringRecord::new();
     loop {
-        let line;
-        match csv_reader.read_record(&mut record) {
+        let line = match csv_reader.read_record(&mut record) {
             Ok(false) => break,
-            Ok(true) => line = record.position().map_or(0, |p| p.line()),
+            Ok(true) => record.position().map_or(0, |p| p.line()),
             Err(e) => {
                 // A row that is not valid CSV text (bad UTF-8, say) is a bad record like any other.
                 let e = io_error(e);
@@ -235,7 +234,7 @@ fn read_from(reader: impl Read, file: &str, skip_bad_rows: bool) -> Result<LoanB
                 }
                 continue;
             }
-        }
+        };
         book.rows_read += 1;
         let outcome = accept_row(
             &record,
@@ -350,7 +349,11 @@ fn accept_row(
     };
     let due = amount("due", c_due)?;
     if due == 0.0 {
-        return Err(bad("due", field(c_due), "an amount > 0 (a loan with nothing due)".into()));
+        return Err(bad(
+            "due",
+            field(c_due),
+            "an amount > 0 (a loan with nothing due)".into(),
+        ));
     }
     let paid = amount("paid", c_paid)?;
     if paid > due + slack(due) {
@@ -459,7 +462,8 @@ mod tests {
 
     #[test]
     fn groups_default_when_their_sum_falls_short() {
-        let text = format!("{HEADER}1,v1,g1,a,10,10\n1,v1,g1,b,10,4\n1,v1,g2,c,10,10\n1,v2,g3,d,10,10\n2,v1,g1,a,10,10\n");
+        let text =
+            format!("{HEADER}1,v1,g1,a,10,10\n1,v1,g1,b,10,4\n1,v1,g2,c,10,10\n1,v2,g3,d,10,10\n2,v1,g1,a,10,10\n");
         let book = read_loan_book_str(&text, "b.csv", false).unwrap();
         assert_eq!(book.groups.len(), 4);
         assert_eq!(book.village_cycles.len(), 3);

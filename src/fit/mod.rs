@@ -350,7 +350,10 @@ pub fn fit_book(book: &LoanBook, options: &FitOptions) -> Result<FitReport, FitE
     }
     let mut by_size = by_size_counts;
     for row in &mut by_size {
-        for c in curves.iter().filter(|c| c.form == Form::Clustered && c.sizes.contains(&row.group_size)) {
+        for c in curves
+            .iter()
+            .filter(|c| c.form == Form::Clustered && c.sizes.contains(&row.group_size))
+        {
             row.fitted_phi.insert(c.curve.name().to_string(), c.phi(row.group_size));
         }
         row.best_curve_repayment = Some(model::clustered_repayment(
@@ -436,7 +439,11 @@ fn size_rows(book: &LoanBook) -> Vec<SizeRow> {
     // size -> village-cycle -> (repaid, groups)
     let mut cells: BTreeMap<u32, BTreeMap<u32, (f64, f64)>> = BTreeMap::new();
     for g in &book.groups {
-        let e = cells.entry(g.size).or_default().entry(g.village_cycle).or_insert((0.0, 0.0));
+        let e = cells
+            .entry(g.size)
+            .or_default()
+            .entry(g.village_cycle)
+            .or_insert((0.0, 0.0));
         e.1 += 1.0;
         if !g.defaulted {
             e.0 += 1.0;
@@ -491,7 +498,10 @@ fn village_cycle_counts(book: &LoanBook) -> Vec<(u32, u32, u64)> {
 fn bias(curves: &[CurveFit]) -> Vec<Bias> {
     let mut out = Vec::new();
     for ind in curves.iter().filter(|c| c.form == Form::Independent) {
-        let Some(clu) = curves.iter().find(|c| c.form == Form::Clustered && c.curve == ind.curve) else {
+        let Some(clu) = curves
+            .iter()
+            .find(|c| c.form == Form::Clustered && c.curve == ind.curve)
+        else {
             continue;
         };
         let relative_by_size: BTreeMap<u32, f64> = ind

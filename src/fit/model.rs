@@ -15,9 +15,9 @@ use super::book::LoanBook;
 use super::optim::{hessian, inverse_positive_definite, nelder_mead};
 use crate::analytic::quadrature::GaussHermite;
 use crate::analytic::{normal, optimum};
-use statrs::function::erf;
 use crate::curve::GroupSizeCurve;
 use serde::Serialize;
+use statrs::function::erf;
 use std::collections::{BTreeMap, HashMap};
 
 /// Gauss-Hermite nodes used for the clustered likelihood. The integrand is a product over the
@@ -554,7 +554,8 @@ pub fn fit_clustered(
     // rho = 0 is the independent model: a search that ends below it, or at a rho too small to
     // matter, has found the boundary, and the boundary's exact values are the independent fit's
     // (when one is given; a bootstrap refit passes none and keeps its own curve parameters).
-    let on_boundary = !(fitted.log_likelihood > independent.log_likelihood) || fitted.rho < 1e-6;
+    let on_boundary =
+        fitted.log_likelihood.is_nan() || fitted.log_likelihood <= independent.log_likelihood || fitted.rho < 1e-6;
     if on_boundary && independent.log_likelihood.is_finite() {
         Estimate {
             theta: independent.theta.clone(),
@@ -701,8 +702,22 @@ mod tests {
     fn more_nodes_change_the_likelihood_little() {
         let data = Patterns::build(&book(), 1);
         for rho in [0.05, 0.3, 0.6] {
-            let a = log_likelihood(CurveKind::Power, &[1.2], rho, &data, &data.weights, &FactorRule::hermite(64));
-            let b = log_likelihood(CurveKind::Power, &[1.2], rho, &data, &data.weights, &FactorRule::hermite(256));
+            let a = log_likelihood(
+                CurveKind::Power,
+                &[1.2],
+                rho,
+                &data,
+                &data.weights,
+                &FactorRule::hermite(64),
+            );
+            let b = log_likelihood(
+                CurveKind::Power,
+                &[1.2],
+                rho,
+                &data,
+                &data.weights,
+                &FactorRule::hermite(256),
+            );
             assert!((a - b).abs() < 1e-7, "rho {rho}: {a} vs {b}");
         }
     }
@@ -718,6 +733,9 @@ mod tests {
         assert_eq!(se, [None]);
         let clu = fit_clustered(CurveKind::Constant, &data, &data.weights, &ind, &ind, PRECISE);
         assert_eq!(clu.rho, 0.0);
-        assert_eq!(standard_errors(CurveKind::Constant, Form::Clustered, &clu, &data), [None, None]);
+        assert_eq!(
+            standard_errors(CurveKind::Constant, Form::Clustered, &clu, &data),
+            [None, None]
+        );
     }
 }

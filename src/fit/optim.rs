@@ -102,11 +102,12 @@ fn simplex(
                 points[n] = contracted;
                 values[n] = fc;
             } else {
-                for i in 1..=n {
-                    for d in 0..n {
-                        points[i][d] = points[0][d] + 0.5 * (points[i][d] - points[0][d]);
+                let best = points[0].clone();
+                for (point, value) in points.iter_mut().zip(values.iter_mut()).skip(1) {
+                    for (p, b) in point.iter_mut().zip(&best) {
+                        *p = b + 0.5 * (*p - b);
                     }
-                    values[i] = clean(f(&points[i]));
+                    *value = clean(f(point));
                 }
                 used += n;
             }
@@ -153,7 +154,7 @@ pub fn inverse_positive_definite(a: &[Vec<f64>]) -> Option<Vec<Vec<f64>>> {
         for j in 0..=i {
             let s: f64 = a[i][j] - (0..j).map(|k| l[i][k] * l[j][k]).sum::<f64>();
             if i == j {
-                if !(s > 0.0) || !s.is_finite() {
+                if s.is_nan() || s <= 0.0 || !s.is_finite() {
                     return None;
                 }
                 l[i][i] = s.sqrt();
@@ -164,6 +165,7 @@ pub fn inverse_positive_definite(a: &[Vec<f64>]) -> Option<Vec<Vec<f64>>> {
     }
     // Solve L L^T X = I column by column.
     let mut inv = vec![vec![0.0; n]; n];
+    #[allow(clippy::needless_range_loop)]
     for c in 0..n {
         let mut y = vec![0.0; n];
         for i in 0..n {
@@ -174,8 +176,8 @@ pub fn inverse_positive_definite(a: &[Vec<f64>]) -> Option<Vec<Vec<f64>>> {
         for i in (0..n).rev() {
             x[i] = (y[i] - (i + 1..n).map(|k| l[k][i] * x[k]).sum::<f64>()) / l[i][i];
         }
-        for i in 0..n {
-            inv[i][c] = x[i];
+        for (row, v) in inv.iter_mut().zip(&x) {
+            row[c] = *v;
         }
     }
     Some(inv)

@@ -15,7 +15,8 @@ fn cell(v: Option<f64>) -> String {
 impl FitReport {
     /// `fit.json`: the whole report, pretty-printed.
     pub fn to_json(&self) -> String {
-        serde_json::to_string_pretty(self).unwrap_or_else(|e| format!("{{\"error\": \"cannot serialise: {e}\"}}")) + "\n"
+        serde_json::to_string_pretty(self).unwrap_or_else(|e| format!("{{\"error\": \"cannot serialise: {e}\"}}"))
+            + "\n"
     }
 
     /// `fit.csv`: one row per group size, observed and fitted side by side. The `phi_<curve>` columns
@@ -66,7 +67,11 @@ impl FitReport {
             self.source, self.loans, self.groups, self.villages, self.cycles, self.village_cycles
         );
         if self.rows_skipped > 0 {
-            let _ = writeln!(out, "  {} bad rows skipped of {} read", self.rows_skipped, self.rows_read);
+            let _ = writeln!(
+                out,
+                "  {} bad rows skipped of {} read",
+                self.rows_skipped, self.rows_read
+            );
         }
         let _ = writeln!(
             out,
@@ -74,7 +79,10 @@ impl FitReport {
              after peer cover",
             self.groups_with_own_paid, self.groups_defaulted, self.groups_defaulted_with_cover
         );
-        let _ = writeln!(out, "\nGroup repayment by size (95% intervals clustered by village-cycle)");
+        let _ = writeln!(
+            out,
+            "\nGroup repayment by size (95% intervals clustered by village-cycle)"
+        );
         let _ = writeln!(
             out,
             "  {:>4} {:>8} {:>8} {:>19} {:>8} {:>19}",
@@ -96,7 +104,10 @@ impl FitReport {
                 pair(r.phi_ci_low, r.phi_ci_high)
             );
         }
-        let _ = writeln!(out, "\nCurves by maximum likelihood (estimate ± standard error; '-' on a boundary)");
+        let _ = writeln!(
+            out,
+            "\nCurves by maximum likelihood (estimate ± standard error; '-' on a boundary)"
+        );
         for c in &self.curves {
             let params: Vec<String> = c
                 .params
@@ -199,10 +210,7 @@ impl FitReport {
                     CurveKind::Power => format!("{{ curve = \"power\", p = {} }}", theta[0]),
                     CurveKind::PowerPlusLog => format!("{{ curve = \"power_plus_log\", p = {} }}", theta[0]),
                     CurveKind::ScaledPower => {
-                        let entries: Vec<String> = sizes
-                            .iter()
-                            .map(|&k| format!("\"{k}\" = {}", c.phi(k)))
-                            .collect();
+                        let entries: Vec<String> = sizes.iter().map(|&k| format!("\"{k}\" = {}", c.phi(k))).collect();
                         format!("{{ curve = \"table\", values = {{ {} }} }}", entries.join(", "))
                     }
                 }
@@ -264,7 +272,10 @@ fn stage(path: &Path, text: &str) -> Result<PathBuf, FitError> {
         path: path.display().to_string(),
         reason: e.to_string(),
     };
-    let name = path.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default();
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().to_string())
+        .unwrap_or_default();
     let temporary = path.with_file_name(format!(".{name}.partial"));
     std::fs::write(&temporary, text).map_err(fail)?;
     Ok(temporary)
