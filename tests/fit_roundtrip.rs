@@ -115,6 +115,14 @@ fn full_fit_recovers_the_curve_the_correlation_and_the_optimum() {
     assert!(lo <= truth_x && truth_x <= hi, "x* {truth_x} outside {lo}..{hi}");
     assert!(o.integers.iter().all(|&k| f64::from(k) >= lo && f64::from(k) <= hi));
     assert_eq!(o.resamples, 500);
+    // The calibrated scenario must validate; a scaled_power winner is written as a table curve.
+    let toml = report.scenario_toml();
+    let scenario = loancycle::scenario::Scenario::from_toml_str(&toml, "calibrated.toml")
+        .unwrap_or_else(|e| panic!("{e}\n{toml}"));
+    assert!(scenario.arms.len() >= 4, "one arm per size seen");
+    if report.best_curve == CurveKind::ScaledPower {
+        assert!(toml.contains("curve = \"table\""), "{toml}");
+    }
     // Every observed rate's clustered interval should be wider than the naive binomial one.
     for row in &report.by_size {
         let naive = Z_95 * (row.repayment_rate * (1.0 - row.repayment_rate) / row.groups as f64).sqrt();
