@@ -185,17 +185,31 @@ fn read_from(reader: impl Read, file: &str, skip_bad_rows: bool) -> Result<LoanB
         .has_headers(true)
         .flexible(true)
         .from_reader(reader);
-    let io_error = |e: csv::Error| {
-        let line = e.position().map_or(0, |p| p.line());
+    let header_error = |e: csv::Error| {
         BookError::Bad(Box::new(BadRecord {
             file: file.to_string(),
-            line,
-            column: "(whole row)".into(),
+            line: 1,
+            column: "(header)".into(),
             value: "unreadable".into(),
             allowed: format!("CSV text in UTF-8 ({e})"),
         }))
     };
-    let headers = csv_reader.headers().map_err(io_error)?.clone();
+    let headers = csv_reader.headers().map_err(header_error)?.clone();
+    // A row that is not valid CSV text names the column of the offending field where it can.
+    let io_error = |e: csv::Error| {
+        let line = e.position().map_or(0, |p| p.line());
+        let column = match e.kind() {
+            csv::ErrorKind::Utf8 { err, .. } => headers.get(err.field()).unwrap_or("(unnamed)").trim().to_string(),
+            _ => "(whole row)".into(),
+        };
+        BookError::Bad(Box::new(BadRecord {
+            file: file.to_string(),
+            line,
+            column,
+            value: "not valid UTF-8 text".into(),
+            allowed: "CSV text in UTF-8".into(),
+        }))
+    };
     if headers.iter().all(|h| h.trim().is_empty()) {
         return Err(BookError::Bad(Box::new(BadRecord {
             file: file.to_string(),
@@ -222,7 +236,7 @@ fn read_from(reader: impl Read, file: &str, skip_bad_rows: bool) -> Result<LoanB
             Ok(false) => break,
             Ok(true) => record.position().map_or(0, |p| p.line()),
             Err(e) => {
-                // A row that is not valid CSV text (bad UTF-8, say) is a bad record like any other.
+                // A row that is not valid CSV text is a bad record like any other.
                 let e = io_error(e);
                 book.rows_read += 1;
                 if !skip_bad_rows {
@@ -475,15 +489,26 @@ mod tests {
 
     #[test]
     fn own_paid_gives_the_outcome_without_peer_cover() {
-        // The group's sum is complete (b covered a's shortfall), but a paid only 6 herself.
+        // own_paid above due is refused like paid above due.
         let text = "cycle,village,group,member,due,paid,own_paid,note\n1,v,g,a,10,10,6,x\n1,v,g,b,10,10,14,y\n";
-        // own_paid above due is refused, so b's extra payment is booked as paid at most due.
-        assert!(read_loan_book_str(text, "b.csv", false).is_err());
+        let e = read_loan_book_str(text, "b.csv", false).unwrap_err().to_string();
+        assert!(e.contains("line 3, column own_paid: value \"14\""), "{e}");
+        // The group's sums are complete (peers covered a's shortfall), but a paid only 6 herself.
         let text = "cycle,village,group,member,due,paid,own_paid\n1,v,g,a,10,10,6\n1,v,g,b,10,10,10\n";
         let book = read_loan_book_str(text, "b.csv", false).unwrap();
         assert!(book.groups[0].defaulted);
         assert_eq!(book.defaulted_with_cover, 0);
         assert_eq!(book.groups_with_own_paid, 1);
+    }
+
+    #[test]
+    fn text_that_is_not_utf8_names_its_column() {
+        let bytes = b"cycle,village,group,member,due,paid\n1,v\xff,g,a,10,10\n";
+        let e = read_from(&bytes[..], "b.csv", false).unwrap_err().to_string();
+        assert_eq!(
+            e,
+            "b.csv: line 2, column village: value not valid UTF-8 text is not allowed: CSV text in UTF-8"
+        );
     }
 
     #[test]

@@ -291,6 +291,12 @@ pub fn fit_book(book: &LoanBook, options: &FitOptions) -> Result<FitReport, FitE
             sizes[0]
         ));
     }
+    if book.villages.len() < 10 {
+        notes.push(format!(
+            "only {} villages: the bootstrap over villages has few distinct resamples, so its interval is rough",
+            book.villages.len()
+        ));
+    }
     let full = Patterns::build(book, 1);
     let from_two = Patterns::build(book, 2);
     let mut curves = Vec::new();
