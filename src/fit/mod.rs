@@ -170,7 +170,8 @@ pub struct OptimumSummary {
     pub ci_high: Option<f64>,
     /// The integers inside [ci_low, ci_high].
     pub integers: Vec<u32>,
-    /// The best integer size of the point estimate (the better neighbour of x*).
+    /// The best integer size of the point estimate: the better neighbour of x*, or the largest size
+    /// seen when the curve has no finite maximiser.
     pub best_integer: Option<u32>,
     /// Whether the interval narrows the choice to at most one integer.
     pub distinguishes_sizes: bool,
