@@ -40,6 +40,7 @@ pub mod curve;
 pub mod demo;
 pub mod dist;
 pub mod engine;
+pub mod fit;
 pub mod maths;
 pub mod output;
 pub mod report;

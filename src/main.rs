@@ -99,6 +99,64 @@ enum Command {
         #[arg(long)]
         json: bool,
     },
+    /// Calibrate group-size curves and the village correlation from a loan book (CSV, one row per
+    /// member loan) and recommend a group size; writes fit.csv and fit.json.
+    Fit(FitArgs),
+}
+
+/// Flags of `fit`.
+#[derive(clap::Args)]
+struct FitArgs {
+    /// Loan book: columns cycle, village, group, member, due, paid (own_paid optional).
+    book: PathBuf,
+    /// Directory for fit.csv and fit.json.
+    #[arg(long, default_value = "fit/")]
+    out: PathBuf,
+    /// Also write a scenario file with the fitted curve and correlation.
+    #[arg(long)]
+    scenario_out: Option<PathBuf>,
+    /// Skip and count invalid rows instead of refusing the book.
+    #[arg(long)]
+    skip_bad_rows: bool,
+    /// Bootstrap resamples over villages.
+    #[arg(long, default_value_t = 1000, value_parser = clap::value_parser!(u32).range(i64::from(loancycle::fit::MIN_RESAMPLES)..))]
+    resamples: u32,
+    /// Bootstrap seed.
+    #[arg(long, default_value_t = 1)]
+    seed: u64,
+    /// Worker threads (default: all cores); results do not depend on it.
+    #[arg(long, value_parser = clap::value_parser!(u16).range(1..))]
+    threads: Option<u16>,
+    /// Replace results already written.
+    #[arg(long)]
+    force: bool,
+    /// No terminal summary.
+    #[arg(long)]
+    quiet: bool,
+}
+
+/// `fit`: read, fit, write, print. Bad input of any kind exits with code 2.
+fn fit_command(args: FitArgs) -> Result<(), Failure> {
+    use loancycle::fit;
+    let options = fit::FitOptions {
+        resamples: args.resamples,
+        seed: args.seed,
+        threads: args.threads.map(usize::from),
+    };
+    let report =
+        fit::fit_file(&args.book, args.skip_bad_rows, &options).map_err(|e| Failure::BadInput(e.to_string()))?;
+    let paths = fit::write_outputs(&report, &args.out, args.scenario_out.as_deref(), args.force).map_err(|e| match e {
+        // A failed write is a failure while running; existing results without --force are bad input.
+        fit::FitError::Output { .. } => Failure::Running(e.to_string()),
+        _ => Failure::BadInput(e.to_string()),
+    })?;
+    if !args.quiet {
+        print!("{}", report.to_terminal());
+        for p in paths {
+            println!("wrote {}", p.display());
+        }
+    }
+    Ok(())
 }
 
 /// Why a command ended without success. The exit code is decided here and nowhere else.
@@ -225,6 +283,7 @@ fn main() -> ExitCode {
 
 fn execute(command: Command) -> Result<(), Failure> {
     match command {
+        Command::Fit(args) => fit_command(args),
         Command::Optimum {
             curve,
             p,
