@@ -633,9 +633,10 @@ fn invariants_hold_on_random_valid_scenarios() {
     }
 }
 
-/// Independent member shocks without cover: a member is short exactly when hit (fixed income 1, so
-/// capacity equals the amount due unless a hit cuts it), so a group of k repays with probability
-/// (1 - q)^k (binomial law) and a member is short with probability q (Bernoulli law).
+/// Independent member shocks, no exclusion: a member is short exactly when hit (fixed income 1, so
+/// capacity equals the amount due unless a hit cuts it by the severity 0.4). Nobody ever has a
+/// surplus, so peer cover (0.7 here) changes nothing. A group of k therefore repays with probability
+/// (1 - q)^k (binomial law), and a member is short with probability q (Bernoulli law).
 #[test]
 fn independent_members_follow_the_binomial_law() {
     // (q, k, borrowers, villages, liability, formation, matching)

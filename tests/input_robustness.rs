@@ -473,7 +473,7 @@ fn control_characters_get_a_message_that_says_what_is_wrong() {
     ] {
         let name = format!("tests/data/fuzz/open/{file}");
         let bytes = std::fs::read(fuzz_dir("open").join(file)).expect("read the input");
-        let message = parse_without_panic(&name, &bytes).err().expect("refused");
+        let message = parse_without_panic(&name, &bytes).expect_err("refused");
         let (_, after_line) = message.split_once(": line ").expect("a line number");
         let (_, what) = after_line.split_once(": ").expect("a message after the line number");
         assert!(!what.trim().is_empty(), "{name}: the message says nothing: {message:?}");

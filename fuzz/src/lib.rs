@@ -40,6 +40,10 @@ pub fn exercise(text: &str) {
                 message.starts_with(&format!("{ORIGIN}: ")),
                 "error message does not name the file: {message:?}"
             );
+            assert!(
+                !message.trim_end().ends_with(':'),
+                "error message says nothing after its location: {message:?}"
+            );
             return;
         }
     };
@@ -546,6 +550,9 @@ impl Probability {
     }
 }
 
+/// One stress window: `from`, `to` and `probability`, each of which may be missing.
+pub type StressSpec = (Usual<Value>, Usual<Value>, Usual<Value>);
+
 /// One `[[shock]]` table; every field may be missing.
 #[derive(Debug, Arbitrary)]
 pub struct ShockSpec {
@@ -556,7 +563,7 @@ pub struct ShockSpec {
     portfolio_correlation: Rare<Value>,
     reach: Rare<Value>,
     severity: Rare<Dist>,
-    stress: Rare<Vec<(Usual<Value>, Usual<Value>, Usual<Value>)>>,
+    stress: Rare<Vec<StressSpec>>,
 }
 
 /// One `[sweep]` key with its list; `range` replaces the list by 1..=n (deep sweeps).
