@@ -1,0 +1,16 @@
+//! Structured scenarios: every field of the format, present or missing, with plausible values,
+//! extreme numbers, NaN and infinity spellings, huge integers, unicode text, deep sweeps and many
+//! shocks, written as TOML text and run through what the binary does with a file.
+//! Set FUZZ_PRINT_TOML=1 when replaying an input to see the text it stands for.
+#![no_main]
+
+use libfuzzer_sys::fuzz_target;
+use loancycle_fuzz::ScenarioSpec;
+
+fuzz_target!(|spec: ScenarioSpec| {
+    let text = spec.to_toml();
+    if std::env::var_os("FUZZ_PRINT_TOML").is_some() {
+        eprintln!("{text}");
+    }
+    loancycle_fuzz::exercise(&text);
+});

@@ -1,0 +1,743 @@
+//! Invariants of the engine on random valid scenarios, and the independent-member law where it applies.
+//!
+//! Scenarios are generated as TOML text (small: at most 300 borrowers in 4 villages, 8 cycles,
+//! 4 replications, 9 arms) covering both liabilities, all shock scopes, severities, incomes, risks,
+//! exclusion settings, formations, matchings, stress windows and sweeps. The runner is deterministic
+//! (ChaCha with a fixed seed) and runs a bounded number of cases. For every replication of every arm:
+//! - collected <= due (+ rounding), collected >= 0, 0 <= loss <= disbursed, loss + recovered = unpaid
+//!   principal <= disbursed (the accounting of DEVELOPERS.md, "The model", steps 5 and 6);
+//! - the served, excluded, waiting and empty slot-cycles add up to borrowers x counted cycles, so the
+//!   four shares sum to 1; waiting members are fewer than k per village and cycle;
+//! - member loans = served slot-cycles = k x groups; the per-cycle records add up to the totals;
+//! - under joint liability, repaid groups = shortfall-free groups + rescued groups, and every member
+//!   of a defaulting group counts as a default; under individual liability defaults = shortfalls;
+//! - without exclusion nobody is excluded; permanent exclusion empties slots instead of excluding;
+//! - without exclusion and dropout no slot is ever empty;
+//! - without shocks and with every income at or above the amount due, every group repays and nothing
+//!   is lost;
+//! - every rate of the arm summary lies in [0, 1] and group repayment <= 1.
+
+mod common;
+
+use common::{arm_summary, assert_within, scenario, simulate};
+use loancycle::run::RunResults;
+use loancycle::scenario::Scenario;
+use loancycle::stats::ReplicationTally;
+use loancycle::stats::summary::summarize_arm;
+use proptest::prelude::*;
+use proptest::test_runner::{Config, RngAlgorithm, TestCaseError, TestRng, TestRunner};
+use std::cell::Cell;
+
+/// Relative rounding allowed in sums of money.
+const ROUNDING: f64 = 1e-9;
+
+fn at_most(a: f64, b: f64) -> bool {
+    a <= b + ROUNDING * b.abs().max(1.0)
+}
+
+fn close(a: f64, b: f64) -> bool {
+    at_most(a, b) && at_most(b, a)
+}
+
+/// Number of random scenarios checked.
+const CASES: u32 = 500;
+
+/// A deterministic runner: ChaCha seeded with a fixed key, no persistence, a bounded case count.
+fn runner(cases: u32) -> TestRunner {
+    let config = Config {
+        cases,
+        rng_algorithm: RngAlgorithm::ChaCha,
+        failure_persistence: None,
+        max_shrink_iters: 256,
+        ..Config::default()
+    };
+    let seed: [u8; 32] = *b"loancycle engine properties seed";
+    TestRunner::new_with_rng(config, TestRng::from_seed(RngAlgorithm::ChaCha, &seed))
+}
+
+/// A distribution as a TOML value.
+#[derive(Debug, Clone)]
+enum Dist {
+    Fixed(f64),
+    Uniform(f64, f64),
+    Lognormal(f64, f64),
+    Gamma(f64, f64),
+    /// Mean and the sd as a share of its largest value sqrt(mean (1 - mean)).
+    Beta(f64, f64),
+}
+
+impl Dist {
+    fn text(&self) -> String {
+        match *self {
+            Dist::Fixed(v) => format!("{v:?}"),
+            Dist::Uniform(low, high) => format!("{{ kind = \"uniform\", low = {low:?}, high = {high:?} }}"),
+            Dist::Lognormal(mean, cv) => format!("{{ kind = \"lognormal\", mean = {mean:?}, cv = {cv:?} }}"),
+            Dist::Gamma(mean, cv) => format!("{{ kind = \"gamma\", mean = {mean:?}, cv = {cv:?} }}"),
+            Dist::Beta(mean, share) => {
+                let sd = share * (mean * (1.0 - mean)).sqrt();
+                format!("{{ kind = \"beta\", mean = {mean:?}, sd = {sd:?} }}")
+            }
+        }
+    }
+
+    /// Smallest value the distribution can take.
+    fn low(&self) -> f64 {
+        match *self {
+            Dist::Fixed(v) => v,
+            Dist::Uniform(low, _) => low,
+            _ => 0.0,
+        }
+    }
+}
+
+fn income() -> impl Strategy<Value = Dist> {
+    prop_oneof![
+        (0.2f64..2.5).prop_map(Dist::Fixed),
+        (0.2f64..1.5, 0.0f64..1.5).prop_map(|(low, width)| Dist::Uniform(low, low + width)),
+        (0.5f64..2.0, 0.0f64..1.0).prop_map(|(m, cv)| Dist::Lognormal(m, cv)),
+        (0.5f64..2.0, 0.05f64..1.0).prop_map(|(m, cv)| Dist::Gamma(m, cv)),
+    ]
+}
+
+fn risk() -> impl Strategy<Value = Dist> {
+    prop_oneof![
+        Just(Dist::Fixed(1.0)),
+        (0.0f64..3.0).prop_map(Dist::Fixed),
+        (0.0f64..1.0, 0.0f64..1.0).prop_map(|(low, width)| Dist::Uniform(low, low + width)),
+        (0.5f64..1.5, 0.05f64..1.0).prop_map(|(m, cv)| Dist::Gamma(m, cv)),
+        (0.5f64..1.5, 0.0f64..1.0).prop_map(|(m, cv)| Dist::Lognormal(m, cv)),
+    ]
+}
+
+fn severity() -> impl Strategy<Value = Dist> {
+    prop_oneof![
+        (0.0f64..=1.0).prop_map(Dist::Fixed),
+        (0.0f64..=1.0, 0.0f64..=1.0).prop_map(|(a, b)| Dist::Uniform(a.min(b), a.max(b))),
+        (0.05f64..0.95, 0.05f64..0.95).prop_map(|(m, share)| Dist::Beta(m, share)),
+    ]
+}
+
+/// A member-scope probability: a number or a group-size curve.
+#[derive(Debug, Clone)]
+enum MemberProbability {
+    Number(f64),
+    Constant(f64),
+    Power(f64),
+    PowerPlusLog(f64),
+    /// phi(k) = values[k - 1], written for k = 1 ..= 6.
+    Table([f64; 6]),
+}
+
+impl MemberProbability {
+    /// The TOML value; power_plus_log is defined for k >= 2 only, so it falls back to power when an
+    /// arm has groups of 1.
+    fn text(&self, smallest_k: u32) -> String {
+        match self {
+            MemberProbability::Number(p) => format!("{p:?}"),
+            MemberProbability::Constant(q) => format!("{{ curve = \"constant\", value = {q:?} }}"),
+            MemberProbability::Power(p) => format!("{{ curve = \"power\", p = {p:?} }}"),
+            MemberProbability::PowerPlusLog(p) if smallest_k >= 2 => {
+                format!("{{ curve = \"power_plus_log\", p = {p:?} }}")
+            }
+            MemberProbability::PowerPlusLog(p) => format!("{{ curve = \"power\", p = {p:?} }}"),
+            MemberProbability::Table(values) => {
+                let cells: Vec<String> = values
+                    .iter()
+                    .enumerate()
+                    .map(|(i, q)| format!("\"{}\" = {q:?}", i + 1))
+                    .collect();
+                format!("{{ curve = \"table\", values = {{ {} }} }}", cells.join(", "))
+            }
+        }
+    }
+}
+
+fn member_probability() -> impl Strategy<Value = MemberProbability> {
+    prop_oneof![
+        (0.0f64..0.6).prop_map(MemberProbability::Number),
+        (0.0f64..0.4).prop_map(MemberProbability::Constant),
+        (0.2f64..2.5).prop_map(MemberProbability::Power),
+        (0.5f64..2.0).prop_map(MemberProbability::PowerPlusLog),
+        prop::array::uniform6(0.0f64..0.3).prop_map(MemberProbability::Table),
+    ]
+}
+
+/// One shock; the scope decides which optional fields are written.
+#[derive(Debug, Clone)]
+struct ShockCase {
+    scope: usize,
+    member_probability: MemberProbability,
+    unit_probability: f64,
+    village_correlation: f64,
+    portfolio_correlation: f64,
+    reach: f64,
+    severity: Option<Dist>,
+    /// A stress window as (start, length) fractions of the simulated cycles, and its probability.
+    stress: Option<(f64, f64, f64)>,
+}
+
+const SCOPES: [&str; 4] = ["member", "group", "village", "portfolio"];
+
+fn shock() -> impl Strategy<Value = ShockCase> {
+    (
+        0usize..4,
+        member_probability(),
+        0.0f64..0.5,
+        (0.0f64..0.45, 0.0f64..0.45),
+        0.0f64..=1.0,
+        prop::option::of(severity()),
+        prop::option::of((0.0f64..1.0, 0.0f64..1.0, 0.0f64..=1.0)),
+    )
+        .prop_map(
+            |(scope, member_probability, unit_probability, (vc, pc), reach, severity, stress)| ShockCase {
+                scope,
+                member_probability,
+                unit_probability,
+                village_correlation: vc,
+                portfolio_correlation: pc,
+                reach,
+                severity,
+                stress,
+            },
+        )
+}
+
+/// The `[policy]` table; `exclusion` None is "permanent".
+#[derive(Debug, Clone)]
+struct PolicyCase {
+    group_size: u32,
+    joint: bool,
+    peer_cover: f64,
+    exclusion: Option<u32>,
+    defaulters: bool,
+    persistent: bool,
+    assortative: bool,
+}
+
+fn policy() -> impl Strategy<Value = PolicyCase> {
+    (
+        1u32..=6,
+        any::<bool>(),
+        prop_oneof![Just(0.0), Just(1.0), 0.0f64..=1.0],
+        prop_oneof![Just(None), (0u32..=3).prop_map(Some)],
+        any::<bool>(),
+        any::<bool>(),
+        any::<bool>(),
+    )
+        .prop_map(
+            |(group_size, joint, peer_cover, exclusion, defaulters, persistent, assortative)| PolicyCase {
+                group_size,
+                joint,
+                peer_cover,
+                exclusion,
+                defaulters,
+                persistent,
+                assortative,
+            },
+        )
+}
+
+/// A `[sweep]` axis: the key and its list as TOML text, and the group sizes it lists (if any).
+fn sweep_axis() -> impl Strategy<Value = (&'static str, String, Vec<u32>)> {
+    prop_oneof![
+        (1u32..=6, 1u32..=5).prop_map(|(a, d)| {
+            let b = (a + d - 1) % 6 + 1;
+            ("group_size", format!("[{a}, {b}]"), vec![a, b])
+        }),
+        Just(("liability", "[\"joint\", \"individual\"]".to_owned(), vec![])),
+        Just(("peer_cover", "[0, 0.5, 1]".to_owned(), vec![])),
+        Just(("exclusion_cycles", "[0, 2, \"permanent\"]".to_owned(), vec![])),
+        Just(("exclusion_scope", "[\"group\", \"defaulters\"]".to_owned(), vec![])),
+        Just(("formation", "[\"reshuffle\", \"persistent\"]".to_owned(), vec![])),
+        Just(("matching", "[\"random\", \"assortative\"]".to_owned(), vec![])),
+    ]
+}
+
+/// A whole scenario.
+#[derive(Debug, Clone)]
+struct Case {
+    seed: u64,
+    replications: u32,
+    cycles: u32,
+    warmup: u32,
+    borrowers: u32,
+    villages: u32,
+    principal: f64,
+    interest: f64,
+    recovery: f64,
+    income: Dist,
+    risk: Dist,
+    shocks: Vec<ShockCase>,
+    policy: PolicyCase,
+    dropout: f64,
+    replace: bool,
+    sweep: Vec<(&'static str, String, Vec<u32>)>,
+}
+
+fn case() -> impl Strategy<Value = Case> {
+    (
+        (any::<u32>(), 2u32..=4, 1u32..=6, 0u32..=2, 24u32..=300, 1u32..=4),
+        (
+            prop_oneof![Just(1.0), Just(100.0), 1.0f64..1000.0],
+            prop_oneof![Just(0.0), 0.0f64..0.3],
+            prop_oneof![Just(0.0), 0.0f64..=1.0],
+        ),
+        (income(), risk(), prop::collection::vec(shock(), 0..=3)),
+        policy(),
+        (prop_oneof![Just(0.0), 0.0f64..0.2], any::<bool>()),
+        prop::collection::vec(sweep_axis(), 0..=2),
+    )
+        .prop_map(
+            |(
+                (seed, replications, cycles, warmup, borrowers, villages),
+                (principal, interest, recovery),
+                (income, risk, shocks),
+                policy,
+                (dropout, replace),
+                mut sweep,
+            )| {
+                sweep.dedup_by_key(|(key, _, _)| *key);
+                Case {
+                    seed: u64::from(seed),
+                    replications,
+                    cycles,
+                    warmup,
+                    borrowers,
+                    villages,
+                    principal,
+                    interest,
+                    recovery,
+                    income,
+                    risk,
+                    shocks,
+                    policy,
+                    dropout,
+                    replace,
+                    sweep,
+                }
+            },
+        )
+}
+
+impl Case {
+    /// The group sizes the arms use.
+    fn group_sizes(&self) -> Vec<u32> {
+        self.sweep
+            .iter()
+            .find(|(key, _, _)| *key == "group_size")
+            .map_or_else(|| vec![self.policy.group_size], |(_, _, sizes)| sizes.clone())
+    }
+
+    fn swept(&self, key: &str) -> bool {
+        self.sweep.iter().any(|(k, _, _)| *k == key)
+    }
+
+    fn toml(&self) -> String {
+        let total = self.warmup + self.cycles;
+        let smallest_k = self.group_sizes().into_iter().min().unwrap_or(1);
+        let mut t = format!(
+            "seed = {}\nreplications = {}\ncycles = {}\nwarmup_cycles = {}\n\
+             [portfolio]\nborrowers = {}\nvillages = {}\n\
+             [loan]\nprincipal = {:?}\ninterest_rate = {:?}\nrecovery_rate = {:?}\n\
+             [borrowers]\nincome = {}\nrisk = {}\n",
+            self.seed,
+            self.replications,
+            self.cycles,
+            self.warmup,
+            self.borrowers,
+            self.villages,
+            self.principal,
+            self.interest,
+            self.recovery,
+            self.income.text(),
+            self.risk.text()
+        );
+        for (i, s) in self.shocks.iter().enumerate() {
+            t += &format!("[[shock]]\nname = \"shock {i}\"\nscope = \"{}\"\n", SCOPES[s.scope]);
+            if s.scope == 0 {
+                t += &format!(
+                    "probability = {}\nvillage_correlation = {:?}\nportfolio_correlation = {:?}\n",
+                    s.member_probability.text(smallest_k),
+                    s.village_correlation,
+                    s.portfolio_correlation
+                );
+            } else {
+                t += &format!("probability = {:?}\nreach = {:?}\n", s.unit_probability, s.reach);
+            }
+            if let Some(d) = &s.severity {
+                t += &format!("severity = {}\n", d.text());
+            }
+            if let Some((start, length, p)) = s.stress {
+                let from = 1 + (start * f64::from(total)) as u32;
+                let from = from.min(total);
+                let to = (from + (length * f64::from(total - from + 1)) as u32).min(total);
+                t += &format!("stress = [{{ from = {from}, to = {to}, probability = {p:?} }}]\n");
+            }
+        }
+        let p = &self.policy;
+        let exclusion = p
+            .exclusion
+            .map_or_else(|| "\"permanent\"".to_owned(), |e| e.to_string());
+        t += &format!(
+            "[policy]\ngroup_size = {}\nliability = \"{}\"\npeer_cover = {:?}\nexclusion_cycles = {exclusion}\n\
+             exclusion_scope = \"{}\"\nformation = \"{}\"\nmatching = \"{}\"\n",
+            p.group_size,
+            if p.joint { "joint" } else { "individual" },
+            p.peer_cover,
+            if p.defaulters { "defaulters" } else { "group" },
+            if p.persistent { "persistent" } else { "reshuffle" },
+            if p.assortative { "assortative" } else { "random" },
+        );
+        t += &format!(
+            "[pool]\ndropout = {:?}\nreplace_departures = {}\n",
+            self.dropout, self.replace
+        );
+        if !self.sweep.is_empty() {
+            t += "[sweep]\n";
+            for (key, list, _) in &self.sweep {
+                t += &format!("{key} = {list}\n");
+            }
+        }
+        t
+    }
+}
+
+fn check(condition: bool, what: impl FnOnce() -> String) -> Result<(), TestCaseError> {
+    if condition {
+        Ok(())
+    } else {
+        Err(TestCaseError::fail(what()))
+    }
+}
+
+/// The per-replication identities listed in the module comment.
+fn check_replication(case: &Case, s: &Scenario, arm: usize, r: &ReplicationTally) -> Result<(), TestCaseError> {
+    let policy = &s.arms[arm].policy;
+    let k = u64::from(policy.group_size);
+    let joint = policy.liability == loancycle::scenario::Liability::Joint;
+    let at = |what: &str| {
+        format!(
+            "arm {arm} ({}), replication {}: {what}; {r:?}",
+            s.arms[arm].label, r.replication
+        )
+    };
+    check(at_most(r.collected, r.due), || at("collected > due"))?;
+    check(r.collected >= 0.0, || at("collected < 0"))?;
+    check(r.loss >= 0.0, || at("loss < 0"))?;
+    check(at_most(r.loss, r.disbursed), || at("loss > disbursed"))?;
+    check(at_most(r.unpaid_principal, r.disbursed), || {
+        at("unpaid principal > disbursed")
+    })?;
+    check(close(r.loss + r.recovered, r.unpaid_principal), || {
+        at("loss + recovered != unpaid principal")
+    })?;
+    check(close(r.due, r.disbursed * (1.0 + s.interest_rate)), || {
+        at("due != disbursed x (1 + r)")
+    })?;
+    check(
+        close(r.disbursed, k as f64 * r.group_cycles as f64 * s.principal),
+        || at("disbursed != k x groups x P"),
+    )?;
+
+    check(r.slot_cycles() == u64::from(s.borrowers) * u64::from(s.cycles), || {
+        at("slot-cycles != N x cycles")
+    })?;
+    check(r.member_loans == r.served_slot_cycles, || {
+        at("member loans != served slot-cycles")
+    })?;
+    check(r.member_loans == k * r.group_cycles, || {
+        at("member loans != k x groups")
+    })?;
+    check(
+        r.waiting_slot_cycles <= (k - 1) * u64::from(s.villages) * u64::from(s.cycles),
+        || at("k or more members waiting in a village"),
+    )?;
+    check(r.groups_repaid <= r.group_cycles, || at("repaid > groups"))?;
+    check(r.groups_rescued <= r.groups_repaid, || at("rescued > repaid"))?;
+    check(r.member_shortfalls <= r.member_loans, || at("shortfalls > loans"))?;
+
+    let histogram_groups: u64 = r.shortfall_histogram.iter().sum();
+    let histogram_short: u64 = r
+        .shortfall_histogram
+        .iter()
+        .enumerate()
+        .map(|(n, c)| n as u64 * c)
+        .sum();
+    check(histogram_groups == r.group_cycles, || at("histogram groups != groups"))?;
+    check(histogram_short == r.member_shortfalls, || {
+        at("histogram shortfalls != shortfalls")
+    })?;
+    let shortfall_free = r.shortfall_histogram[0];
+    if joint {
+        check(r.groups_repaid == shortfall_free + r.groups_rescued, || {
+            at("joint: repaid != shortfall-free + rescued")
+        })?;
+        check(r.member_defaults == k * (r.group_cycles - r.groups_repaid), || {
+            at("joint: defaults != k x defaulting groups")
+        })?;
+    } else {
+        check(r.groups_rescued == 0, || at("individual: a group was rescued"))?;
+        check(r.groups_repaid == shortfall_free, || {
+            at("individual: repaid != shortfall-free")
+        })?;
+        check(r.member_defaults == r.member_shortfalls, || {
+            at("individual: defaults != shortfalls")
+        })?;
+    }
+    match policy.exclusion_cycles {
+        loancycle::scenario::Exclusion::Cycles(0) => {
+            check(r.excluded_slot_cycles == 0, || at("excluded without exclusion"))?;
+            if s.dropout == 0.0 {
+                check(r.empty_slot_cycles == 0, || {
+                    at("empty slots without exclusion or dropout")
+                })?;
+            }
+        }
+        loancycle::scenario::Exclusion::Permanent => {
+            check(r.excluded_slot_cycles == 0, || {
+                at("permanent exclusion counted as excluded")
+            })?;
+        }
+        loancycle::scenario::Exclusion::Cycles(_) => {}
+    }
+    if case.shocks.is_empty() && case.income.low() >= 1.0 {
+        check(r.groups_repaid == r.group_cycles, || {
+            at("no shock, income >= due, yet a default")
+        })?;
+        check(r.loss == 0.0 && r.member_shortfalls == 0, || {
+            at("no shock, income >= due, yet a loss")
+        })?;
+    }
+
+    check(r.cycles.len() == s.cycles as usize, || {
+        at("cycle records != counted cycles")
+    })?;
+    let served: u64 = r.cycles.iter().map(|c| u64::from(c.served)).sum();
+    let groups: u64 = r.cycles.iter().map(|c| u64::from(c.groups)).sum();
+    let repaid: u64 = r.cycles.iter().map(|c| u64::from(c.groups_repaid)).sum();
+    let short: u64 = r.cycles.iter().map(|c| u64::from(c.shortfalls)).sum();
+    let excluded: u64 = r.cycles.iter().map(|c| u64::from(c.excluded)).sum();
+    let loss: f64 = r.cycles.iter().map(|c| c.loss).sum();
+    let disbursed: f64 = r.cycles.iter().map(|c| c.disbursed).sum();
+    check(served == r.member_loans && groups == r.group_cycles, || {
+        at("cycle records: served or groups")
+    })?;
+    check(repaid == r.groups_repaid && short == r.member_shortfalls, || {
+        at("cycle records: repaid or shortfalls")
+    })?;
+    check(excluded == r.excluded_slot_cycles, || at("cycle records: excluded"))?;
+    check(close(loss, r.loss) && close(disbursed, r.disbursed), || {
+        at("cycle records: loss or disbursed")
+    })?;
+    for c in &r.cycles {
+        check(c.loss >= 0.0 && at_most(c.loss, c.disbursed), || {
+            at("a cycle lost more than it lent")
+        })?;
+    }
+    Ok(())
+}
+
+/// The ranges of an arm's summary.
+fn check_summary(s: &Scenario, results: &RunResults, arm: usize) -> Result<(), TestCaseError> {
+    let m = summarize_arm(&results.arms[arm], s.arms[arm].policy.group_size);
+    let unit = [
+        ("group_repayment", m.group_repayment.map(|i| i.rate)),
+        ("member_shortfall_rate", m.member_shortfall_rate),
+        ("member_default_rate", m.member_default_rate),
+        ("iid_group_repayment", m.iid_group_repayment),
+        ("implied_member_failure", m.implied_member_failure),
+        ("rescued_rate", m.rescued_rate),
+        ("value_repayment_rate", m.value_repayment_rate),
+        ("loss_rate", m.loss_rate.map(|i| i.rate)),
+        ("served_share", m.served_share),
+        ("excluded_share", m.excluded_share),
+        ("waiting_share", m.waiting_share),
+        ("empty_share", m.empty_share),
+        ("loss_p50", m.loss_p50),
+        ("loss_p95", m.loss_p95),
+        ("loss_p99", m.loss_p99),
+        ("loss_p999", m.loss_p999),
+        ("loss_es99", m.loss_es99),
+        ("loss_cycle_p99", m.loss_cycle_p99),
+        ("loss_cycle_p999", m.loss_cycle_p999),
+    ];
+    for (name, value) in unit {
+        if let Some(x) = value {
+            check((0.0..=1.0 + ROUNDING).contains(&x), || {
+                format!("arm {arm}: {name} = {x} outside [0, 1]")
+            })?;
+        }
+    }
+    let shares = [m.served_share, m.excluded_share, m.waiting_share, m.empty_share];
+    check(shares.iter().all(Option::is_some), || {
+        format!("arm {arm}: a share is missing")
+    })?;
+    let total: f64 = shares.iter().flatten().sum();
+    check((total - 1.0).abs() <= 1e-12, || {
+        format!("arm {arm}: the four shares sum to {total}")
+    })?;
+    check(
+        m.member_loans == m.group_cycles * u64::from(s.arms[arm].policy.group_size),
+        || format!("arm {arm}: member loans != k x group-cycles"),
+    )?;
+    Ok(())
+}
+
+#[test]
+fn invariants_hold_on_random_valid_scenarios() {
+    let mut runner = runner(CASES);
+    let arms_checked = Cell::new(0usize);
+    let replications_checked = Cell::new(0usize);
+    let swept: [Cell<usize>; 7] = Default::default();
+    let outcome = runner.run(&case(), |case| {
+        let text = case.toml();
+        let s = Scenario::from_toml_str(&text, "generated.toml")
+            .map_err(|e| TestCaseError::fail(format!("the generator wrote an invalid scenario: {e}\n{text}")))?;
+        let results = loancycle::run::simulate(&s, loancycle::run::RunOptions { threads: Some(1) }, &mut |_| {})
+            .map_err(|e| TestCaseError::fail(e.to_string()))?;
+        for (arm, tally) in results.arms.iter().enumerate() {
+            check(tally.replications.len() == s.replications as usize, || {
+                "replication count".into()
+            })?;
+            for r in &tally.replications {
+                check_replication(&case, &s, arm, r).map_err(|e| TestCaseError::fail(format!("{e}\n{text}")))?;
+                replications_checked.set(replications_checked.get() + 1);
+            }
+            check_summary(&s, &results, arm).map_err(|e| TestCaseError::fail(format!("{e}\n{text}")))?;
+            arms_checked.set(arms_checked.get() + 1);
+        }
+        for (i, key) in [
+            "group_size",
+            "liability",
+            "peer_cover",
+            "exclusion_cycles",
+            "exclusion_scope",
+            "formation",
+            "matching",
+        ]
+        .iter()
+        .enumerate()
+        {
+            swept[i].set(swept[i].get() + usize::from(case.swept(key)));
+        }
+        Ok(())
+    });
+    let swept: Vec<usize> = swept.iter().map(Cell::get).collect();
+    println!(
+        "{CASES} scenarios, {} arms, {} replications checked; scenarios sweeping each policy field {swept:?}",
+        arms_checked.get(),
+        replications_checked.get()
+    );
+    if let Err(e) = outcome {
+        panic!("{e}");
+    }
+}
+
+/// Independent member shocks, no exclusion: a member is short exactly when hit (fixed income 1, so
+/// capacity equals the amount due unless a hit cuts it by the severity 0.4). Nobody ever has a
+/// surplus, so peer cover (0.7 here) changes nothing. A group of k therefore repays with probability
+/// (1 - q)^k (binomial law), and a member is short with probability q (Bernoulli law).
+#[test]
+fn independent_members_follow_the_binomial_law() {
+    // (q, k, borrowers, villages, liability, formation, matching)
+    let cases: [(f64, i32, u32, u32, &str, &str, &str); 5] = [
+        (0.05, 5, 600, 3, "joint", "reshuffle", "random"),
+        (0.10, 3, 450, 1, "joint", "persistent", "random"),
+        (0.20, 1, 300, 2, "joint", "reshuffle", "assortative"),
+        (0.02, 8, 640, 4, "joint", "persistent", "assortative"),
+        (0.15, 4, 400, 2, "individual", "reshuffle", "random"),
+    ];
+    // A seed per case, so the cases do not share their random numbers.
+    for (seed, (q, k, borrowers, villages, liability, formation, matching)) in (11..).zip(cases) {
+        let text = format!(
+            "seed = {seed}\nreplications = 200\ncycles = 20\n\
+             [portfolio]\nborrowers = {borrowers}\nvillages = {villages}\n\
+             [loan]\nprincipal = 100\ninterest_rate = 0.1\n\
+             [borrowers]\nincome = 1.0\nrisk = 1.0\n\
+             [[shock]]\nname = \"illness\"\nscope = \"member\"\nprobability = {q}\nseverity = 0.4\n\
+             [policy]\ngroup_size = {k}\nliability = \"{liability}\"\npeer_cover = 0.7\nexclusion_cycles = 0\n\
+             formation = \"{formation}\"\nmatching = \"{matching}\"\n"
+        );
+        let s = scenario(&text);
+        let results = simulate(&s);
+        let m = arm_summary(&s, &results, 0);
+        let label = format!("q = {q}, k = {k}, {liability}, {formation}, {matching}");
+        let repaid = m.group_repayment.expect("groups were served");
+        let se = repaid.standard_error.expect("replications");
+        // binomial law: P(no member of k hit) = (1 - q)^k
+        let law = (1.0 - q).powi(k);
+        println!(
+            "{label}: group repayment {:.5} (SE {se:.5}) vs binomial law {law:.5}",
+            repaid.rate
+        );
+        assert_within(&format!("{label}: group repayment"), repaid.rate, se, law, 0.01);
+        // Bernoulli law: every member-cycle is an independent trial with success probability q
+        let n = m.member_loans as f64;
+        let shortfall = m.member_shortfall_rate.expect("loans");
+        let se = (q * (1.0 - q) / n).sqrt();
+        assert_within(&format!("{label}: member shortfall rate"), shortfall, se, q, 0.01);
+    }
+}
+
+fn open_fixture(name: &str) -> Scenario {
+    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("tests/data/fuzz/open")
+        .join(name);
+    Scenario::load(&path).expect("the fixture validates").0
+}
+
+/// A group of members whose income is far above the amount due repays: nobody is short.
+/// Found by fuzzing: with an income or a principal near the largest float, a member's capacity
+/// (amount due x income) or the group's surplus overflows to infinity, `peer_cover` 0 times infinity is NaN, and the repayment test
+/// `shortfall <= cover x surplus` fails for a group with no shortfall at all.
+#[test]
+#[ignore = "open defect: capacity overflow makes groups with no shortfall default (tests/data/fuzz/open/)"]
+fn groups_without_shortfall_repay_even_at_extreme_amounts() {
+    for name in ["overflowing_capacity.toml", "overflowing_income.toml"] {
+        let s = open_fixture(name);
+        let m = arm_summary(&s, &simulate(&s), 0);
+        println!(
+            "{name}: shortfall rate {:?}, group repayment {:?}",
+            m.member_shortfall_rate,
+            m.group_repayment.map(|g| g.rate)
+        );
+        assert_eq!(m.member_shortfall_rate, Some(0.0), "{name}");
+        assert_eq!(
+            m.group_repayment.map(|g| g.rate),
+            Some(1.0),
+            "{name}: groups with no shortfall defaulted"
+        );
+    }
+}
+
+/// Every rate of a scenario the validator accepts is a number in [0, 1].
+/// Found by fuzzing: with a principal near the largest float, the sums of amounts due, collected,
+/// disbursed and lost over a replication overflow to infinity (or k x the amount due does), and
+/// the value repayment rate, loss rate and net yield become inf / inf = NaN, printed as empty cells.
+#[test]
+#[ignore = "open defect: money sums overflow at extreme principals and rates become NaN (tests/data/fuzz/open/)"]
+fn rates_stay_finite_at_extreme_principals() {
+    for name in [
+        "overflowing_capacity.toml",
+        "overflowing_income.toml",
+        "overflowing_group_due.toml",
+        "overflowing_money_sums.toml",
+    ] {
+        let s = open_fixture(name);
+        let m = arm_summary(&s, &simulate(&s), 0);
+        for (label, value) in [
+            ("value_repayment_rate", m.value_repayment_rate),
+            ("loss_rate", m.loss_rate.map(|l| l.rate)),
+        ] {
+            assert!(
+                value.is_some_and(|x| (0.0..=1.0).contains(&x)),
+                "{name}: {label} = {value:?}"
+            );
+        }
+        assert!(
+            m.net_yield.is_some_and(f64::is_finite),
+            "{name}: net_yield = {:?}",
+            m.net_yield
+        );
+    }
+}
