@@ -468,6 +468,9 @@ fn check_replication(case: &Case, s: &Scenario, arm: usize, r: &ReplicationTally
         at("histogram shortfalls != shortfalls")
     })?;
     let shortfall_free = r.shortfall_histogram[0];
+    check(r.shortfall_free_groups == shortfall_free, || {
+        at("shortfall-free groups != groups with no member short in the histogram")
+    })?;
     if joint {
         check(r.groups_repaid == shortfall_free + r.groups_rescued, || {
             at("joint: repaid != shortfall-free + rescued")
@@ -544,7 +547,8 @@ fn check_summary(s: &Scenario, results: &RunResults, arm: usize) -> Result<(), T
         ("group_repayment", m.group_repayment.map(|i| i.rate)),
         ("member_shortfall_rate", m.member_shortfall_rate),
         ("member_default_rate", m.member_default_rate),
-        ("iid_group_repayment", m.iid_group_repayment),
+        ("shortfall_free_group_rate", m.shortfall_free_group_rate),
+        ("iid_shortfall_free", m.iid_shortfall_free),
         ("implied_member_failure", m.implied_member_failure),
         ("rescued_rate", m.rescued_rate),
         ("value_repayment_rate", m.value_repayment_rate),
