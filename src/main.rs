@@ -145,11 +145,12 @@ fn fit_command(args: FitArgs) -> Result<(), Failure> {
     };
     let report =
         fit::fit_file(&args.book, args.skip_bad_rows, &options).map_err(|e| Failure::BadInput(e.to_string()))?;
-    let paths = fit::write_outputs(&report, &args.out, args.scenario_out.as_deref(), args.force).map_err(|e| match e {
-        // A failed write is a failure while running; existing results without --force are bad input.
-        fit::FitError::Output { .. } => Failure::Running(e.to_string()),
-        _ => Failure::BadInput(e.to_string()),
-    })?;
+    let paths =
+        fit::write_outputs(&report, &args.out, args.scenario_out.as_deref(), args.force).map_err(|e| match e {
+            // A failed write is a failure while running; existing results without --force are bad input.
+            fit::FitError::Output { .. } => Failure::Running(e.to_string()),
+            _ => Failure::BadInput(e.to_string()),
+        })?;
     if !args.quiet {
         print!("{}", report.to_terminal());
         for p in paths {
@@ -354,7 +355,8 @@ fn execute(command: Command) -> Result<(), Failure> {
             let options = run::RunOptions {
                 threads: threads.map(usize::from),
             };
-            run::check_memory(&scenario, &options, max_memory).map_err(|e| Failure::BadInput(format!("{origin}: {e}")))?;
+            run::check_memory(&scenario, &options, max_memory)
+                .map_err(|e| Failure::BadInput(format!("{origin}: {e}")))?;
             let created = output::prepare_destination(&out, force).map_err(|e| {
                 if e.is_bad_destination() {
                     Failure::BadInput(e.to_string())

@@ -375,9 +375,10 @@ impl Case {
             }
         }
         let p = &self.policy;
+        // An exclusion longer than the whole run is refused by validation, so it is capped there.
         let exclusion = p
             .exclusion
-            .map_or_else(|| "\"permanent\"".to_owned(), |e| e.to_string());
+            .map_or_else(|| "\"permanent\"".to_owned(), |e| e.min(total).to_string());
         t += &format!(
             "[policy]\ngroup_size = {}\nliability = \"{}\"\npeer_cover = {:?}\nexclusion_cycles = {exclusion}\n\
              exclusion_scope = \"{}\"\nformation = \"{}\"\nmatching = \"{}\"\n",
@@ -395,6 +396,13 @@ impl Case {
         if !self.sweep.is_empty() {
             t += "[sweep]\n";
             for (key, list, _) in &self.sweep {
+                let capped;
+                let list = if *key == "exclusion_cycles" && total < 2 {
+                    capped = format!("[0, {total}, \"permanent\"]");
+                    &capped
+                } else {
+                    list
+                };
                 t += &format!("{key} = {list}\n");
             }
         }
