@@ -188,11 +188,8 @@ fn tiny_portfolio_matches_brute_force_enumeration() {
         ("joint", 1, 0.0),
     ] {
         let s = tiny(liability, k, cover);
-        let start = std::time::Instant::now();
         let law = normal_law(&s, 0);
-        let t1 = start.elapsed();
         let reference = brute_force(liability == "joint", k as usize, cover);
-        eprintln!("{liability} {k}: law {:?}, brute {:?}", t1, start.elapsed() - t1);
         assert_eq!(law.pmf.len(), reference.len(), "{liability}, k = {k}");
         for (j, (a, b)) in law.pmf.iter().zip(&reference).enumerate() {
             // Brute force: Gauss-Hermite (64 nodes per factor) and full enumeration.
@@ -337,7 +334,10 @@ fn exact_quantiles_bound_the_simulated_cycle_quantiles() {
     ] {
         let (a, b) = order_statistic_band(&law, n, q, alpha);
         let exact = law.quantile(q);
-        assert!(a <= exact && exact <= b, "q = {q}: exact {exact} outside its own band [{a}, {b}]");
+        assert!(
+            a <= exact && exact <= b,
+            "q = {q}: exact {exact} outside its own band [{a}, {b}]"
+        );
         assert!(
             a - 1e-12 <= simulated && simulated <= b + 1e-12,
             "q = {q}: simulated {simulated} outside [{a}, {b}] around exact {exact}"
@@ -384,8 +384,14 @@ fn portfolio_tail_is_half_the_single_village_tail_at_the_summed_correlation() {
     // sqrt(0.95)) = 0.138.
     let limit = vasicek::quantile(0.999, 0.04, 0.05).unwrap();
     assert!((limit - 0.138).abs() < 0.001, "limit {limit}");
-    assert!(portfolio > limit && portfolio < limit + 0.015, "portfolio {portfolio}, limit {limit}");
-    assert!(per_village > 1.8 * portfolio, "per-village {per_village}, portfolio {portfolio}");
+    assert!(
+        portfolio > limit && portfolio < limit + 0.015,
+        "portfolio {portfolio}, limit {limit}"
+    );
+    assert!(
+        per_village > 1.8 * portfolio,
+        "per-village {per_village}, portfolio {portfolio}"
+    );
 }
 
 /// Scenarios outside the class come back with the input named.

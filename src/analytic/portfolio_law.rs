@@ -448,17 +448,10 @@ impl CycleModel {
         let portfolio_factor = portfolio_correlation.is_some();
         let settlement = match policy.liability {
             Liability::Individual => Settlement::Individual,
-            Liability::Joint => joint_settlement(
-                k,
-                w,
-                scenario.amount_due(),
-                policy.peer_cover,
-                &active,
-                &multipliers,
-            )
-            .map_err(|reason| OutOfClass {
-                reason: format!("arm '{}': {reason}", scenario.arms[arm].label),
-            })?,
+            Liability::Joint => joint_settlement(k, w, scenario.amount_due(), policy.peer_cover, &active, &multipliers)
+                .map_err(|reason| OutOfClass {
+                    reason: format!("arm '{}': {reason}", scenario.arms[arm].label),
+                })?,
         };
         let mut by_units: BTreeMap<u32, u32> = BTreeMap::new();
         for v in 0..scenario.villages {
@@ -685,8 +678,11 @@ impl CycleModel {
             let mut m = -7.5;
             while m <= 7.5 {
                 let (p, q) = at(m, scratch);
-                let slope = (at(m + delta, scratch).0 - at(m - delta, scratch).0).abs() / (2.0 * delta);
-                if slope > 0.0 {
+                // The slope of whichever of p and 1 - p is smaller, which carries full relative
+                // precision; where the law is degenerate to 1e-30 the width does not matter.
+                let side = |x: (f64, f64)| if p <= q { x.0 } else { x.1 };
+                let slope = (side(at(m + delta, scratch)) - side(at(m - delta, scratch))).abs() / (2.0 * delta);
+                if slope > 0.0 && p * q > 1e-30 {
                     narrowest = narrowest.min((p * q / trials).sqrt() / slope);
                 }
                 m += 0.1;
@@ -971,15 +967,17 @@ impl CycleModel {
             return (q, name);
         }
         let rho = self.portfolio_correlation.unwrap_or(0.0);
-        let single = combos.len() == 1
-            && self.active.len() == 1
-            && matches!(self.settlement, Settlement::Individual);
+        let single = combos.len() == 1 && self.active.len() == 1 && matches!(self.settlement, Settlement::Individual);
         let name = if single {
             format!("Vasicek's law at portfolio correlation {rho}")
         } else {
             format!(
                 "the law of the conditional default probability given the portfolio draws (portfolio factor of correlation {rho}{})",
-                if combos.len() > 1 { " and portfolio-scope strikes" } else { "" }
+                if combos.len() > 1 {
+                    " and portfolio-scope strikes"
+                } else {
+                    ""
+                }
             )
         };
         if combos.len() == 1 {
@@ -1167,9 +1165,7 @@ fn joint_settlement(
     let repays = |n_hit: u32, short_sum: f64| short_sum <= lambda * f64::from(k - n_hit) * surplus + slack;
     let lowest = categories.iter().map(|c| c.0).fold(f64::INFINITY, f64::min);
     let highest = categories.iter().map(|c| c.0).fold(0.0, f64::max);
-    let by_count = (0..=k).all(|n| {
-        n == 0 || repays(n, f64::from(n) * lowest) == repays(n, f64::from(n) * highest)
-    });
+    let by_count = (0..=k).all(|n| n == 0 || repays(n, f64::from(n) * lowest) == repays(n, f64::from(n) * highest));
     if by_count || categories.is_empty() {
         let defaults = (0..=k)
             .map(|n| !repays(n, f64::from(n) * if n == 0 { 0.0 } else { highest }))
@@ -1338,7 +1334,10 @@ impl Fft {
         let twiddles = (0..n / 2)
             .map(|j| {
                 let a = -2.0 * std::f64::consts::PI * j as f64 / n as f64;
-                C64 { re: a.cos(), im: a.sin() }
+                C64 {
+                    re: a.cos(),
+                    im: a.sin(),
+                }
             })
             .collect();
         let bits = n.trailing_zeros();
@@ -1419,7 +1418,10 @@ mod tests {
             let mut direct = C64::ZERO;
             for (m, v) in x.iter().enumerate() {
                 let a = -2.0 * std::f64::consts::PI * (j * m) as f64 / n as f64;
-                direct = direct.add(v.mul(C64 { re: a.cos(), im: a.sin() }));
+                direct = direct.add(v.mul(C64 {
+                    re: a.cos(),
+                    im: a.sin(),
+                }));
             }
             assert!((f.re - direct.re).abs() < 1e-12 && (f.im - direct.im).abs() < 1e-12);
         }
@@ -1438,7 +1440,10 @@ mod tests {
             let reference = Binomial::new(p, u64::from(n)).unwrap();
             for (j, v) in out.iter().enumerate().step_by((n as usize / 50).max(1)) {
                 let r = reference.pmf(j as u64);
-                assert!((v - r).abs() < 1e-12 * r.max(1e-3), "n = {n}, p = {p}, j = {j}: {v} vs {r}");
+                assert!(
+                    (v - r).abs() < 1e-12 * r.max(1e-3),
+                    "n = {n}, p = {p}, j = {j}: {v} vs {r}"
+                );
             }
             assert!((out.iter().sum::<f64>() - 1.0).abs() < 1e-13);
         }
@@ -1467,7 +1472,10 @@ mod tests {
         let by_count = joint_settlement(5, 1.5, 1.0, 1.0, &[0, 1], &[0.0, 0.0]).unwrap();
         assert!(matches!(by_count, Settlement::JointByCount { .. }));
         let by_pattern = joint_settlement(5, 1.5, 1.0, 1.0, &[0, 1], &[0.4, 0.4]).unwrap();
-        let Settlement::JointByPattern { defaulting, repaying, .. } = &by_pattern else {
+        let Settlement::JointByPattern {
+            defaulting, repaying, ..
+        } = &by_pattern
+        else {
             panic!("distinct shortfalls need patterns")
         };
         // Compositions of 5 into 3 parts: C(7, 2) = 21.
