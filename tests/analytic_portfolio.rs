@@ -351,8 +351,9 @@ fn exact_quantiles_bound_the_simulated_cycle_quantiles() {
 
 /// The case that motivated the portfolio law: 100 villages of 200 members, p = 0.04, village
 /// correlation 0.10 and portfolio correlation 0.05. One village's law at the summed correlation
-/// 0.15 (what `analyze` showed until now) puts the 99.9% hit share near 0.27; the portfolio's own
-/// law puts it near 0.14, half as much, close to Vasicek's limit at the portfolio correlation.
+/// 0.15 (what `analyze` showed until now) puts the 99.9% hit share at 0.285 (0.274 by the
+/// large-pool formula); the portfolio's own law puts it at 0.140, half as much, close to Vasicek's
+/// limit at the portfolio correlation (0.138).
 #[test]
 fn portfolio_tail_is_half_the_single_village_tail_at_the_summed_correlation() {
     let s = scenario(
