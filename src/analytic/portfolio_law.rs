@@ -19,7 +19,7 @@
 //! to its multiplicity in Fourier space, so a portfolio of 100,000 borrowers costs seconds.
 
 use super::one_factor::OutOfClass;
-use super::{AnalyticError, accurate_normal, normal};
+use super::{AnalyticError, normal};
 use crate::scenario::{Exclusion, Liability, Scenario, ShockScope};
 use rayon::prelude::*;
 use serde::Serialize;
@@ -527,7 +527,7 @@ impl CycleModel {
                         (1.0, 0.0)
                     } else {
                         let z = (t - a_p * d.mp - a_v * d.mv) / b;
-                        (accurate_normal::cdf(z), accurate_normal::cdf(-z))
+                        (normal::cdf(z), normal::cdf(-z))
                     }
                 }
                 Source::Unit { reach, .. } => {
@@ -1002,7 +1002,7 @@ impl CycleModel {
             combos
                 .iter()
                 .zip(&tables)
-                .map(|(&(_, p), t)| p * accurate_normal::cdf(-invert_decreasing(&grid, t, x)))
+                .map(|(&(_, p), t)| p * normal::cdf(-invert_decreasing(&grid, t, x)))
                 .sum()
         };
         let q = QUANTILE_LEVELS
