@@ -75,6 +75,12 @@ pub enum FitError {
         /// What is allowed.
         allowed: String,
     },
+    /// An output file exists and `--force` was not given: bad input, nothing is written.
+    #[error("{path}: already exists (use --force to replace it)")]
+    Exists {
+        /// The existing file.
+        path: String,
+    },
     /// The output could not be written.
     #[error("{path}: cannot write: {reason}")]
     Output {

@@ -306,9 +306,8 @@ pub fn write_outputs(
         targets.push((path.to_path_buf(), report.scenario_toml()));
     }
     if !force && let Some((existing, _)) = targets.iter().find(|(p, _)| p.exists()) {
-        return Err(FitError::Output {
+        return Err(FitError::Exists {
             path: existing.display().to_string(),
-            reason: "already exists (use --force to replace it)".into(),
         });
     }
     let mut staged = Vec::new();
