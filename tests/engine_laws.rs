@@ -399,3 +399,98 @@ fn risk_multipliers_and_severities_enter_as_specified() {
         assert_within(&format!("shortfall rate, rho = {rho}"), rate, se, reference, 0.003);
     }
 }
+
+/// `dependence_ratio` (shortfall_free_group_rate / iid_shortfall_free) and its delta-method standard
+/// error over replications: log ratio = ln(F/G) - k ln(1 - S/L), linearised per replication.
+fn dependence_ratio_and_se(results: &loancycle::run::RunResults, arm: usize, k: u32) -> (f64, f64) {
+    let reps = &results.arms[arm].replications;
+    let n = reps.len() as f64;
+    let sum = |f: fn(&loancycle::stats::ReplicationTally) -> u64| reps.iter().map(|r| f(r) as f64).sum::<f64>();
+    let (free, groups) = (sum(|r| r.shortfall_free_groups), sum(|r| r.group_cycles));
+    let (short, loans) = (sum(|r| r.member_shortfalls), sum(|r| r.member_loans));
+    let (a, q) = (free / groups, short / loans);
+    let ratio = a / (1.0 - q).powi(k as i32);
+    let (g_mean, l_mean) = (groups / n, loans / n);
+    let z: Vec<f64> = reps
+        .iter()
+        .map(|r| {
+            (r.shortfall_free_groups as f64 - a * r.group_cycles as f64) / (g_mean * a)
+                + f64::from(k) * (r.member_shortfalls as f64 - q * r.member_loans as f64) / (l_mean * (1.0 - q))
+        })
+        .collect();
+    let mean = z.iter().sum::<f64>() / n;
+    let sd = (z.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / (n - 1.0)).sqrt();
+    (ratio, ratio * sd / n.sqrt())
+}
+
+/// Binomial law: with independent members, a group of k is shortfall-free with probability
+/// (1 - q)^k, so `dependence_ratio` is 1 within 4 SE, with no cover and with full cover alike (cover
+/// decides repayment, not shortfalls). With village correlation 0.3 (q = 0.1, k = 5) the one-factor
+/// law gives E[(1 - p(M))^5] / 0.9^5 = 0.65953 / 0.59049 = 1.117 (quadrature over the village
+/// factor): an effect of 0.117, which the test must see as more than 4 SE above 1 with an SE below
+/// 0.01, that is at least 11 SE (seed 29 gives 1.1167, SE 0.0012: about 97 SE above 1).
+#[test]
+fn dependence_ratio_is_one_for_independent_members_and_above_one_when_correlated() {
+    let k = 5;
+    let text = |correlation: f64| {
+        format!(
+            r#"
+            seed = 29
+            replications = 100
+            cycles = 20
+            [portfolio]
+            borrowers = 1000
+            villages = 50
+            [loan]
+            principal = 100
+            [borrowers]
+            income = 1.2
+            [[shock]]
+            name = "illness"
+            scope = "member"
+            probability = 0.1
+            village_correlation = {correlation:?}
+            [policy]
+            group_size = {k}
+            [sweep]
+            peer_cover = [0.0, 1.0]
+            "#
+        )
+    };
+    let independent = scenario(&text(0.0));
+    let results = simulate(&independent);
+    for arm in 0..2 {
+        let (ratio, se) = dependence_ratio_and_se(&results, arm, k);
+        let summary = arm_summary(&independent, &results, arm);
+        let reported = summary.dependence_ratio.expect("a ratio");
+        assert!(
+            (reported - ratio).abs() <= 1e-12 * ratio,
+            "arm {arm}: {reported} vs {ratio}"
+        );
+        assert_within(
+            &format!("dependence ratio, independent, arm {arm}"),
+            ratio,
+            se,
+            1.0,
+            0.01,
+        );
+    }
+    let correlated = scenario(&text(0.3));
+    let results = simulate(&correlated);
+    for arm in 0..2 {
+        let (ratio, se) = dependence_ratio_and_se(&results, arm, k);
+        println!("village correlation 0.3, arm {arm}: dependence ratio {ratio:.4} (SE {se:.4})");
+        assert!(se < 0.01, "arm {arm}: SE {se} too large to see the effect");
+        assert!(
+            ratio - 1.0 > 4.0 * se,
+            "arm {arm}: ratio {ratio} (SE {se}) not clearly above 1"
+        );
+        assert_within(
+            &format!("dependence ratio, correlated, arm {arm}"),
+            ratio,
+            se,
+            1.116_927_7,
+            0.01,
+        );
+    }
+}

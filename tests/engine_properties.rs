@@ -691,51 +691,78 @@ fn independent_members_follow_the_binomial_law() {
     }
 }
 
-fn open_fixture(name: &str) -> Scenario {
-    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
-        .join("tests/data/fuzz/open")
-        .join(name);
-    Scenario::load(&path).expect("the fixture validates").0
+/// The fuzz inputs whose amounts overflowed (principal 1e300 and 1e308, incomes up to 1e308): the
+/// validator now refuses them, naming the money bound.
+fn assert_overflowing_fixtures_refused(names: &[&str]) {
+    for name in names {
+        let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+            .join("tests/data/fuzz/refused")
+            .join(name);
+        let message = Scenario::load(&path)
+            .err()
+            .unwrap_or_else(|| panic!("{name}: accepted"))
+            .to_string();
+        assert!(
+            message.contains("it keeps every sum of money finite"),
+            "{name}: not refused by the money bound: {message}"
+        );
+    }
 }
+
+/// A scenario at the money bounds: principal 1e12, interest rate 1e3 and the given income, groups of
+/// `k`, peer cover 0, and `shocks` appended.
+fn at_the_money_bounds(income: &str, k: u32, shocks: &str) -> Scenario {
+    scenario(&format!(
+        "replications = 3\ncycles = 4\n[portfolio]\nborrowers = 40\n\
+         [loan]\nprincipal = 1e12\ninterest_rate = 1e3\n[borrowers]\nincome = {income}\n\
+         [policy]\ngroup_size = {k}\npeer_cover = 0\n{shocks}"
+    ))
+}
+
+const INCOMES_AT_THE_BOUND: [&str; 4] = [
+    "1e6",
+    "{ kind = \"uniform\", low = 1, high = 1e6 }",
+    "{ kind = \"lognormal\", mean = 1e6, cv = 100 }",
+    "{ kind = \"gamma\", mean = 1e6, cv = 100 }",
+];
 
 /// A group of members whose income is far above the amount due repays: nobody is short.
 /// Found by fuzzing: with an income or a principal near the largest float, a member's capacity
-/// (amount due x income) or the group's surplus overflows to infinity, `peer_cover` 0 times infinity is NaN, and the repayment test
-/// `shortfall <= cover x surplus` fails for a group with no shortfall at all.
+/// (amount due x income) or the group's surplus overflowed to infinity, `peer_cover` 0 times infinity
+/// was NaN, and the repayment test `shortfall <= cover x surplus` failed for a group with no
+/// shortfall at all. Validation now bounds principal, interest rate and income (bounds.rs), and at
+/// those bounds no group without a shortfall defaults.
 #[test]
-#[ignore = "open defect: capacity overflow makes groups with no shortfall default (tests/data/fuzz/open/)"]
 fn groups_without_shortfall_repay_even_at_extreme_amounts() {
-    for name in ["overflowing_capacity.toml", "overflowing_income.toml"] {
-        let s = open_fixture(name);
+    assert_overflowing_fixtures_refused(&["overflowing_capacity.toml", "overflowing_income.toml"]);
+    for (income, k) in [("1e6", 2), ("{ kind = \"uniform\", low = 1, high = 1e6 }", 1)] {
+        let s = at_the_money_bounds(income, k, "");
         let m = arm_summary(&s, &simulate(&s), 0);
-        println!(
-            "{name}: shortfall rate {:?}, group repayment {:?}",
-            m.member_shortfall_rate,
-            m.group_repayment.map(|g| g.rate)
-        );
-        assert_eq!(m.member_shortfall_rate, Some(0.0), "{name}");
+        assert_eq!(m.member_shortfall_rate, Some(0.0), "{income}");
         assert_eq!(
             m.group_repayment.map(|g| g.rate),
             Some(1.0),
-            "{name}: groups with no shortfall defaulted"
+            "{income}: groups with no shortfall defaulted"
         );
     }
 }
 
 /// Every rate of a scenario the validator accepts is a number in [0, 1].
 /// Found by fuzzing: with a principal near the largest float, the sums of amounts due, collected,
-/// disbursed and lost over a replication overflow to infinity (or k x the amount due does), and
-/// the value repayment rate, loss rate and net yield become inf / inf = NaN, printed as empty cells.
+/// disbursed and lost over a replication overflowed to infinity (or k x the amount due did), and
+/// the value repayment rate, loss rate and net yield became inf / inf = NaN. Those inputs are now
+/// refused; at the bounds, with shocks that make some groups default, every rate is finite.
 #[test]
-#[ignore = "open defect: money sums overflow at extreme principals and rates become NaN (tests/data/fuzz/open/)"]
 fn rates_stay_finite_at_extreme_principals() {
-    for name in [
+    assert_overflowing_fixtures_refused(&[
         "overflowing_capacity.toml",
         "overflowing_income.toml",
         "overflowing_group_due.toml",
         "overflowing_money_sums.toml",
-    ] {
-        let s = open_fixture(name);
+    ]);
+    let shock = "[[shock]]\nname = \"x\"\nscope = \"member\"\nprobability = 0.5\nseverity = 1\n";
+    for income in INCOMES_AT_THE_BOUND {
+        let s = at_the_money_bounds(income, 5, shock);
         let m = arm_summary(&s, &simulate(&s), 0);
         for (label, value) in [
             ("value_repayment_rate", m.value_repayment_rate),
@@ -743,12 +770,12 @@ fn rates_stay_finite_at_extreme_principals() {
         ] {
             assert!(
                 value.is_some_and(|x| (0.0..=1.0).contains(&x)),
-                "{name}: {label} = {value:?}"
+                "{income}: {label} = {value:?}"
             );
         }
         assert!(
             m.net_yield.is_some_and(f64::is_finite),
-            "{name}: net_yield = {:?}",
+            "{income}: net_yield = {:?}",
             m.net_yield
         );
     }

@@ -12,6 +12,10 @@ pub enum Bound {
     Positive,
     /// Finite and >= 0.
     NonNegative,
+    /// > 0 and <= the given maximum, which keeps every sum the engine forms finite (see `MAX_PRINCIPAL`).
+    PositiveAtMost(f64),
+    /// >= 0 and <= the given maximum (see `MAX_INTEREST_RATE`, `MAX_INCOME`).
+    NonNegativeAtMost(f64),
     /// In [0, 1], read as a probability.
     Probability,
     /// In [0, 1], read as a share.
@@ -33,6 +37,8 @@ impl Bound {
         match self {
             Bound::Positive => x.is_finite() && x > 0.0,
             Bound::NonNegative => x.is_finite() && x >= 0.0,
+            Bound::PositiveAtMost(max) => x > 0.0 && x <= max,
+            Bound::NonNegativeAtMost(max) => (0.0..=max).contains(&x),
             Bound::Probability | Bound::Share => (0.0..=1.0).contains(&x),
             Bound::ProbabilityBelowOne => (0.0..1.0).contains(&x),
             Bound::Count(min, max) => x.fract() == 0.0 && x >= f64::from(min) && x <= f64::from(max),
@@ -46,6 +52,8 @@ impl Bound {
         match self {
             Bound::Positive => "a finite number > 0".into(),
             Bound::NonNegative => "a finite number >= 0".into(),
+            Bound::PositiveAtMost(max) => format!("a number in (0, {max:e}]{}", why(max)),
+            Bound::NonNegativeAtMost(max) => format!("a number in [0, {max:e}]{}", why(max)),
             Bound::Probability => "a probability in [0, 1]".into(),
             Bound::Share => "a share in [0, 1]".into(),
             Bound::ProbabilityBelowOne => "a probability in [0, 1)".into(),
@@ -54,6 +62,31 @@ impl Bound {
             Bound::Seed => format!("an integer in [0, {}] (a TOML integer)", i64::MAX),
             Bound::Typed(allowed) => allowed.into(),
         }
+    }
+}
+
+/// The largest principal: far above any real loan (a trillion in any currency), and small enough
+/// that every sum of money over a run stays finite. The largest amount due is MAX_PRINCIPAL x (1 +
+/// MAX_INTEREST_RATE) ~ 1e15, the largest capacity that x an income draw (mean <= MAX_INCOME = 1e6,
+/// a draw at most ~1e12 x its mean at cv 100), ~1e33; summed over at most 1e7 borrowers x 2^24 cycles
+/// x 2^32 replications that is ~1e57, far below f64::MAX ~ 1.8e308.
+pub const MAX_PRINCIPAL: f64 = 1e12;
+/// The largest interest rate per cycle: 1000, that is 100,000% a cycle.
+pub const MAX_INTEREST_RATE: f64 = 1e3;
+/// The largest income ratio (income over the amount due; a fixed value, a uniform's high end, or a
+/// distribution's mean): a million times what the borrower owes.
+pub const MAX_INCOME: f64 = 1e6;
+
+/// Why a money bound is where it is, as messages say it.
+fn why(max: f64) -> &'static str {
+    if max == MAX_PRINCIPAL {
+        " (far above any real loan; it keeps every sum of money finite)"
+    } else if max == MAX_INCOME {
+        " (an income ratio; far above any real borrower's; it keeps every sum of money finite)"
+    } else if max == MAX_INTEREST_RATE {
+        " (a rate per cycle; far above any real lender's; it keeps every sum of money finite)"
+    } else {
+        ""
     }
 }
 
@@ -110,10 +143,10 @@ pub const FIELDS: &[Field] = &[
     line("warmup_cycles", Bound::Count(0, MAX_TOTAL_CYCLES), None),
     line("portfolio.borrowers", Bound::Count(1, MAX_BORROWERS), None),
     line("portfolio.villages", Bound::Count(1, MAX_BORROWERS), None),
-    line("loan.principal", Bound::Positive, Some(|r, _, v| put(&mut r.loan.principal, v))),
-    line("loan.interest_rate", Bound::NonNegative, Some(|r, _, v| put(&mut r.loan.interest_rate, v))),
+    line("loan.principal", Bound::PositiveAtMost(MAX_PRINCIPAL), Some(|r, _, v| put(&mut r.loan.principal, v))),
+    line("loan.interest_rate", Bound::NonNegativeAtMost(MAX_INTEREST_RATE), Some(|r, _, v| put(&mut r.loan.interest_rate, v))),
     line("loan.recovery_rate", Bound::Share, Some(|r, _, v| put(&mut r.loan.recovery_rate, v))),
-    plain("borrowers.income", Bound::NonNegative, |r, _, v| put(&mut r.borrowers.income, v)),
+    plain("borrowers.income", Bound::NonNegativeAtMost(MAX_INCOME), |r, _, v| put(&mut r.borrowers.income, v)),
     plain("borrowers.risk", Bound::NonNegative, |r, _, v| put(&mut r.borrowers.risk, v)),
     plain("shock.*.probability", Bound::Probability, |r, i, v| put(&mut r.shock[i].probability, v)),
     line("shock.*.village_correlation", Bound::NonNegative, Some(|r, i, v| put(&mut r.shock[i].village_correlation, v))),

@@ -582,7 +582,19 @@ pub fn parse(text: &str, origin: &str) -> Result<RawScenario, ScenarioError> {
         let inner = err.into_inner();
         let span = inner.span();
         let line = span.clone().map(|span| line_of(text, span.start));
-        let mut message = one_line(inner.message());
+        // A quoted key may hold control characters (`"a\nb"`): escape them in the path and in the
+        // message that quotes the key, so the message stays on one line and says what was written.
+        let mut raw_message = inner.message().to_owned();
+        if path.chars().any(char::is_control) {
+            for segment in path.split('.').filter(|s| s.chars().any(char::is_control)) {
+                raw_message = raw_message.replace(segment, &escape_controls(segment));
+            }
+            path = escape_controls(&path);
+        }
+        let mut message = one_line(&raw_message);
+        if message.is_empty() {
+            message = unexplained_syntax_error(text, span.clone().map_or(0, |s| s.start));
+        }
         // The TOML reader hands a date-time to serde as a table with a private key; say what it is.
         if span
             .and_then(|s| text.get(s))
@@ -601,6 +613,43 @@ pub fn parse(text: &str, origin: &str) -> Result<RawScenario, ScenarioError> {
             message,
         }
     })
+}
+
+/// Control characters written as Rust escapes (`\n`, `\u{7f}`), everything else as it is.
+pub fn escape_controls(text: &str) -> String {
+    text.chars()
+        .map(|c| {
+            if c.is_control() {
+                c.escape_debug().to_string()
+            } else {
+                c.to_string()
+            }
+        })
+        .collect()
+}
+
+/// What is wrong where the TOML reader gave no message: it does so for a control character other
+/// than tab (in a comment, say) and for a carriage return not followed by a line feed. Names the first
+/// such character on the line of `offset`, or says the line is not valid TOML.
+fn unexplained_syntax_error(text: &str, offset: usize) -> String {
+    let start = text[..offset.min(text.len())].rfind('\n').map_or(0, |i| i + 1);
+    let mut chars = text[start..].chars().peekable();
+    while let Some(c) = chars.next() {
+        match c {
+            '\n' => break,
+            '\r' if chars.peek() == Some(&'\n') => {}
+            '\r' => return "a carriage return not followed by a line feed (TOML ends lines with LF or CRLF)".into(),
+            '\t' => {}
+            c if c.is_control() => {
+                return format!(
+                    "the control character {} is not allowed (TOML allows only tab, in comments as elsewhere)",
+                    c.escape_unicode()
+                );
+            }
+            _ => {}
+        }
+    }
+    "this line is not valid TOML".into()
 }
 
 /// `line N, field PATH: ` with whichever parts are known.

@@ -418,21 +418,7 @@ impl Checker<'_> {
             loan.interest_rate.as_ref(),
             0.0,
         )?;
-        if !(principal_value * (1.0 + interest_rate)).is_finite() {
-            // Between two fields: the later one is named (the default rate 0 cannot overflow).
-            let rate = loan.interest_rate.as_ref().expect("a written rate overflowed");
-            let (field, w) = if rate.origin.position() > principal.origin.position() {
-                ("loan.interest_rate", rate)
-            } else {
-                ("loan.principal", principal)
-            };
-            return Err(self.invalid(
-                field,
-                Some(&w.origin),
-                self.written(w, || w.value.text()),
-                "a value that keeps the amount due, principal x (1 + interest_rate), finite",
-            ));
-        }
+        // The bounds of principal and rate keep the amount due, and every sum of it, finite.
         let recovery_rate = self.real_or(
             "loan.recovery_rate",
             "loan.recovery_rate",
@@ -441,6 +427,7 @@ impl Checker<'_> {
         )?;
 
         let income = self.distribution("borrowers.income", raw.borrowers.income.as_ref(), false)?;
+        self.income_within_bound(raw.borrowers.income.as_ref())?;
         let risk = self.distribution("borrowers.risk", raw.borrowers.risk.as_ref(), false)?;
 
         if raw.shock.len() > limits::MAX_SHOCKS {
@@ -831,6 +818,31 @@ impl Checker<'_> {
         built.map_err(|CurveError::BadParameter { name, value, allowed }| {
             self.invalid(format!("{field}.{name}"), o, value, allowed)
         })
+    }
+
+    /// An income ratio's fixed value, uniform high end or mean within `bounds::MAX_INCOME`, so that
+    /// capacities and surpluses stay finite.
+    fn income_within_bound(&self, raw: Option<&W<RawDist>>) -> Result<()> {
+        const FIELD: &str = "borrowers.income";
+        let Some(w) = raw else { return Ok(()) };
+        let bound = bounds::bound(FIELD);
+        let (path, v) = match &w.value {
+            RawDist::Number(v) => (FIELD.to_owned(), v),
+            RawDist::Table(DistTable::Fixed { value }) => (format!("{FIELD}.value"), value),
+            RawDist::Table(DistTable::Uniform { high, .. }) => (format!("{FIELD}.high"), high),
+            RawDist::Table(DistTable::Lognormal { mean, .. } | DistTable::Gamma { mean, .. }) => {
+                (format!("{FIELD}.mean"), mean)
+            }
+            RawDist::Table(DistTable::Beta { .. }) => return Ok(()),
+        };
+        if bound.admits(v.value) {
+            return Ok(());
+        }
+        let written = match &w.value {
+            RawDist::Number(_) => self.written(w, || v.text()),
+            RawDist::Table(_) => v.text(),
+        };
+        Err(self.invalid(path, Some(&w.origin), written, bound.text()))
     }
 
     /// A distribution; `severity` restricts it to kinds and values inside [0, 1].
