@@ -70,7 +70,17 @@ pub fn check_destination(path: &Path, force: bool) -> Result<(), LoanBookError> 
     if path.exists() && !force {
         return Err(bad("exists; use --force to replace it"));
     }
+    // An unwritable directory is found now, before any work, not after the simulation.
+    let probe = temporary_name(path, "probe");
+    File::create(&probe).map_err(|e| bad(&format!("its directory is not writable: {e}")))?;
+    let _ = std::fs::remove_file(&probe);
     Ok(())
+}
+
+/// A hidden name beside `path` for a file of this process (`.NAME.partial-PID` while staging).
+fn temporary_name(path: &Path, what: &str) -> PathBuf {
+    let name = path.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
+    parent_dir(path).join(format!(".{name}.{what}-{}", std::process::id()))
 }
 
 /// The directory a file path lives in (the working directory for a bare name).
@@ -146,11 +156,7 @@ fn write_error(path: &Path, e: &io::Error) -> LoanBookError {
 /// disk; [`StagedBook::commit`] puts it in place. The caller stages the book before writing its
 /// other results and commits it after them, so a run leaves all its files or none.
 pub fn stage(scenario: &Scenario, path: &Path, stop: &dyn Fn() -> bool) -> Result<StagedBook, LoanBookError> {
-    let name = path
-        .file_name()
-        .map(|n| n.to_string_lossy().into_owned())
-        .unwrap_or_default();
-    let temporary = parent_dir(path).join(format!(".{name}.partial-{}", std::process::id()));
+    let temporary = temporary_name(path, "partial");
     let mut staged = StagedBook {
         temporary,
         path: path.to_path_buf(),
