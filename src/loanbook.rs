@@ -79,7 +79,10 @@ pub fn check_destination(path: &Path, force: bool) -> Result<(), LoanBookError> 
 
 /// A hidden name beside `path` for a file of this process (`.NAME.partial-PID` while staging).
 fn temporary_name(path: &Path, what: &str) -> PathBuf {
-    let name = path.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_default();
     parent_dir(path).join(format!(".{name}.{what}-{}", std::process::id()))
 }
 
@@ -101,12 +104,7 @@ pub fn write_loan_book(scenario: &Scenario, out: &mut dyn Write, stop: &dyn Fn()
         if stop() {
             return Err(io::Error::new(io::ErrorKind::Interrupted, "stopped"));
         }
-        let mut sink = CsvSink {
-            out: &mut *out,
-            arm: arm + 1,
-            rows: 0,
-            error: None,
-        };
+        let mut sink = CsvSink::new(&mut *out, arm + 1);
         simulate_replication_with_book(scenario, arm, &mut sink);
         if let Some(e) = sink.error {
             return Err(e);
@@ -184,43 +182,82 @@ struct CsvSink<'w> {
     arm: usize,
     rows: u64,
     error: Option<io::Error>,
+    /// The amount due last seen and its text: most loans are paid in full, so most amounts are
+    /// written from this cache instead of being formatted again.
+    due: f64,
+    due_text: String,
+    /// The row being built, reused.
+    line: String,
+}
+
+impl<'w> CsvSink<'w> {
+    fn new(out: &'w mut dyn Write, arm: usize) -> Self {
+        CsvSink {
+            out,
+            arm,
+            rows: 0,
+            error: None,
+            due: f64::NAN,
+            due_text: String::new(),
+            line: String::with_capacity(128),
+        }
+    }
 }
 
 impl LoanBookSink for CsvSink<'_> {
     fn loan(&mut self, loan: &LoanRecord) {
+        use std::fmt::Write as _;
         if self.error.is_some() {
             return;
         }
-        let a = self.arm;
-        let v = loan.village + 1;
-        let written = writeln!(
-            self.out,
-            "{},a{a}-v{v},a{a}-v{v}-g{},a{a}-m{}-{},{},{},{}",
+        if loan.due != self.due {
+            self.due = loan.due;
+            self.due_text.clear();
+            push_amount(&mut self.due_text, loan.due);
+        }
+        let (a, v) = (self.arm, loan.village + 1);
+        let line = &mut self.line;
+        line.clear();
+        let _ = write!(
+            line,
+            "{},a{a}-v{v},a{a}-v{v}-g{},a{a}-m{}-{}",
             loan.cycle,
             loan.group + 1,
             loan.slot + 1,
-            loan.entrant + 1,
-            Amount(loan.due),
-            Amount(loan.paid),
-            Amount(loan.own_paid)
+            loan.entrant + 1
         );
-        match written {
+        for x in [loan.due, loan.paid, loan.own_paid] {
+            line.push(',');
+            if x == self.due {
+                line.push_str(&self.due_text);
+            } else {
+                push_amount(line, x);
+            }
+        }
+        line.push('\n');
+        match self.out.write_all(line.as_bytes()) {
             Ok(()) => self.rows += 1,
             Err(e) => self.error = Some(e),
         }
     }
 }
 
-/// An amount written to six decimals without trailing zeros (`108`, `64.8`, `37.123457`): far
-/// finer than the fit's rounding allowance of 0.005 per loan, so no outcome changes, and without
-/// the binary noise of a full-precision float (`108.00000000000001`).
-struct Amount(f64);
-
-impl std::fmt::Display for Amount {
-    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        let text = format!("{:.6}", self.0);
-        let text = text.trim_end_matches('0').trim_end_matches('.');
-        f.write_str(if text == "-0" { "0" } else { text })
+/// Appends an amount written to six decimals without trailing zeros (`108`, `64.8`, `37.123457`):
+/// far finer than the fit's rounding allowance of 0.005 per loan, so no outcome changes, and
+/// without the binary noise of a full-precision float (`108.00000000000001`).
+fn push_amount(text: &mut String, x: f64) {
+    use std::fmt::Write as _;
+    let start = text.len();
+    let _ = write!(text, "{x:.6}");
+    while text.ends_with('0') && text.len() > start + 1 && text[start..].contains('.') {
+        text.pop();
+    }
+    if text.ends_with('.') {
+        text.pop();
+    }
+    if &text[start..] == "-0" {
+        text.truncate(start);
+        text.push('0');
     }
 }
 
@@ -230,12 +267,18 @@ mod tests {
 
     #[test]
     fn amounts_are_short_and_exact_to_six_decimals() {
-        let show = |x: f64| Amount(x).to_string();
+        let show = |x: f64| {
+            let mut text = String::from("x");
+            push_amount(&mut text, x);
+            text[1..].to_string()
+        };
         assert_eq!(show(108.00000000000001), "108");
         assert_eq!(show(64.8), "64.8");
         assert_eq!(show(37.1234567), "37.123457");
         assert_eq!(show(0.0), "0");
         assert_eq!(show(1e-9), "0");
+        assert_eq!(show(100.0), "100");
+        assert_eq!(show(2.5e-7), "0");
     }
 
     #[test]

@@ -76,7 +76,11 @@ fn every_loan_is_booked_as_the_settlement_tallies_it() {
         assert!(loans.iter().all(|l| l.cycle > s.warmup_cycles()), "counted cycles only");
         let due: f64 = loans.iter().map(|l| l.due).sum();
         let paid: f64 = loans.iter().map(|l| l.paid).sum();
-        assert!((due - tally.due).abs() <= 1e-9 * tally.due, "arm {arm}: due {due} vs {}", tally.due);
+        assert!(
+            (due - tally.due).abs() <= 1e-9 * tally.due,
+            "arm {arm}: due {due} vs {}",
+            tally.due
+        );
         assert!(
             (paid - tally.collected).abs() <= 1e-9 * tally.due,
             "arm {arm}: the loans' payments {paid} must sum to the collections {}",
@@ -204,7 +208,10 @@ fn a_simulated_book_gives_back_its_curve_and_correlation() {
     let (se_p, se_rho) = (clustered.std_errors["p"].unwrap(), clustered.std_errors["rho"].unwrap());
     eprintln!("clustered p {p} (se {se_p}), rho {rho} (se {se_rho})");
     assert!((p - TRUE_P).abs() <= Z_95 * se_p, "p {p} +- {se_p} vs {TRUE_P}");
-    assert!((rho - TRUE_RHO).abs() <= Z_95 * se_rho, "rho {rho} +- {se_rho} vs {TRUE_RHO}");
+    assert!(
+        (rho - TRUE_RHO).abs() <= Z_95 * se_rho,
+        "rho {rho} +- {se_rho} vs {TRUE_RHO}"
+    );
     // Ignoring the correlation misstates phi: correlated failures bunch in the same village-cycles,
     // which leaves more groups with nobody failing than independence allows, so the independent fit
     // reads a smaller phi (a larger p) at every size.
@@ -212,7 +219,10 @@ fn a_simulated_book_gives_back_its_curve_and_correlation() {
     let (p_ind, se_ind) = (independent.params["p"], independent.std_errors["p"].unwrap());
     eprintln!("independent p {p_ind} (se {se_ind})");
     assert!(p_ind > p, "independent p {p_ind}");
-    assert!(p_ind - TRUE_P > Z_95 * se_ind, "the independent 95% interval should miss the truth: {p_ind} +- {se_ind}");
+    assert!(
+        p_ind - TRUE_P > Z_95 * se_ind,
+        "the independent 95% interval should miss the truth: {p_ind} +- {se_ind}"
+    );
     let power_bias: Vec<f64> = report
         .independent_bias
         .iter()
@@ -220,7 +230,10 @@ fn a_simulated_book_gives_back_its_curve_and_correlation() {
         .flat_map(|b| b.relative_by_size.values().copied())
         .collect();
     eprintln!("independent bias {power_bias:?}");
-    assert!(!power_bias.is_empty() && power_bias.iter().all(|&b| b < 0.0), "{power_bias:?}");
+    assert!(
+        !power_bias.is_empty() && power_bias.iter().all(|&b| b < 0.0),
+        "{power_bias:?}"
+    );
 }
 
 fn loancycle_in(dir: &Path, args: &[&str]) -> std::process::Output {
@@ -237,7 +250,12 @@ fn files(dir: &Path) -> BTreeMap<String, Vec<u8>> {
         .unwrap()
         .map(|e| e.unwrap().path())
         .filter(|p| p.is_file())
-        .map(|p| (p.file_name().unwrap().to_string_lossy().into_owned(), std::fs::read(&p).unwrap()))
+        .map(|p| {
+            (
+                p.file_name().unwrap().to_string_lossy().into_owned(),
+                std::fs::read(&p).unwrap(),
+            )
+        })
         .collect()
 }
 
@@ -260,13 +278,31 @@ fn writing_a_book_changes_no_other_output() {
     assert_eq!(plain.status.code(), Some(0), "{plain:?}");
     let with = loancycle_in(
         d,
-        &["run", "s.toml", "--out", "with", "--quiet", "--threads", "1", "--loan-book", "book.csv"],
+        &[
+            "run",
+            "s.toml",
+            "--out",
+            "with",
+            "--quiet",
+            "--threads",
+            "1",
+            "--loan-book",
+            "book.csv",
+        ],
     );
     assert_eq!(with.status.code(), Some(0), "{with:?}");
-    assert_eq!(files(&d.join("plain")), files(&d.join("with")), "results must be byte-identical");
+    assert_eq!(
+        files(&d.join("plain")),
+        files(&d.join("with")),
+        "results must be byte-identical"
+    );
     let book = std::fs::read_to_string(d.join("book.csv")).unwrap();
     let s = scenario(BOOKING);
-    assert_eq!(book, book_text(&s), "the command writes the library's book, for any thread count");
+    assert_eq!(
+        book,
+        book_text(&s),
+        "the command writes the library's book, for any thread count"
+    );
     // nothing but the results, the scenario and the book: no temporary file is left behind
     assert_eq!(names(d), ["book.csv", "plain", "s.toml", "with"]);
     assert!(!files(&d.join("plain")).is_empty());
@@ -296,7 +332,16 @@ fn a_bad_destination_is_refused_before_any_work() {
     assert_eq!(std::fs::read_to_string(d.join("old.csv")).unwrap(), "kept");
     let forced = loancycle_in(
         d,
-        &["run", "s.toml", "--out", "r", "--quiet", "--force", "--loan-book", "old.csv"],
+        &[
+            "run",
+            "s.toml",
+            "--out",
+            "r",
+            "--quiet",
+            "--force",
+            "--loan-book",
+            "old.csv",
+        ],
     );
     assert_eq!(forced.status.code(), Some(0), "{forced:?}");
     assert!(std::fs::read_to_string(d.join("old.csv")).unwrap().starts_with(HEADER));
