@@ -94,7 +94,7 @@ impl<'a> ArmReplication<'a> {
             scenario,
             arm,
             replication,
-            streams::replication_key(scenario.seed, replication),
+            streams::replication_key(scenario.seed(), replication),
         )
     }
 
@@ -337,7 +337,7 @@ mod tests {
         );
         let mut count = Count(0);
         let with_book = simulate_replication_with_book(&s, 0, &mut count);
-        let mut plain = ArmReplication::with_key(&s, &s.arms[0], 0, streams::loan_book_key(s.seed, 0));
+        let mut plain = ArmReplication::with_key(&s, &s.arms()[0], 0, streams::loan_book_key(s.seed(), 0));
         for cycle in 1..=s.total_cycles() {
             plain.run_cycle(cycle);
         }
