@@ -5,7 +5,8 @@
 //! streams), `stats` (mergeable per-replication tallies and interval estimates), `analytic` (closed
 //! forms of the independent-borrower and one-factor models), `maths` (the special functions the
 //! engine and the closed forms share), `output` (writers that turn finished
-//! results into bytes), `run` (orchestration across replications and threads).
+//! results into bytes), `run` (orchestration across replications and threads), `loanbook`
+//! (synthetic loan books for `fit`).
 //!
 //! ```
 //! use loancycle::scenario::Scenario;
@@ -41,6 +42,7 @@ pub mod demo;
 pub mod dist;
 pub mod engine;
 pub mod fit;
+pub mod loanbook;
 pub mod maths;
 pub mod output;
 pub mod report;

@@ -50,6 +50,10 @@ enum Command {
         /// Also write the board report (report.html and charts/) into the output directory.
         #[arg(long)]
         report: bool,
+        /// Also write a synthetic loan book (CSV in the format `fit` reads) from one simulation of
+        /// every arm; the other results do not change.
+        #[arg(long, value_name = "FILE")]
+        loan_book: Option<PathBuf>,
     },
     /// Write DIR/report.html and DIR/charts/*.svg from a finished run, without simulating again.
     Report {
@@ -343,6 +347,7 @@ fn execute(command: Command) -> Result<(), Failure> {
             force,
             max_memory,
             report: with_report,
+            loan_book,
         } => {
             // Only `run` catches signals: it has files to protect. The other commands write nothing
             // and keep the default action, so Ctrl-C ends them at once.
@@ -357,6 +362,9 @@ fn execute(command: Command) -> Result<(), Failure> {
             };
             run::check_memory(&scenario, &options, max_memory)
                 .map_err(|e| Failure::BadInput(format!("{origin}: {e}")))?;
+            if let Some(path) = &loan_book {
+                loancycle::loanbook::check_destination(path, force).map_err(|e| Failure::BadInput(e.to_string()))?;
+            }
             let created = output::prepare_destination(&out, force).map_err(|e| {
                 if e.is_bad_destination() {
                     Failure::BadInput(e.to_string())
@@ -392,8 +400,25 @@ fn execute(command: Command) -> Result<(), Failure> {
                 }
             };
             let seconds = started.elapsed().as_secs_f64();
+            // The book is staged before the results and put in place after them: all files or none.
+            let book = match loan_book
+                .as_deref()
+                .map(|p| loancycle::loanbook::stage(&scenario, p, &stopped))
+            {
+                None => None,
+                Some(Ok(staged)) => Some(staged),
+                Some(Err(loancycle::loanbook::LoanBookError::Interrupted)) => return Err(interrupted()),
+                Some(Err(e)) => {
+                    output::abandon_destination(&out, created);
+                    return Err(if e.is_bad_input() {
+                        Failure::BadInput(e.to_string())
+                    } else {
+                        Failure::Running(e.to_string())
+                    });
+                }
+            };
             let report = report::build(&scenario, &text, &origin, &results);
-            let paths = match output::write_all(&out, &report, force, &stopped) {
+            let mut paths = match output::write_all(&out, &report, force, &stopped) {
                 Ok(paths) => paths,
                 Err(output::OutputError::Interrupted) => return Err(interrupted()),
                 Err(e) => {
@@ -401,6 +426,9 @@ fn execute(command: Command) -> Result<(), Failure> {
                     return Err(Failure::Running(e.to_string()));
                 }
             };
+            if let Some(staged) = book {
+                paths.push(staged.commit().map_err(|e| Failure::Running(e.to_string()))?);
+            }
             if !quiet {
                 print!("{}", terminal::summary_table(&report));
                 for p in paths {

@@ -3,7 +3,8 @@
 //! Each model step has its own file: `pool` (member and pool state, step 1 entry), `formation`
 //! (step 2), `shocks` (step 3), `settlement` (steps 4 and 5, capacity and repayment, with the
 //! repayment rule the closed forms share), `exclusion` (steps 6 exclusion and 7 dropout). This file
-//! holds the replication's state and the cycle loop; `memory` estimates what a whole run holds. All randomness comes from `streams`, keyed by
+//! holds the replication's state and the cycle loop; `memory` estimates what a whole run holds;
+//! `book` is the hook that reports each loan when a synthetic loan book is asked for. All randomness comes from `streams`, keyed by
 //! entity and cycle, so the arms of one replication share their draws (common random numbers) and
 //! scheduling never changes a result.
 //!
@@ -11,6 +12,7 @@
 //! (index = start of the village + j / V), so that everything one village touches in a cycle is
 //! contiguous in memory; the scenario's slot numbers are used only to key random streams.
 
+pub mod book;
 mod exclusion;
 mod formation;
 pub mod memory;
@@ -21,6 +23,7 @@ pub mod streams;
 
 use crate::scenario::{Arm, Formation, Policy, Scenario};
 use crate::stats::{CycleRecord, ReplicationTally};
+use book::LoanBookSink;
 use formation::FormationScratch;
 use pool::{Groups, Layout, Pool};
 use shocks::ShockState;
@@ -31,6 +34,26 @@ use streams::DenseBlocks;
 /// The scenario is validated, so every index and probability used here is in range.
 pub fn simulate_replication(scenario: &Scenario, arm: usize, replication: u32) -> ReplicationTally {
     let mut sim = ArmReplication::new(scenario, &scenario.arms[arm], replication);
+    for cycle in 1..=scenario.total_cycles() {
+        sim.run_cycle(cycle);
+    }
+    sim.tally
+}
+
+/// Simulates arm `arm` once for a loan book, handing every loan of the counted cycles to `book`, and
+/// returns the tally of that simulation.
+///
+/// The replication is keyed by (seed, arm) through [`streams::loan_book_key`], not by a replication
+/// number: the arms' villages are then independent of each other (a book mixing arms must not
+/// repeat one village's shocks under several group sizes) and of every replication of the run.
+pub fn simulate_replication_with_book(
+    scenario: &Scenario,
+    arm: usize,
+    book: &mut dyn LoanBookSink,
+) -> ReplicationTally {
+    let key = streams::loan_book_key(scenario.seed(), arm as u32);
+    let mut sim = ArmReplication::with_key(scenario, &scenario.arms()[arm], 0, key);
+    sim.book = Some(book);
     for cycle in 1..=scenario.total_cycles() {
         sim.run_cycle(cycle);
     }
@@ -61,10 +84,22 @@ struct ArmReplication<'a> {
     /// Dense random blocks of the step at work (formation keys, shock uniforms, dropout).
     dense: DenseBlocks,
     tally: ReplicationTally,
+    /// Where each loan of a counted cycle goes, when a loan book is being written.
+    book: Option<&'a mut dyn LoanBookSink>,
 }
 
 impl<'a> ArmReplication<'a> {
     fn new(scenario: &'a Scenario, arm: &'a Arm, replication: u32) -> Self {
+        Self::with_key(
+            scenario,
+            arm,
+            replication,
+            streams::replication_key(scenario.seed(), replication),
+        )
+    }
+
+    /// A replication drawing from the streams of `key` (a replication's or a loan book's).
+    fn with_key(scenario: &'a Scenario, arm: &'a Arm, replication: u32, key: [u8; 32]) -> Self {
         let policy = &arm.policy;
         let layout = Layout::new(scenario.borrowers, scenario.villages, |v| scenario.village_size(v));
         let shocks = ShockState::new(arm);
@@ -73,7 +108,7 @@ impl<'a> ArmReplication<'a> {
             scenario,
             arm,
             policy,
-            key: streams::replication_key(scenario.seed, replication),
+            key,
             due: arm.amount_due(),
             pool: Pool::new(n, shocks.member_shocks.len()),
             layout,
@@ -85,6 +120,7 @@ impl<'a> ArmReplication<'a> {
             shocks,
             dense: DenseBlocks::default(),
             tally: ReplicationTally::new(replication, policy.group_size, scenario.cycles),
+            book: None,
         }
     }
 
@@ -103,6 +139,9 @@ impl<'a> ArmReplication<'a> {
             self.formation(v, cycle, counted, &mut record); // 2. formation
             self.shocks(v, cycle); // 3. shocks
             self.settlement(v, counted, &mut record); // 4. capacity, 5. repayment
+            if counted && self.book.is_some() {
+                self.record_loans(v, cycle);
+            }
             self.exclusion(v, cycle); // 6. exclusion
             self.dropout(v, cycle); // 7. dropout
         }
@@ -279,6 +318,34 @@ mod tests {
             repaid - free.rate > 10.0 * STANDARD_ERRORS * se,
             "cover must matter: {repaid}"
         );
+    }
+
+    /// Recording a loan book reads the state and changes nothing: the same key gives the same tally
+    /// with and without a sink, in a scenario where cover, exclusion and dropout all act.
+    #[test]
+    fn recording_a_loan_book_changes_no_draw() {
+        struct Count(u64);
+        impl LoanBookSink for Count {
+            fn loan(&mut self, _: &book::LoanRecord) {
+                self.0 += 1;
+            }
+        }
+        let s = scenario(
+            "[borrowers]\nincome = { kind = \"lognormal\", mean = 1.2, cv = 0.3 }\n\
+             [[shock]]\nname = \"illness\"\nscope = \"member\"\nprobability = 0.2\nvillage_correlation = 0.1\nseverity = 0.7\n\
+             [policy]\ngroup_size = 4\npeer_cover = 0.5\nexclusion_cycles = 1\n[pool]\ndropout = 0.1\n",
+        );
+        let mut count = Count(0);
+        let with_book = simulate_replication_with_book(&s, 0, &mut count);
+        let mut plain = ArmReplication::with_key(&s, &s.arms()[0], 0, streams::loan_book_key(s.seed(), 0));
+        for cycle in 1..=s.total_cycles() {
+            plain.run_cycle(cycle);
+        }
+        assert_eq!(with_book, plain.tally);
+        assert_eq!(count.0, with_book.member_loans);
+        assert!(with_book.groups_repaid < with_book.group_cycles && with_book.groups_rescued > 0);
+        // the book's key is not replication 0's: its draws differ
+        assert_ne!(with_book, simulate_replication(&s, 0, 0));
     }
 
     #[test]

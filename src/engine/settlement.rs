@@ -6,6 +6,8 @@
 //! closed form and the simulation can never disagree about what "repaid" means.
 
 use super::ArmReplication;
+use super::book::LoanRecord;
+use super::pool::Pool;
 use crate::scenario::Liability;
 use crate::stats::CycleRecord;
 
@@ -102,6 +104,13 @@ pub fn settle_individual(member: MemberPosition, principal: f64) -> Settlement {
     }
 }
 
+/// Capacity C = D w prod(1 - s) of the member at internal index `i`, owing `due`. One expression for
+/// the settlement and the loan book, so both judge the same capacity.
+#[inline(always)]
+fn capacity(pool: &Pool, i: usize, due: f64) -> f64 {
+    due * pool.income[i] * pool.multiplier[i]
+}
+
 impl ArmReplication<'_> {
     /// Steps 4 and 5: each member's capacity, each group's settlement, its losses and the tally.
     /// Records who fell short and which groups repaid, for the exclusion step.
@@ -123,8 +132,7 @@ impl ArmReplication<'_> {
             let mut n_short = 0u32;
             for &i in group {
                 let i = i as usize;
-                let capacity = d * self.pool.income[i] * self.pool.multiplier[i];
-                let position = member_position(capacity, d);
+                let position = member_position(capacity(&self.pool, i, d), d);
                 let short = position.shortfall > 0.0;
                 self.pool.short[i] = short;
                 n_short += u32::from(short);
@@ -175,6 +183,56 @@ impl ArmReplication<'_> {
                     record.groups_repaid += 1;
                 }
                 t.groups_rescued += u64::from(settlement.rescued);
+            }
+        }
+    }
+}
+
+impl ArmReplication<'_> {
+    /// Hands the loans of village `v`'s groups to the loan book, settled by the same rule as
+    /// [`settlement`](Self::settlement) (which has just run on the same capacities). Called only
+    /// when a book is being written, so the settlement's own loop carries no recording cost.
+    pub(super) fn record_loans(&mut self, v: usize, cycle: u32) {
+        let Some(book) = self.book.as_deref_mut() else {
+            return;
+        };
+        let d = self.due;
+        let principal = self.arm.principal();
+        let lambda = self.policy.peer_cover();
+        let joint = self.policy.liability() == Liability::Joint;
+        let (pool, layout) = (&self.pool, &self.layout);
+        for (number, group) in self.groups.iter_from(self.groups.village_first[v]).enumerate() {
+            let k = group.len() as f64;
+            let mut sums = GroupPosition::default();
+            for &i in group {
+                let position = member_position(capacity(pool, i as usize, d), d);
+                sums.shortfall += position.shortfall;
+                sums.surplus += position.surplus;
+                sums.paid_own += position.paid_own;
+            }
+            // Individual liability has no cover; a repaid joint group pays every loan in full; a
+            // defaulted one shares the peers' cover among the short members by their shortfalls.
+            let settlement = joint.then(|| settle_joint(sums, k * d, k * principal, lambda));
+            for &i in group {
+                let i = i as usize;
+                let position = member_position(capacity(pool, i, d), d);
+                let paid = match settlement {
+                    Some(s) if s.repaid => d,
+                    Some(_) if position.shortfall > 0.0 => {
+                        position.paid_own + lambda * sums.surplus * position.shortfall / sums.shortfall
+                    }
+                    _ => position.paid_own,
+                };
+                book.loan(&LoanRecord {
+                    cycle,
+                    village: v as u32,
+                    group: number as u32,
+                    slot: layout.slot_of(v, i),
+                    entrant: pool.entrants[i].wrapping_sub(1),
+                    due: d,
+                    paid: paid.min(d),
+                    own_paid: position.paid_own,
+                });
             }
         }
     }

@@ -61,6 +61,28 @@ pub fn replication_key(seed: u64, replication: u32) -> [u8; 32] {
     key
 }
 
+/// Domain tag of loan-book keys (bytes 8..16 of their master key), so that no loan-book key can
+/// equal a replication key.
+const LOAN_BOOK_TAG: [u8; 8] = *b"loanbook";
+
+/// The 256-bit key of the loan book's replication of arm `arm`: the first 32 bytes of ChaCha20
+/// keyed by the seed and a loan-book tag, on stream `arm`.
+///
+/// Why not [`replication_key`]: every arm of a replication shares its draws (common random
+/// numbers), so a book built from one replication of several arms would repeat the same villages'
+/// shocks under every arm. Keying by the arm makes each arm's villages independent of every other
+/// arm's and of the run's replications.
+pub fn loan_book_key(seed: u64, arm: u32) -> [u8; 32] {
+    let mut master = [0u8; 32];
+    master[..8].copy_from_slice(&seed.to_le_bytes());
+    master[8..16].copy_from_slice(&LOAN_BOOK_TAG);
+    let mut rng = ChaCha20Rng::from_seed(master);
+    rng.set_stream(u64::from(arm));
+    let mut key = [0u8; 32];
+    rng.fill_bytes(&mut key);
+    key
+}
+
 /// Stream identifier of a per-cycle stream: purpose (4 bits), shock (8), cycle (24), village (28).
 /// Scenario validation bounds shocks, cycles and villages so the fields never overflow.
 pub fn cycle_stream_id(purpose: Purpose, cycle: u32, shock: usize, village: u32) -> u64 {
@@ -225,6 +247,16 @@ mod tests {
         let xb: Vec<u32> = (0..4).map(|_| b.next_u32()).collect();
         assert_ne!(xa[2..], xb[2..]);
         assert_ne!(xa[..2], xb[..2]);
+    }
+
+    #[test]
+    fn loan_book_keys_differ_between_arms_and_from_replication_keys() {
+        let book: Vec<[u8; 32]> = (0..4).map(|a| loan_book_key(9, a)).collect();
+        for (a, key) in book.iter().enumerate() {
+            assert!(book[a + 1..].iter().all(|other| other != key));
+            assert!((0..8).all(|r| replication_key(9, r) != *key));
+        }
+        assert_ne!(loan_book_key(9, 0), loan_book_key(10, 0));
     }
 
     #[test]
