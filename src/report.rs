@@ -5,6 +5,7 @@ use crate::companion::SimulationCompanion;
 use crate::run::RunResults;
 use crate::scenario::{Arm, Scenario};
 use crate::stats::compare::{self, ComparedArm};
+use crate::stats::replications::ReplicationFigures;
 use crate::stats::summary::{self, ArmSummary, CyclePoint};
 use serde::Serialize;
 use sha2::{Digest, Sha256};
@@ -28,6 +29,9 @@ pub struct ArmReport {
     pub closed_form_optimum: Option<f64>,
     /// Means over replications per counted cycle.
     pub time_series: Vec<CyclePoint>,
+    /// Per-replication figures, in replication order (replications.csv, not summary.json).
+    #[serde(skip)]
+    pub replications: Vec<ReplicationFigures>,
 }
 
 /// Everything a run reports.
@@ -100,6 +104,7 @@ pub fn build(scenario: &Scenario, scenario_text: &str, origin: &str, results: &R
             analytic_group_repayment: analytic.group_repayment(i),
             closed_form_optimum: analytic.closed_form_optimum(),
             time_series: summary::time_series(tally, scenario),
+            replications: tally.replications.iter().map(ReplicationFigures::from_tally).collect(),
         })
         .collect();
     RunReport {

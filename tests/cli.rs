@@ -17,7 +17,7 @@ const BAD_INPUT: i32 = 2;
 
 /// The columns of summary.csv as users' scripts know them, spelled out here rather than taken from
 /// the writer, so a renamed or reordered column fails this file.
-const SUMMARY_COLUMNS: [&str; 42] = [
+const SUMMARY_COLUMNS: [&str; 45] = [
     "arm",
     "group_size",
     "liability",
@@ -54,6 +54,9 @@ const SUMMARY_COLUMNS: [&str; 42] = [
     "loss_es99",
     "loss_cycle_p99",
     "loss_cycle_p999",
+    "worst_cycle_loss_p50",
+    "worst_cycle_loss_p95",
+    "worst_cycle_loss_p99",
     "analytic_group_repayment",
     "dependence_ratio",
     "shortfall_icc",
@@ -62,7 +65,13 @@ const SUMMARY_COLUMNS: [&str; 42] = [
     "loss_rate_se",
 ];
 
-const OUTPUTS: [&str; 4] = ["differences.csv", "summary.csv", "summary.json", "timeseries.csv"];
+const OUTPUTS: [&str; 5] = [
+    "differences.csv",
+    "replications.csv",
+    "summary.csv",
+    "summary.json",
+    "timeseries.csv",
+];
 
 const TIMESERIES_HEADER: [&str; 6] = [
     "arm",
@@ -178,7 +187,7 @@ fn dir_contents(dir: &Path) -> BTreeMap<String, Vec<u8>> {
         .collect()
 }
 
-/// Asserts the directory holds exactly the four outputs (no temporary or other stray files).
+/// Asserts the directory holds exactly the run's outputs (no temporary or other stray files).
 fn assert_only_outputs(dir: &Path) -> BTreeMap<String, Vec<u8>> {
     let contents = dir_contents(dir);
     let names: Vec<&str> = contents.keys().map(String::as_str).collect();

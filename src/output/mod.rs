@@ -10,7 +10,13 @@ use crate::report::RunReport;
 use std::path::{Path, PathBuf};
 
 /// Files a run writes into its output directory.
-pub const OUTPUT_FILES: [&str; 4] = ["summary.csv", "timeseries.csv", "differences.csv", "summary.json"];
+pub const OUTPUT_FILES: [&str; 5] = [
+    "summary.csv",
+    "timeseries.csv",
+    "differences.csv",
+    "replications.csv",
+    "summary.json",
+];
 
 /// Why outputs could not be written.
 #[derive(Debug, thiserror::Error)]
@@ -125,7 +131,7 @@ pub fn abandon_destination(dir: &Path, created: bool) {
     }
 }
 
-/// Writes summary.csv, timeseries.csv, differences.csv and summary.json into `dir` (created if
+/// Writes summary.csv, timeseries.csv, differences.csv, replications.csv and summary.json into `dir` (created if
 /// missing). `stop` is asked once every file is staged and before the first is put in place: when
 /// it returns true the staged files are removed and no result changes.
 pub fn write_all(
@@ -140,6 +146,7 @@ pub fn write_all(
         ("summary.csv", tables::summary_csv(report)),
         ("timeseries.csv", tables::timeseries_csv(report)),
         ("differences.csv", tables::differences_csv(report)),
+        ("replications.csv", tables::replications_csv(report)),
         ("summary.json", tables::summary_json(report)),
     ];
     // All temporary files first; only when every one is complete are they renamed into place.

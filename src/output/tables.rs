@@ -122,6 +122,9 @@ pub struct SummaryRow<'a> {
     loss_es99: Cell,
     loss_cycle_p99: Cell,
     loss_cycle_p999: Cell,
+    worst_cycle_loss_p50: Cell,
+    worst_cycle_loss_p95: Cell,
+    worst_cycle_loss_p99: Cell,
     analytic_group_repayment: Cell,
     dependence_ratio: Cell,
     shortfall_icc: Cell,
@@ -175,6 +178,9 @@ impl<'a> SummaryRow<'a> {
             loss_es99: Cell(s.loss_es99),
             loss_cycle_p99: Cell(s.loss_cycle_p99),
             loss_cycle_p999: Cell(s.loss_cycle_p999),
+            worst_cycle_loss_p50: Cell(s.worst_cycle_loss_p50),
+            worst_cycle_loss_p95: Cell(s.worst_cycle_loss_p95),
+            worst_cycle_loss_p99: Cell(s.worst_cycle_loss_p99),
             analytic_group_repayment: Cell(a.analytic_group_repayment),
             dependence_ratio: Cell(s.dependence_ratio),
             shortfall_icc: Cell(s.shortfall_icc),
@@ -185,9 +191,105 @@ impl<'a> SummaryRow<'a> {
     }
 }
 
-/// summary.csv: one row per arm.
+/// The header and records of serialised rows, so columns can be added beside a row struct's own.
+fn records<R: Serialize + Default>(rows: impl IntoIterator<Item = R>) -> (csv::StringRecord, Vec<csv::StringRecord>) {
+    let bytes = csv_bytes(rows);
+    let mut reader = csv::Reader::from_reader(bytes.as_slice());
+    let header = reader.headers().expect("in-memory csv").clone();
+    let rows = reader.records().map(|r| r.expect("in-memory csv")).collect();
+    (header, rows)
+}
+
+/// summary.csv: one row per arm. Each swept path that is not already a column (a `[policy]` field
+/// has its own) gets a column named by the path, after the policy columns, holding the arm's value
+/// as its label shows it.
 pub fn summary_csv(report: &RunReport) -> Vec<u8> {
-    csv_bytes(report.arms.iter().map(SummaryRow::new))
+    let (header, rows) = records(report.arms.iter().map(SummaryRow::new));
+    let extra: Vec<&String> = report
+        .scenario
+        .swept_paths()
+        .iter()
+        .filter(|p| !header.iter().any(|h| h == p.as_str()))
+        .collect();
+    let at = header.iter().position(|h| h == "matching").map_or(header.len(), |i| i + 1);
+    let splice = |record: &csv::StringRecord, added: Vec<&str>| {
+        let mut out = csv::StringRecord::new();
+        record.iter().take(at).for_each(|f| out.push_field(f));
+        added.into_iter().for_each(|f| out.push_field(f));
+        record.iter().skip(at).for_each(|f| out.push_field(f));
+        out
+    };
+    let mut w = csv::Writer::from_writer(Vec::new());
+    w.write_record(&splice(&header, extra.iter().map(|p| p.as_str()).collect()))
+        .expect("in-memory csv");
+    for (a, record) in report.arms.iter().zip(&rows) {
+        let values = extra
+            .iter()
+            .map(|p| {
+                a.arm
+                    .swept()
+                    .iter()
+                    .find(|v| &v.path == *p)
+                    .map_or("", |v| v.value.as_str())
+            })
+            .collect();
+        w.write_record(&splice(record, values)).expect("in-memory csv");
+    }
+    w.into_inner().expect("in-memory csv")
+}
+
+/// One row of replications.csv: a replication's rates and the numerators and denominators behind
+/// them.
+#[derive(Debug, Default, Serialize)]
+struct ReplicationRow<'a> {
+    arm: &'a str,
+    replication: u32,
+    group_repayment_rate: Cell,
+    groups_repaid: u64,
+    group_cycles: u64,
+    loss_rate: Cell,
+    loss: Cell,
+    disbursed: Cell,
+    net_yield: Cell,
+    collected: Cell,
+    recovered: Cell,
+    served_share: Cell,
+    excluded_share: Cell,
+    served_slot_cycles: u64,
+    excluded_slot_cycles: u64,
+    slot_cycles: u64,
+    member_default_rate: Cell,
+    member_defaults: u64,
+    member_loans: u64,
+    worst_cycle_loss: Cell,
+}
+
+/// replications.csv: one row per arm and replication, in arm order then replication order.
+pub fn replications_csv(report: &RunReport) -> Vec<u8> {
+    csv_bytes(report.arms.iter().flat_map(|a| {
+        a.replications.iter().map(move |r| ReplicationRow {
+            arm: &a.arm.label,
+            replication: r.replication,
+            group_repayment_rate: Cell(r.group_repayment_rate()),
+            groups_repaid: r.groups_repaid,
+            group_cycles: r.group_cycles,
+            loss_rate: Cell(r.loss_rate()),
+            loss: Cell(Some(r.loss)),
+            disbursed: Cell(Some(r.disbursed)),
+            net_yield: Cell(r.net_yield()),
+            collected: Cell(Some(r.collected)),
+            recovered: Cell(Some(r.recovered)),
+            served_share: Cell(r.served_share()),
+            excluded_share: Cell(r.excluded_share()),
+            served_slot_cycles: r.served_slot_cycles,
+            excluded_slot_cycles: r.excluded_slot_cycles,
+            slot_cycles: r.slot_cycles,
+            member_default_rate: Cell(r.member_default_rate()),
+            member_defaults: r.member_defaults,
+            member_loans: r.member_loans,
+            worst_cycle_loss: Cell(r.worst_cycle_loss),
+        })
+    }))
 }
 
 /// One row of timeseries.csv.

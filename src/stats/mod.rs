@@ -8,6 +8,7 @@
 
 pub mod compare;
 pub mod estimate;
+pub mod replications;
 pub mod summary;
 pub mod tally;
 pub mod tolerance;
