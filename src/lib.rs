@@ -47,6 +47,7 @@ pub mod report;
 pub mod run;
 pub mod scenario;
 pub mod stats;
+pub mod stored;
 
 /// The caution every report carries: outputs are model estimates for planning.
 pub const CAUTION: &str = "Model estimates for planning only: lending decisions affect vulnerable borrowers, and local \

@@ -50,6 +50,18 @@ enum Command {
         /// Also write the board report (report.html and charts/) into the output directory.
         #[arg(long)]
         report: bool,
+        /// The arm differences.csv compares against: a label or a number from 1, as `check` lists them.
+        #[arg(long, value_name = "ARM")]
+        baseline: Option<String>,
+    },
+    /// Redo comparisons from a finished run's files (summary.json, replications.csv), without
+    /// simulating again.
+    Compare {
+        /// The run's output directory.
+        dir: PathBuf,
+        /// Rewrite DIR/differences.csv against this arm: a label or a number from 1, as `check` lists them.
+        #[arg(long, value_name = "ARM")]
+        baseline: Option<String>,
     },
     /// Write DIR/report.html and DIR/charts/*.svg from a finished run, without simulating again.
     Report {
@@ -271,6 +283,24 @@ fn board_report(dir: &std::path::Path, quiet: bool) -> Result<(), Failure> {
     Ok(())
 }
 
+/// `compare`: reads the run's own files and redoes the comparisons asked for.
+fn compare_command(dir: &std::path::Path, baseline: Option<&str>) -> Result<(), Failure> {
+    use loancycle::stats::compare;
+    let stored = loancycle::stored::StoredRun::read(dir).map_err(|e| Failure::BadInput(e.to_string()))?;
+    let Some(given) = baseline else {
+        return Err(Failure::BadInput(
+            "compare: nothing asked; give --baseline ARM".to_string(),
+        ));
+    };
+    let index =
+        compare::resolve_arm(&stored.labels(), given).map_err(|e| Failure::BadInput(format!("--baseline: {e}")))?;
+    let rows = compare::differences(&stored.compared(), index);
+    let path = output::replace_file(dir, "differences.csv", &output::tables::difference_rows_csv(&rows))
+        .map_err(|e| Failure::Running(e.to_string()))?;
+    println!("wrote {}", path.display());
+    Ok(())
+}
+
 fn main() -> ExitCode {
     let cli = Cli::parse();
     match execute(cli.command) {
@@ -324,6 +354,7 @@ fn execute(command: Command) -> Result<(), Failure> {
             Ok(())
         }
         Command::Report { dir } => board_report(&dir, false),
+        Command::Compare { dir, baseline } => compare_command(&dir, baseline.as_deref()),
         Command::DemoScenario => {
             print!("{}", demo::BASELINE);
             Ok(())
@@ -343,12 +374,19 @@ fn execute(command: Command) -> Result<(), Failure> {
             force,
             max_memory,
             report: with_report,
+            baseline,
         } => {
             // Only `run` catches signals: it has files to protect. The other commands write nothing
             // and keep the default action, so Ctrl-C ends them at once.
             let stop = install_stop_signals();
             let overrides = Overrides { replications, seed };
             let (scenario, text, origin) = load_with(file.as_ref(), &overrides)?;
+            let labels: Vec<&str> = scenario.arms().iter().map(|a| a.label()).collect();
+            let baseline = match &baseline {
+                Some(given) => loancycle::stats::compare::resolve_arm(&labels, given)
+                    .map_err(|e| Failure::BadInput(format!("--baseline: {e}")))?,
+                None => 0,
+            };
             if file.is_none() && !quiet {
                 eprintln!("no scenario file given: running the built-in baseline demo, {origin}");
             }
@@ -392,7 +430,7 @@ fn execute(command: Command) -> Result<(), Failure> {
                 }
             };
             let seconds = started.elapsed().as_secs_f64();
-            let report = report::build(&scenario, &text, &origin, &results);
+            let report = report::build_with_baseline(&scenario, &text, &origin, &results, baseline);
             let paths = match output::write_all(&out, &report, force, &stopped) {
                 Ok(paths) => paths,
                 Err(output::OutputError::Interrupted) => return Err(interrupted()),

@@ -53,7 +53,9 @@ pub struct RunReport {
     pub analytic_out_of_class: Option<String>,
     /// The best arm, when there are at least two arms and one of them served a group.
     pub best: Option<BestArm>,
-    /// Every other arm against the first, paired by replication (common random numbers make
+    /// The arm the differences are taken against (the first unless `--baseline` names another).
+    pub baseline: Option<String>,
+    /// Every other arm against the baseline, paired by replication (common random numbers make
     /// these intervals much narrower than the difference of two separate intervals).
     pub differences: Vec<ArmDifference>,
     /// Self-check findings and other notes the user should see.
@@ -70,8 +72,20 @@ pub fn sha256_hex(text: &str) -> String {
         .collect()
 }
 
-/// Assembles the report of a finished run.
+/// Assembles the report of a finished run, with differences against the first arm.
 pub fn build(scenario: &Scenario, scenario_text: &str, origin: &str, results: &RunResults) -> RunReport {
+    build_with_baseline(scenario, scenario_text, origin, results, 0)
+}
+
+/// Assembles the report of a finished run, with differences against arm `baseline` (0-based; an
+/// index past the last arm gives no differences).
+pub fn build_with_baseline(
+    scenario: &Scenario,
+    scenario_text: &str,
+    origin: &str,
+    results: &RunResults,
+    baseline: usize,
+) -> RunReport {
     let analytic = SimulationCompanion::new(scenario);
     let summaries: Vec<ArmSummary> = scenario
         .arms
@@ -91,7 +105,7 @@ pub fn build(scenario: &Scenario, scenario_text: &str, origin: &str, results: &R
         })
         .collect();
     let best = compare::best_arm(&compared);
-    let differences = compare::differences(&compared, 0);
+    let differences = compare::differences(&compared, baseline);
     let arms: Vec<ArmReport> = scenario
         .arms
         .iter()
@@ -116,6 +130,7 @@ pub fn build(scenario: &Scenario, scenario_text: &str, origin: &str, results: &R
         arms,
         analytic_out_of_class: analytic.out_of_class().map(str::to_string),
         best,
+        baseline: scenario.arms().get(baseline).map(|a| a.label().to_string()),
         differences,
         warnings,
         caution: CAUTION.to_string(),

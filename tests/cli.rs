@@ -899,7 +899,7 @@ fn a_single_arm_run_names_no_best_arm() {
     );
     assert_eq!(
         read_text(&dir.join("differences.csv")),
-        "arm,reference_arm,metric,difference,se,ci_low,ci_high\n"
+        "arm,baseline,metric,difference,se,ci_low,ci_high,significant,se_ratio\n"
     );
 }
 

@@ -133,3 +133,113 @@ fn pooled_figures_recomputed_from_replications_equal_the_summary() {
     let sizes: Vec<&str> = summary.iter().map(|r| r["group_size"].as_str()).collect();
     assert_eq!(sizes, ["3", "3", "5", "5"]);
 }
+
+/// An invented exclusion comparison, "Quillfield Growers' Fund": how long a defaulting group sits
+/// out. Every arm sees the same shocks (common random numbers).
+const EXCLUSION: &str = r#"
+name = "Quillfield Growers' Fund: exclusion test"
+seed = 9090
+replications = 40
+cycles = 10
+warmup_cycles = 4
+[portfolio]
+borrowers = 400
+villages = 8
+[loan]
+principal = 100.0
+interest_rate = 0.06
+[borrowers]
+income = { kind = "lognormal", mean = 1.3, cv = 0.15 }
+[[shock]]
+name = "illness"
+scope = "member"
+probability = 0.06
+village_correlation = 0.1
+severity = { kind = "uniform", low = 0.4, high = 0.9 }
+[[shock]]
+name = "flood"
+scope = "village"
+probability = 0.05
+reach = 0.6
+severity = { kind = "beta", mean = 0.5, sd = 0.2 }
+[policy]
+group_size = 5
+peer_cover = 0.4
+[sweep]
+exclusion_cycles = [0, 1, 3]
+"#;
+
+#[test]
+fn common_random_numbers_narrow_the_exclusion_comparison() {
+    let tmp = tempfile::tempdir().unwrap();
+    let out = run_scenario(tmp.path(), EXCLUSION, &[]);
+    let rows = read_csv(&out.join("differences.csv"));
+    let repayment: Vec<_> = rows.iter().filter(|r| r["metric"] == "group_repayment_rate").collect();
+    assert_eq!(repayment.len(), 2);
+    for r in repayment {
+        assert_eq!(r["baseline"], "exclusion_cycles=0");
+        // se_ratio is the paired standard error over sqrt(se_a^2 + se_b^2), both recomputed here from
+        // replications.csv (delta-method ratio estimator, Cochran, Sampling Techniques, ch. 6).
+        let ratio = num(r, "se_ratio");
+        let paired = num(r, "se");
+        let own = |arm: &str| own_se(&out, arm);
+        let unpaired = (own(&r["arm"]).powi(2) + own("exclusion_cycles=0").powi(2)).sqrt();
+        assert!((ratio - paired / unpaired).abs() <= 1e-12 * ratio.max(1.0), "{ratio} vs {}", paired / unpaired);
+        // Both arms see the same village floods, which move every replication's repayment together;
+        // pairing removes that shared part, so the paired error is well under the unpaired one (here
+        // about 0.3 and 0.5; independent arms would give about 1).
+        assert!(ratio < 0.6, "{}: se_ratio {ratio}", r["arm"]);
+        let significant = r["significant"] == "true";
+        assert_eq!(significant, num(r, "ci_low") > 0.0 || num(r, "ci_high") < 0.0);
+    }
+}
+
+/// The standard error of one arm's pooled group repayment, from replications.csv.
+fn own_se(out: &Path, arm: &str) -> f64 {
+    let reps = read_csv(&out.join("replications.csv"));
+    let pairs: Vec<(f64, f64)> = reps
+        .iter()
+        .filter(|r| r["arm"] == arm)
+        .map(|r| (num(r, "groups_repaid"), num(r, "group_cycles")))
+        .collect();
+    let n = pairs.len() as f64;
+    let rate = pairs.iter().map(|p| p.0).sum::<f64>() / pairs.iter().map(|p| p.1).sum::<f64>();
+    let ybar = pairs.iter().map(|p| p.1).sum::<f64>() / n;
+    let ss: f64 = pairs.iter().map(|&(x, y)| (x - rate * y).powi(2)).sum();
+    (ss / (n * (n - 1.0))).sqrt() / ybar
+}
+
+#[test]
+fn compare_against_another_baseline_needs_no_rerun_and_matches_the_run() {
+    let tmp = tempfile::tempdir().unwrap();
+    let again = tmp.path().join("again");
+    std::fs::create_dir(&again).unwrap();
+    let out = run_scenario(tmp.path(), EXCLUSION, &[]);
+    let direct = run_scenario(&again, EXCLUSION, &["--baseline", "exclusion_cycles=3"]);
+    let first = std::fs::read(out.join("differences.csv")).unwrap();
+    // By number, as `check` lists the arms: the third arm is exclusion_cycles=3.
+    let o = loancycle(&["compare", out.to_str().unwrap(), "--baseline", "3"]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let rewritten = std::fs::read(out.join("differences.csv")).unwrap();
+    assert_ne!(first, rewritten);
+    assert_eq!(rewritten, std::fs::read(direct.join("differences.csv")).unwrap());
+    let rows = read_csv(&out.join("differences.csv"));
+    assert!(rows.iter().all(|r| r["baseline"] == "exclusion_cycles=3"));
+}
+
+#[test]
+fn an_unknown_baseline_is_refused_in_one_line() {
+    let tmp = tempfile::tempdir().unwrap();
+    let out = run_scenario(tmp.path(), EXCLUSION, &[]);
+    let before = std::fs::read(out.join("differences.csv")).unwrap();
+    for given in ["0", "4", "exclusion_cycles=9"] {
+        let o = loancycle(&["compare", out.to_str().unwrap(), "--baseline", given]);
+        assert_eq!(o.status.code(), Some(2));
+        let err = String::from_utf8_lossy(&o.stderr);
+        assert_eq!(err.lines().count(), 1, "{err}");
+        assert!(err.contains("--baseline") && err.contains(given) && err.contains("from 1 to 3"), "{err}");
+    }
+    assert_eq!(std::fs::read(out.join("differences.csv")).unwrap(), before);
+    let o = loancycle(&["compare", tmp.path().join("nowhere").to_str().unwrap(), "--baseline", "1"]);
+    assert_eq!(o.status.code(), Some(2));
+}

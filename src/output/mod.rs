@@ -184,6 +184,22 @@ pub fn write_all(
     Ok(written)
 }
 
+/// Replaces DIR/NAME with `bytes`: written under a temporary name, then renamed, so the file is
+/// either the old one or the whole new one.
+pub fn replace_file(dir: &Path, name: &str, bytes: &[u8]) -> Result<PathBuf, OutputError> {
+    let tmp = dir.join(format!(".{name}.partial-{}", std::process::id()));
+    let final_path = dir.join(name);
+    if let Err(e) = std::fs::write(&tmp, bytes) {
+        let _ = std::fs::remove_file(&tmp);
+        return Err(io_error(&tmp, e));
+    }
+    std::fs::rename(&tmp, &final_path).map_err(|e| {
+        let _ = std::fs::remove_file(&tmp);
+        io_error(&final_path, e)
+    })?;
+    Ok(final_path)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -321,24 +321,37 @@ pub fn timeseries_csv(report: &RunReport) -> Vec<u8> {
 #[derive(Debug, Default, Serialize)]
 struct DifferenceRow<'a> {
     arm: &'a str,
-    reference_arm: &'a str,
+    baseline: &'a str,
     metric: &'a str,
     difference: Cell,
     se: Cell,
     ci_low: Cell,
     ci_high: Cell,
+    significant: &'static str,
+    se_ratio: Cell,
 }
 
-/// differences.csv: every arm against the first, per figure, paired by replication.
+/// differences.csv: every arm against the run's baseline, per figure, paired by replication.
 pub fn differences_csv(report: &RunReport) -> Vec<u8> {
-    csv_bytes(report.differences.iter().map(|d| DifferenceRow {
+    difference_rows_csv(&report.differences)
+}
+
+/// differences.csv from a list of differences (what `compare --baseline` rewrites).
+pub fn difference_rows_csv(differences: &[crate::stats::compare::ArmDifference]) -> Vec<u8> {
+    csv_bytes(differences.iter().map(|d| DifferenceRow {
         arm: &d.arm,
-        reference_arm: &d.reference,
+        baseline: &d.baseline,
         metric: d.metric,
         difference: Cell(Some(d.difference)),
         se: Cell(d.standard_error),
         ci_low: Cell(d.ci_low),
         ci_high: Cell(d.ci_high),
+        significant: match d.significant {
+            Some(true) => "true",
+            Some(false) => "false",
+            None => "",
+        },
+        se_ratio: Cell(d.se_ratio),
     }))
 }
 

@@ -78,18 +78,17 @@ pub fn summary_table(report: &RunReport) -> String {
         "no-short: groups with no member short; if indep.: (1 - member shortfall rate)^k, what \
          independent members would give; dep. ratio: no-short / if indep. (1 for independent members)"
     );
-    if report.arms.len() > 1 {
+    if let (true, Some(baseline)) = (report.arms.len() > 1, &report.baseline) {
         let _ = writeln!(
             out,
-            "differences from the first arm ({}), paired by replication, 95%:",
-            report.arms[0].arm.label
+            "differences from the baseline arm ({baseline}), paired by replication, 95%:"
         );
         let _ = writeln!(
             out,
             "{:<width$}  {:>22}  {:>22}  {:>22}",
             "arm", "group repaid (pp)", "loss rate (pp)", "served share (pp)"
         );
-        for a in &report.arms[1..] {
+        for a in report.arms.iter().filter(|a| a.arm.label() != baseline.as_str()) {
             let show = |metric: &str| {
                 report
                     .differences
