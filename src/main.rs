@@ -62,6 +62,18 @@ enum Command {
         /// Rewrite DIR/differences.csv against this arm: a label or a number from 1, as `check` lists them.
         #[arg(long, value_name = "ARM")]
         baseline: Option<String>,
+        /// Choose the arm with the highest FIGURE among those meeting every --subject-to.
+        #[arg(long, value_name = "FIGURE", conflicts_with = "minimize")]
+        maximize: Option<String>,
+        /// Choose the arm with the lowest FIGURE among those meeting every --subject-to.
+        #[arg(long, value_name = "FIGURE")]
+        minimize: Option<String>,
+        /// A constraint "FIGURE<=X" or "FIGURE>=X", met with 95% one-sided confidence; repeatable.
+        #[arg(long = "subject-to", value_name = "CONSTRAINT", allow_hyphen_values = true)]
+        subject_to: Vec<String>,
+        /// Print the selection as one JSON object on stdout, and nothing else.
+        #[arg(long)]
+        json: bool,
     },
     /// Write DIR/report.html and DIR/charts/*.svg from a finished run, without simulating again.
     Report {
@@ -284,12 +296,59 @@ fn board_report(dir: &std::path::Path, quiet: bool) -> Result<(), Failure> {
 }
 
 /// `compare`: reads the run's own files and redoes the comparisons asked for.
-fn compare_command(dir: &std::path::Path, baseline: Option<&str>) -> Result<(), Failure> {
-    use loancycle::stats::compare;
+fn compare_command(
+    dir: &std::path::Path,
+    baseline: Option<&str>,
+    objective: Option<(String, loancycle::stats::compare::Direction)>,
+    subject_to: &[String],
+    json: bool,
+) -> Result<(), Failure> {
+    use loancycle::stats::{compare, select};
+    if objective.is_none() && (!subject_to.is_empty() || json) {
+        return Err(Failure::BadInput(
+            "--subject-to and --json go with --maximize FIGURE or --minimize FIGURE".to_string(),
+        ));
+    }
+    // Flags are checked before the files are read, so a typo is named first.
+    let selection_request = match &objective {
+        Some((name, direction)) => {
+            let metric = select::figure(name).map_err(|e| {
+                let flag = match direction {
+                    compare::Direction::Maximize => "--maximize",
+                    compare::Direction::Minimize => "--minimize",
+                };
+                Failure::BadInput(format!("{flag}: {e}"))
+            })?;
+            let constraints = subject_to
+                .iter()
+                .map(|t| select::parse_constraint(t).map(|c| (t.clone(), c)))
+                .collect::<Result<Vec<_>, _>>()
+                .map_err(|e| Failure::BadInput(format!("--subject-to: {e}")))?;
+            Some((metric, *direction, constraints))
+        }
+        None => None,
+    };
     let stored = loancycle::stored::StoredRun::read(dir).map_err(|e| Failure::BadInput(e.to_string()))?;
+    if let Some((metric, direction, constraints)) = selection_request {
+        if baseline.is_some() {
+            return Err(Failure::BadInput(
+                "--baseline writes differences.csv; ask for it apart from --maximize/--minimize".to_string(),
+            ));
+        }
+        let selection = select::select(&stored.compared(), metric, direction, &constraints);
+        print!(
+            "{}",
+            if json {
+                output::tables::selection_json(&selection)
+            } else {
+                terminal::selection_text(&selection)
+            }
+        );
+        return Ok(());
+    }
     let Some(given) = baseline else {
         return Err(Failure::BadInput(
-            "compare: nothing asked; give --baseline ARM".to_string(),
+            "compare: nothing asked; give --baseline ARM, or --maximize/--minimize FIGURE".to_string(),
         ));
     };
     let index =
@@ -354,7 +413,21 @@ fn execute(command: Command) -> Result<(), Failure> {
             Ok(())
         }
         Command::Report { dir } => board_report(&dir, false),
-        Command::Compare { dir, baseline } => compare_command(&dir, baseline.as_deref()),
+        Command::Compare {
+            dir,
+            baseline,
+            maximize,
+            minimize,
+            subject_to,
+            json,
+        } => {
+            let objective = match (maximize, minimize) {
+                (Some(f), _) => Some((f, loancycle::stats::compare::Direction::Maximize)),
+                (None, Some(f)) => Some((f, loancycle::stats::compare::Direction::Minimize)),
+                (None, None) => None,
+            };
+            compare_command(&dir, baseline.as_deref(), objective, &subject_to, json)
+        }
         Command::DemoScenario => {
             print!("{}", demo::BASELINE);
             Ok(())

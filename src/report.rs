@@ -6,6 +6,7 @@ use crate::run::RunResults;
 use crate::scenario::{Arm, Scenario};
 use crate::stats::compare::{self, ComparedArm};
 use crate::stats::replications::ReplicationFigures;
+use crate::stats::select::{self, Selection};
 use crate::stats::summary::{self, ArmSummary, CyclePoint};
 use serde::Serialize;
 use sha2::{Digest, Sha256};
@@ -29,6 +30,10 @@ pub struct ArmReport {
     pub closed_form_optimum: Option<f64>,
     /// Means over replications per counted cycle.
     pub time_series: Vec<CyclePoint>,
+    /// Whether the arm is on the efficient frontier of loss rate against served share (no other arm
+    /// loses at most as much and serves at least as many, one of the two strictly); `None` when the
+    /// arm lacks either figure.
+    pub on_frontier: Option<bool>,
     /// Per-replication figures, in replication order (replications.csv, not summary.json).
     #[serde(skip)]
     pub replications: Vec<ReplicationFigures>,
@@ -53,6 +58,9 @@ pub struct RunReport {
     pub analytic_out_of_class: Option<String>,
     /// The best arm, when there are at least two arms and one of them served a group.
     pub best: Option<BestArm>,
+    /// The end-of-run choice: best by group repayment, no constraint, and the arms not worse
+    /// (`None` with a single arm).
+    pub selection: Option<Selection>,
     /// The arm the differences are taken against (the first unless `--baseline` names another).
     pub baseline: Option<String>,
     /// Every other arm against the baseline, paired by replication (common random numbers make
@@ -105,6 +113,14 @@ pub fn build_with_baseline(
         })
         .collect();
     let best = compare::best_arm(&compared);
+    let selection = (compared.len() > 1)
+        .then(|| select::select(&compared, compare::GROUP_REPAYMENT, compare::Direction::Maximize, &[]));
+    let frontier = on_frontier(
+        &summaries
+            .iter()
+            .map(|s| s.loss_rate.map(|l| l.rate).zip(s.served_share))
+            .collect::<Vec<_>>(),
+    );
     let differences = compare::differences(&compared, baseline);
     let arms: Vec<ArmReport> = scenario
         .arms
@@ -113,6 +129,7 @@ pub fn build_with_baseline(
         .zip(summaries)
         .enumerate()
         .map(|(i, ((arm, tally), summary))| ArmReport {
+            on_frontier: frontier[i],
             arm: arm.clone(),
             summary,
             analytic_group_repayment: analytic.group_repayment(i),
@@ -130,9 +147,48 @@ pub fn build_with_baseline(
         arms,
         analytic_out_of_class: analytic.out_of_class().map(str::to_string),
         best,
+        selection,
         baseline: scenario.arms().get(baseline).map(|a| a.label().to_string()),
         differences,
         warnings,
         caution: CAUTION.to_string(),
+    }
+}
+
+/// For each arm's (loss rate, served share), whether no other arm has a loss rate at most as high
+/// and a served share at least as high, with one of the two strictly better. `None` where an arm
+/// lacks either figure; such arms dominate nothing.
+pub fn on_frontier(points: &[Option<(f64, f64)>]) -> Vec<Option<bool>> {
+    points
+        .iter()
+        .map(|p| {
+            p.map(|(loss, served)| {
+                !points
+                    .iter()
+                    .flatten()
+                    .any(|&(l, s)| l <= loss && s >= served && (l < loss || s > served))
+            })
+        })
+        .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_frontier_keeps_arms_no_other_arm_beats_on_both_figures() {
+        let points = [
+            Some((0.02, 0.80)), // frontier: lowest loss
+            Some((0.03, 0.90)), // frontier: serves more
+            Some((0.03, 0.85)), // beaten by the arm above (same loss, serves less)
+            Some((0.05, 0.90)), // beaten: loses more for the same service
+            Some((0.02, 0.80)), // a copy of the first: neither is strictly better, both stay
+            None,
+        ];
+        assert_eq!(
+            on_frontier(&points),
+            [Some(true), Some(true), Some(false), Some(false), Some(true), None]
+        );
     }
 }

@@ -2,9 +2,9 @@
 //! without simulating again: summary.json gives the arms (labels, swept values, group sizes) in
 //! order, and replications.csv gives each replication's numerators and denominators.
 
+use crate::stats::ArmTally;
 use crate::stats::compare::ComparedArm;
 use crate::stats::replications::ReplicationFigures;
-use crate::stats::ArmTally;
 use serde_json::Value;
 use std::path::{Path, PathBuf};
 
@@ -54,7 +54,10 @@ impl StoredRun {
         let text = std::fs::read_to_string(&json_path).map_err(|e| {
             bad(
                 &json_path,
-                format!("cannot be read ({}); give the output directory of a finished run", e.to_string().to_lowercase()),
+                format!(
+                    "cannot be read ({}); give the output directory of a finished run",
+                    e.to_string().to_lowercase()
+                ),
             )
         })?;
         let v: Value = serde_json::from_str(&text).map_err(|e| bad(&json_path, format!("is not valid JSON ({e})")))?;
@@ -103,15 +106,21 @@ impl StoredRun {
         })?;
         for (line, row) in reader.deserialize::<ReplicationRecord>().enumerate() {
             let row = row.map_err(|e| bad(&csv_path, format!("row {}: {e}", line + 1)))?;
-            let arm = arms
-                .iter_mut()
-                .find(|a| a.label == row.arm)
-                .ok_or_else(|| bad(&csv_path, format!("row {}: arm `{}` is not in summary.json", line + 1, row.arm)))?;
+            let arm = arms.iter_mut().find(|a| a.label == row.arm).ok_or_else(|| {
+                bad(
+                    &csv_path,
+                    format!("row {}: arm `{}` is not in summary.json", line + 1, row.arm),
+                )
+            })?;
             let number = row.replication;
             if number == 0 || arm.tally.replications.iter().any(|r| r.replication + 1 == number) {
                 return Err(bad(
                     &csv_path,
-                    format!("row {}: replication {number} of arm `{}` is 0 or repeated", line + 1, row.arm),
+                    format!(
+                        "row {}: replication {number} of arm `{}` is 0 or repeated",
+                        line + 1,
+                        row.arm
+                    ),
                 ));
             }
             arm.tally.push(row.figures().to_tally());

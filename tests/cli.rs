@@ -17,7 +17,7 @@ const BAD_INPUT: i32 = 2;
 
 /// The columns of summary.csv as users' scripts know them, spelled out here rather than taken from
 /// the writer, so a renamed or reordered column fails this file.
-const SUMMARY_COLUMNS: [&str; 45] = [
+const SUMMARY_COLUMNS: [&str; 46] = [
     "arm",
     "group_size",
     "liability",
@@ -63,6 +63,7 @@ const SUMMARY_COLUMNS: [&str; 45] = [
     "closed_form_optimum",
     "group_repayment_se",
     "loss_rate_se",
+    "on_frontier",
 ];
 
 const OUTPUTS: [&str; 5] = [

@@ -63,14 +63,19 @@ fn read_csv(path: &Path) -> Vec<BTreeMap<String, String>> {
     r.records()
         .map(|rec| {
             let rec = rec.unwrap();
-            header.iter().map(str::to_string).zip(rec.iter().map(str::to_string)).collect()
+            header
+                .iter()
+                .map(str::to_string)
+                .zip(rec.iter().map(str::to_string))
+                .collect()
         })
         .collect()
 }
 
 fn num(row: &BTreeMap<String, String>, column: &str) -> f64 {
     let cell = row.get(column).unwrap_or_else(|| panic!("no column {column}"));
-    cell.parse().unwrap_or_else(|_| panic!("{column} = {cell:?} is not a number"))
+    cell.parse()
+        .unwrap_or_else(|_| panic!("{column} = {cell:?} is not a number"))
 }
 
 /// The q-quantile by linear interpolation between order statistics (Hyndman and Fan type 7, the
@@ -96,25 +101,48 @@ fn pooled_figures_recomputed_from_replications_equal_the_summary() {
         let label = &arm["arm"];
         let mine: Vec<_> = reps.iter().filter(|r| &r["arm"] == label).collect();
         let numbers: Vec<u32> = mine.iter().map(|r| r["replication"].parse().unwrap()).collect();
-        assert_eq!(numbers, (1..=40).collect::<Vec<u32>>(), "{label}: replications in order from 1");
+        assert_eq!(
+            numbers,
+            (1..=40).collect::<Vec<u32>>(),
+            "{label}: replications in order from 1"
+        );
         // Sums in replication order, as a script would take them: the pooled figures are ratios of
         // sums, so they must come out exactly, not merely close.
         let sum = |c: &str| mine.iter().map(|r| num(r, c)).fold(0.0, |a, x| a + x);
         let disbursed = sum("disbursed");
-        assert_eq!(sum("groups_repaid") / sum("group_cycles"), num(arm, "group_repayment_rate"), "{label}");
+        assert_eq!(
+            sum("groups_repaid") / sum("group_cycles"),
+            num(arm, "group_repayment_rate"),
+            "{label}"
+        );
         assert_eq!(sum("loss") / disbursed, num(arm, "loss_rate"), "{label}");
         assert_eq!(
             (sum("collected") + sum("recovered") - disbursed) / disbursed,
             num(arm, "net_yield"),
             "{label}"
         );
-        assert_eq!(sum("served_slot_cycles") / sum("slot_cycles"), num(arm, "served_share"), "{label}");
-        assert_eq!(sum("excluded_slot_cycles") / sum("slot_cycles"), num(arm, "excluded_share"), "{label}");
-        assert_eq!(sum("member_defaults") / sum("member_loans"), num(arm, "member_default_rate"), "{label}");
+        assert_eq!(
+            sum("served_slot_cycles") / sum("slot_cycles"),
+            num(arm, "served_share"),
+            "{label}"
+        );
+        assert_eq!(
+            sum("excluded_slot_cycles") / sum("slot_cycles"),
+            num(arm, "excluded_share"),
+            "{label}"
+        );
+        assert_eq!(
+            sum("member_defaults") / sum("member_loans"),
+            num(arm, "member_default_rate"),
+            "{label}"
+        );
         // Per-replication rates are their own numerator over denominator.
         for r in &mine {
             assert_eq!(num(r, "loss") / num(r, "disbursed"), num(r, "loss_rate"));
-            assert!(num(r, "worst_cycle_loss") >= num(r, "loss_rate"), "the worst cycle is at least the average");
+            assert!(
+                num(r, "worst_cycle_loss") >= num(r, "loss_rate"),
+                "the worst cycle is at least the average"
+            );
         }
         let worst: Vec<f64> = mine.iter().map(|r| num(r, "worst_cycle_loss")).collect();
         for (column, q) in [("worst_cycle_loss_p50", 0.5), ("worst_cycle_loss_p95", 0.95)] {
@@ -184,7 +212,11 @@ fn common_random_numbers_narrow_the_exclusion_comparison() {
         let paired = num(r, "se");
         let own = |arm: &str| own_se(&out, arm);
         let unpaired = (own(&r["arm"]).powi(2) + own("exclusion_cycles=0").powi(2)).sqrt();
-        assert!((ratio - paired / unpaired).abs() <= 1e-12 * ratio.max(1.0), "{ratio} vs {}", paired / unpaired);
+        assert!(
+            (ratio - paired / unpaired).abs() <= 1e-12 * ratio.max(1.0),
+            "{ratio} vs {}",
+            paired / unpaired
+        );
         // Both arms see the same village floods, which move every replication's repayment together;
         // pairing removes that shared part, so the paired error is well under the unpaired one (here
         // about 0.3 and 0.5; independent arms would give about 1).
@@ -237,9 +269,135 @@ fn an_unknown_baseline_is_refused_in_one_line() {
         assert_eq!(o.status.code(), Some(2));
         let err = String::from_utf8_lossy(&o.stderr);
         assert_eq!(err.lines().count(), 1, "{err}");
-        assert!(err.contains("--baseline") && err.contains(given) && err.contains("from 1 to 3"), "{err}");
+        assert!(
+            err.contains("--baseline") && err.contains(given) && err.contains("from 1 to 3"),
+            "{err}"
+        );
     }
     assert_eq!(std::fs::read(out.join("differences.csv")).unwrap(), before);
-    let o = loancycle(&["compare", tmp.path().join("nowhere").to_str().unwrap(), "--baseline", "1"]);
+    let o = loancycle(&[
+        "compare",
+        tmp.path().join("nowhere").to_str().unwrap(),
+        "--baseline",
+        "1",
+    ]);
     assert_eq!(o.status.code(), Some(2));
+}
+
+/// The standard normal quantile at 1 - 0.05 / 3 (three arms, one constraint, Bonferroni):
+/// 2.128045 (scipy.stats.norm.ppf(1 - 0.05 / 3), standard normal tables).
+const Z_ONE_SIDED_THIRD: f64 = 2.128045;
+
+#[test]
+fn the_selection_prints_one_json_object_and_checks_feasibility_from_the_replications() {
+    let tmp = tempfile::tempdir().unwrap();
+    let out = run_scenario(tmp.path(), EXCLUSION, &[]);
+    let dir = out.to_str().unwrap();
+    let summary = read_csv(&out.join("summary.csv"));
+    // A served-share limit between the arms: the middle of the three served shares.
+    let mut served: Vec<f64> = summary.iter().map(|r| num(r, "served_share")).collect();
+    served.sort_by(f64::total_cmp);
+    let limit = served[1] - 1e-4;
+    let constraint = format!("served_share>={limit}");
+    let o = loancycle(&[
+        "compare",
+        dir,
+        "--maximize",
+        "group_repayment_rate",
+        "--subject-to",
+        &constraint,
+        "--json",
+    ]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let v: serde_json::Value = serde_json::from_slice(&o.stdout).expect("stdout is one JSON object");
+    assert_eq!(v["objective"], "maximize group_repayment_rate");
+    assert_eq!(v["constraints"][0], constraint.as_str());
+    // Feasibility recomputed here: the arm's lower one-sided bound, ratio estimator from
+    // replications.csv, must reach the limit.
+    let reps = read_csv(&out.join("replications.csv"));
+    let mut expected = Vec::new();
+    for arm in &summary {
+        let pairs: Vec<(f64, f64)> = reps
+            .iter()
+            .filter(|r| r["arm"] == arm["arm"])
+            .map(|r| (num(r, "served_slot_cycles"), num(r, "slot_cycles")))
+            .collect();
+        let n = pairs.len() as f64;
+        let rate = pairs.iter().map(|p| p.0).sum::<f64>() / pairs.iter().map(|p| p.1).sum::<f64>();
+        let ybar = pairs.iter().map(|p| p.1).sum::<f64>() / n;
+        let se = (pairs.iter().map(|&(x, y)| (x - rate * y).powi(2)).sum::<f64>() / (n * (n - 1.0))).sqrt() / ybar;
+        if rate - Z_ONE_SIDED_THIRD * se >= limit {
+            expected.push(arm["arm"].clone());
+        }
+    }
+    let feasible: Vec<String> = v["feasible"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|x| x.as_str().unwrap().to_string())
+        .collect();
+    assert_eq!(feasible, expected);
+    assert!(
+        !feasible.is_empty() && feasible.len() < 3,
+        "the limit should split the arms: {feasible:?}"
+    );
+    let best = v["best"].as_str().expect("a best arm");
+    assert!(feasible.iter().any(|f| f == best));
+    assert!(v["not_worse"].as_array().unwrap().iter().any(|x| x == best));
+
+    // No arm can lose nothing: exit 0, best null, both lists empty, and the plain sentence.
+    let o = loancycle(&[
+        "compare",
+        dir,
+        "--minimize",
+        "excluded_share",
+        "--subject-to",
+        "loss_rate<=0",
+        "--json",
+    ]);
+    assert!(o.status.success());
+    let v: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    assert!(v["best"].is_null());
+    assert_eq!(v["feasible"], serde_json::json!([]));
+    assert_eq!(v["not_worse"], serde_json::json!([]));
+    let o = loancycle(&[
+        "compare",
+        dir,
+        "--minimize",
+        "excluded_share",
+        "--subject-to",
+        "loss_rate<=0",
+    ]);
+    assert!(String::from_utf8_lossy(&o.stdout).contains("no arm meets loss_rate<=0 with 95% confidence"));
+
+    // A figure it does not know is refused in one line naming the flag.
+    let o = loancycle(&["compare", dir, "--maximize", "happiness"]);
+    assert_eq!(o.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        err.contains("--maximize") && err.contains("happiness") && err.lines().count() == 1,
+        "{err}"
+    );
+}
+
+#[test]
+fn summary_marks_the_loss_and_service_frontier() {
+    let tmp = tempfile::tempdir().unwrap();
+    let out = run_scenario(tmp.path(), EXCLUSION, &[]);
+    let summary = read_csv(&out.join("summary.csv"));
+    let points: Vec<(f64, f64)> = summary
+        .iter()
+        .map(|r| (num(r, "loss_rate"), num(r, "served_share")))
+        .collect();
+    for (r, &(loss, served)) in summary.iter().zip(&points) {
+        let dominated = points
+            .iter()
+            .any(|&(l, s)| l <= loss && s >= served && (l < loss || s > served));
+        assert_eq!(
+            r["on_frontier"],
+            if dominated { "false" } else { "true" },
+            "{}",
+            r["arm"]
+        );
+    }
 }

@@ -131,6 +131,7 @@ pub struct SummaryRow<'a> {
     closed_form_optimum: Cell,
     group_repayment_se: Cell,
     loss_rate_se: Cell,
+    on_frontier: &'static str,
 }
 
 impl<'a> SummaryRow<'a> {
@@ -187,6 +188,11 @@ impl<'a> SummaryRow<'a> {
             closed_form_optimum: Cell(a.closed_form_optimum),
             group_repayment_se,
             loss_rate_se,
+            on_frontier: match a.on_frontier {
+                Some(true) => "true",
+                Some(false) => "false",
+                None => "",
+            },
         }
     }
 }
@@ -211,7 +217,10 @@ pub fn summary_csv(report: &RunReport) -> Vec<u8> {
         .iter()
         .filter(|p| !header.iter().any(|h| h == p.as_str()))
         .collect();
-    let at = header.iter().position(|h| h == "matching").map_or(header.len(), |i| i + 1);
+    let at = header
+        .iter()
+        .position(|h| h == "matching")
+        .map_or(header.len(), |i| i + 1);
     let splice = |record: &csv::StringRecord, added: Vec<&str>| {
         let mut out = csv::StringRecord::new();
         record.iter().take(at).for_each(|f| out.push_field(f));
@@ -360,4 +369,11 @@ pub fn summary_json(report: &RunReport) -> Vec<u8> {
     let mut bytes = serde_json::to_vec_pretty(report).expect("report serialises: no maps with non-string keys");
     bytes.push(b'\n');
     bytes
+}
+
+/// A selection as one JSON object and a newline (what `compare --json` prints, alone, on stdout).
+pub fn selection_json(selection: &crate::stats::select::Selection) -> String {
+    let mut text = serde_json::to_string_pretty(selection).expect("a selection serialises");
+    text.push('\n');
+    text
 }

@@ -113,26 +113,65 @@ pub fn summary_table(report: &RunReport) -> String {
         let _ = writeln!(out, "exact values: none, outside the one-factor class ({reason})");
     }
     // With one arm there is nothing to choose, so no best-arm line.
-    if let Some(b) = &report.best {
-        let _ = writeln!(
-            out,
-            "best arm by group repayment: {} (group size {})",
-            b.label, b.group_size
-        );
-        let sizes: Vec<String> = b.confidence_set_group_sizes.iter().map(|k| k.to_string()).collect();
-        let _ = writeln!(
-            out,
-            "not significantly worse (paired by replication, 95%, Bonferroni): {} (group sizes {})",
-            b.confidence_set.join("; "),
-            sizes.join(", ")
-        );
-    } else if report.arms.len() > 1 {
-        let _ = writeln!(out, "no arm served any group in its counted cycles");
+    if let Some(sel) = &report.selection {
+        let size = |label: &str| {
+            report
+                .arms
+                .iter()
+                .find(|a| a.arm.label() == label)
+                .map_or(0, |a| a.arm.policy().group_size)
+        };
+        match &sel.best {
+            Some(best) => {
+                let _ = writeln!(out, "best arm by group repayment: {best} (group size {})", size(best));
+                let mut sizes: Vec<u32> = sel.not_worse.iter().map(|l| size(l)).collect();
+                sizes.sort_unstable();
+                sizes.dedup();
+                let sizes: Vec<String> = sizes.iter().map(u32::to_string).collect();
+                let _ = writeln!(
+                    out,
+                    "not significantly worse (paired by replication, 95%, Bonferroni): {} (group sizes {})",
+                    sel.not_worse.join("; "),
+                    sizes.join(", ")
+                );
+                for note in &sel.notes {
+                    let _ = writeln!(out, "{note}");
+                }
+            }
+            None => {
+                let _ = writeln!(out, "no arm served any group in its counted cycles");
+            }
+        }
     }
     for w in &report.warnings {
         let _ = writeln!(out, "warning: {w}");
     }
     let _ = writeln!(out, "{}", report.caution);
+    out
+}
+
+/// A selection in plain lines: the objective, constraints, feasible arms, best, not worse, notes.
+pub fn selection_text(s: &crate::stats::select::Selection) -> String {
+    let mut out = String::new();
+    let list = |v: &[String]| if v.is_empty() { "none".to_string() } else { v.join("; ") };
+    let _ = writeln!(out, "objective: {}", s.objective);
+    if !s.constraints.is_empty() {
+        let _ = writeln!(
+            out,
+            "subject to (each met with 95% one-sided confidence, Bonferroni over arms x constraints): {}",
+            s.constraints.join(", ")
+        );
+        let _ = writeln!(out, "feasible: {}", list(&s.feasible));
+    }
+    let _ = writeln!(out, "best: {}", s.best.as_deref().unwrap_or("none"));
+    let _ = writeln!(
+        out,
+        "not significantly worse (paired by replication, one-sided 5%, Bonferroni): {}",
+        list(&s.not_worse)
+    );
+    for note in &s.notes {
+        let _ = writeln!(out, "{note}");
+    }
     out
 }
 

@@ -158,6 +158,12 @@ mod tests {
         assert_eq!(f.slot_cycles, 24);
         let back = ReplicationFigures::from_tally(&f.to_tally());
         assert_eq!(back.slot_cycles, 24);
-        assert_eq!(ReplicationFigures { worst_cycle_loss: None, ..f.clone() }, back);
+        assert_eq!(
+            ReplicationFigures {
+                worst_cycle_loss: None,
+                ..f.clone()
+            },
+            back
+        );
     }
 }

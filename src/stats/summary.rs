@@ -156,7 +156,10 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
         })
         .collect();
     let cycle_losses = estimate::sorted(&cycle_losses);
-    let worst: Vec<f64> = reps.iter().filter_map(crate::stats::replications::worst_cycle_loss).collect();
+    let worst: Vec<f64> = reps
+        .iter()
+        .filter_map(crate::stats::replications::worst_cycle_loss)
+        .collect();
     let worst = estimate::sorted(&worst);
     ArmSummary {
         replications: reps.len() as u64,
