@@ -41,6 +41,7 @@ pub mod demo;
 pub mod dist;
 pub mod engine;
 pub mod fit;
+pub mod group_size;
 pub mod maths;
 pub mod output;
 pub mod report;

@@ -2,6 +2,7 @@
 //! same figures and computes nothing of its own.
 
 use crate::companion::SimulationCompanion;
+use crate::group_size::GroupSizeRow;
 use crate::run::RunResults;
 use crate::scenario::{Arm, Scenario};
 use crate::stats::compare::{self, ComparedArm};
@@ -61,6 +62,9 @@ pub struct RunReport {
     /// The end-of-run choice: best by group repayment, no constraint, and the arms not worse
     /// (`None` with a single arm).
     pub selection: Option<Selection>,
+    /// The best group size by simulation, closed form, exact value and loss, per combination of
+    /// the other swept keys, when group size is swept.
+    pub group_size: Option<Vec<GroupSizeRow>>,
     /// The arm the differences are taken against (the first unless `--baseline` names another).
     pub baseline: Option<String>,
     /// Every other arm against the baseline, paired by replication (common random numbers make
@@ -122,6 +126,17 @@ pub fn build_with_baseline(
             .collect::<Vec<_>>(),
     );
     let differences = compare::differences(&compared, baseline);
+    let group_size = crate::group_size::table(
+        scenario,
+        &compared,
+        &(0..compared.len())
+            .map(|i| analytic.group_repayment(i))
+            .collect::<Vec<_>>(),
+        &summaries
+            .iter()
+            .map(|s| s.loss_rate.map(|l| l.rate))
+            .collect::<Vec<_>>(),
+    );
     let arms: Vec<ArmReport> = scenario
         .arms
         .iter()
@@ -148,6 +163,7 @@ pub fn build_with_baseline(
         analytic_out_of_class: analytic.out_of_class().map(str::to_string),
         best,
         selection,
+        group_size,
         baseline: scenario.arms().get(baseline).map(|a| a.label().to_string()),
         differences,
         warnings,

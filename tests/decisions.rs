@@ -401,3 +401,53 @@ fn summary_marks_the_loss_and_service_frontier() {
         );
     }
 }
+
+#[test]
+fn the_group_size_table_answers_from_the_summary_and_the_closed_form() {
+    // A table curve for the sales shock, independent members of fixed risk 1: the closed form's
+    // group repayment is (1 - phi(k))^k, so k ln(1 - phi(k)) is -0.2107, -0.1539, -0.1633, -0.2565
+    // for k = 2..5 (computed by hand): size 3 is best.
+    let text = SWEPT
+        .replace(
+            "[policy]",
+            "[[shock]]\nname = \"sales\"\nscope = \"member\"\nprobability = { curve = \"table\", values = { \"2\" = 0.1, \"3\" = 0.05, \"4\" = 0.04, \"5\" = 0.05 } }\n[policy]",
+        )
+        .replace("group_size = [3, 5]", "group_size = [2, 3, 4, 5]");
+    let tmp = tempfile::tempdir().unwrap();
+    let out = run_scenario(tmp.path(), &text, &[]);
+    let table = read_csv(&out.join("group_size.csv"));
+    let summary = read_csv(&out.join("summary.csv"));
+    let contexts: Vec<&str> = table.iter().map(|r| r["context"].as_str()).collect();
+    assert_eq!(
+        contexts,
+        [
+            "shock.illness.village_correlation=0",
+            "shock.illness.village_correlation=0.3"
+        ]
+    );
+    for row in &table {
+        assert_eq!(row["best_closed_form"], "3");
+        let value = row["context"].rsplit('=').next().unwrap();
+        let arms: Vec<_> = summary
+            .iter()
+            .filter(|r| r["shock.illness.village_correlation"] == value)
+            .collect();
+        assert_eq!(arms.len(), 4);
+        let by = |column: &str, higher: bool| {
+            let mut best = arms[0];
+            for a in &arms[1..] {
+                let (x, b) = (num(a, column), num(best, column));
+                if (higher && x > b) || (!higher && x < b) {
+                    best = a;
+                }
+            }
+            best["group_size"].clone()
+        };
+        assert_eq!(row["best_simulated"], by("group_repayment_rate", true));
+        assert_eq!(row["best_by_loss"], by("loss_rate", false));
+        assert!(row["not_worse"].split(';').any(|k| k == row["best_simulated"]));
+        // Village correlation takes the scenario out of the one-factor class only where it is
+        // nonzero; the exact column is filled only where every arm of the row has an exact value.
+        assert!(row["best_exact"].is_empty() || row["best_exact"].parse::<u32>().is_ok());
+    }
+}

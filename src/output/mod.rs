@@ -10,11 +10,12 @@ use crate::report::RunReport;
 use std::path::{Path, PathBuf};
 
 /// Files a run writes into its output directory.
-pub const OUTPUT_FILES: [&str; 5] = [
+pub const OUTPUT_FILES: [&str; 6] = [
     "summary.csv",
     "timeseries.csv",
     "differences.csv",
     "replications.csv",
+    "group_size.csv",
     "summary.json",
 ];
 
@@ -142,13 +143,18 @@ pub fn write_all(
 ) -> Result<Vec<PathBuf>, OutputError> {
     prepare_destination(dir, force)?;
     // Render everything first so a rendering problem cannot leave a partial set of files.
-    let files = [
+    let mut files = vec![
         ("summary.csv", tables::summary_csv(report)),
         ("timeseries.csv", tables::timeseries_csv(report)),
         ("differences.csv", tables::differences_csv(report)),
         ("replications.csv", tables::replications_csv(report)),
-        ("summary.json", tables::summary_json(report)),
     ];
+    let group_size = tables::group_size_csv(report);
+    let with_group_size = group_size.is_some();
+    if let Some(bytes) = group_size {
+        files.push(("group_size.csv", bytes));
+    }
+    files.push(("summary.json", tables::summary_json(report)));
     // All temporary files first; only when every one is complete are they renamed into place.
     let mut staged: Vec<(PathBuf, &str)> = Vec::new();
     for (name, bytes) in &files {
@@ -180,6 +186,13 @@ pub fn write_all(
             return Err(io_error(&final_path, e));
         }
         written.push(final_path);
+    }
+    if !with_group_size {
+        // An earlier run's table (replaced with --force) must not sit beside this run's files.
+        let stale = dir.join("group_size.csv");
+        if stale.exists() {
+            std::fs::remove_file(&stale).map_err(|e| io_error(&stale, e))?;
+        }
     }
     Ok(written)
 }

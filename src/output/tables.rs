@@ -377,3 +377,27 @@ pub fn selection_json(selection: &crate::stats::select::Selection) -> String {
     text.push('\n');
     text
 }
+
+/// One row of group_size.csv.
+#[derive(Debug, Default, Serialize)]
+struct GroupSizeCsvRow<'a> {
+    context: &'a str,
+    best_simulated: Option<u32>,
+    not_worse: String,
+    best_closed_form: Option<u32>,
+    best_exact: Option<u32>,
+    best_by_loss: Option<u32>,
+}
+
+/// group_size.csv, when group size is swept: one row per combination of the other swept keys.
+pub fn group_size_csv(report: &RunReport) -> Option<Vec<u8>> {
+    let rows = report.group_size.as_ref()?;
+    Some(csv_bytes(rows.iter().map(|r| GroupSizeCsvRow {
+        context: &r.context,
+        best_simulated: r.best_simulated,
+        not_worse: r.not_worse.iter().map(u32::to_string).collect::<Vec<_>>().join(";"),
+        best_closed_form: r.best_closed_form,
+        best_exact: r.best_exact,
+        best_by_loss: r.best_by_loss,
+    })))
+}

@@ -112,6 +112,33 @@ pub fn summary_table(report: &RunReport) -> String {
     if let Some(reason) = &report.analytic_out_of_class {
         let _ = writeln!(out, "exact values: none, outside the one-factor class ({reason})");
     }
+    if let Some(rows) = &report.group_size {
+        let width = rows.iter().map(|r| r.context.len()).max().unwrap_or(0).max(7);
+        let cell = |k: Option<u32>| k.map_or_else(|| "-".to_string(), |k| k.to_string());
+        let _ = writeln!(out, "best group size (group_size.csv):");
+        let _ = writeln!(
+            out,
+            "{:<width$}  {:>9}  {:>14}  {:>11}  {:>6}  {:>7}",
+            "context", "simulated", "not worse", "closed form", "exact", "by loss"
+        );
+        for r in rows {
+            let sizes: Vec<String> = r.not_worse.iter().map(u32::to_string).collect();
+            let context = if r.context.is_empty() { "(all arms)" } else { &r.context };
+            let _ = writeln!(
+                out,
+                "{:<width$}  {:>9}  {:>14}  {:>11}  {:>6}  {:>7}",
+                context,
+                cell(r.best_simulated),
+                sizes.join(";"),
+                cell(r.best_closed_form),
+                cell(r.best_exact),
+                cell(r.best_by_loss)
+            );
+        }
+        for sentence in rows.iter().flat_map(|r| &r.sentences) {
+            let _ = writeln!(out, "{sentence}");
+        }
+    }
     // With one arm there is nothing to choose, so no best-arm line.
     if let Some(sel) = &report.selection {
         let size = |label: &str| {
