@@ -9,6 +9,7 @@ pub mod basel;
 pub mod normal;
 pub mod one_factor;
 pub mod optimum;
+pub mod portfolio_law;
 pub mod quadrature;
 pub mod report;
 pub mod vasicek;
