@@ -95,31 +95,32 @@ pub fn table(
         } else {
             format!("at {context}, ")
         };
-        if let (Some(c), Some(e)) = (best_closed_form, best_exact) {
-            if c != e {
-                sentences.push(format!(
-                    "{at}correlation and peer cover move the best size from {c} (closed form) to {e} (exact)"
-                ));
-            }
+        if let (Some(c), Some(e)) = (best_closed_form, best_exact)
+            && c != e
+        {
+            sentences.push(format!(
+                "{at}correlation and peer cover move the best size from {c} (closed form) to {e} (exact)"
+            ));
         }
-        if let (Some(from), Some(s)) = (best_exact.or(best_closed_form), best_simulated) {
-            if from != s && !not_worse.contains(&from) {
-                let what = if best_exact.is_some() {
-                    "exact value"
-                } else {
-                    "closed form"
-                };
-                sentences.push(format!(
-                    "{at}the rest of the model moves the best size from {from} ({what}) to {s} (simulated)"
-                ));
-            }
+        if let (Some(from), Some(s)) = (best_exact.or(best_closed_form), best_simulated)
+            && from != s
+            && !not_worse.contains(&from)
+        {
+            let what = if best_exact.is_some() {
+                "exact value"
+            } else {
+                "closed form"
+            };
+            sentences.push(format!(
+                "{at}the rest of the model moves the best size from {from} ({what}) to {s} (simulated)"
+            ));
         }
-        if let (Some(s), Some(l)) = (best_simulated, best_by_loss) {
-            if s != l {
-                sentences.push(format!(
+        if let (Some(s), Some(l)) = (best_simulated, best_by_loss)
+            && s != l
+        {
+            sentences.push(format!(
                     "{at}by loss rate the best size is {l}, not {s}: a defaulting group still collects from members who were not hit"
                 ));
-            }
         }
         rows.push(GroupSizeRow {
             context,
