@@ -66,8 +66,9 @@ const SUMMARY_COLUMNS: [&str; 46] = [
     "on_frontier",
 ];
 
-const OUTPUTS: [&str; 5] = [
+const OUTPUTS: [&str; 6] = [
     "differences.csv",
+    "group_size.csv",
     "replications.csv",
     "summary.csv",
     "summary.json",

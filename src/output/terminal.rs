@@ -38,15 +38,15 @@ pub fn summary_table(report: &RunReport) -> String {
     let width = report.arms.iter().map(|a| a.arm.label.len()).max().unwrap_or(3).max(3);
     let _ = writeln!(
         out,
-        "{:<width$}  {:>18}  {:>9}  {:>9}  {:>9}  {:>10}  {:>18}  {:>9}  {:>9}  {:>9}",
+        "{:<width$}  {:>18}  {:>9}  {:>9}  {:>12}  {:>10}  {:>18}  {:>11}  {:>9}  {:>9}",
         "arm",
         "group repaid (95%)",
         "exact",
         "no-short",
-        "if indep.",
+        "indep. pred.",
         "dep. ratio",
         "loss rate (95%)",
-        "loss p99",
+        "horizon p99",
         "served",
         "excluded"
     );
@@ -60,7 +60,7 @@ pub fn summary_table(report: &RunReport) -> String {
             .map_or("-".into(), |l| with_interval(l.rate, l.standard_error, 3, "%", false));
         let _ = writeln!(
             out,
-            "{:<width$}  {:>18}  {:>9}  {:>9}  {:>9}  {:>10}  {:>18}  {:>9}  {:>9}  {:>9}",
+            "{:<width$}  {:>18}  {:>9}  {:>9}  {:>12}  {:>10}  {:>18}  {:>11}  {:>9}  {:>9}",
             a.arm.label,
             g,
             pct(a.analytic_group_repayment),
@@ -75,8 +75,10 @@ pub fn summary_table(report: &RunReport) -> String {
     }
     let _ = writeln!(
         out,
-        "no-short: groups with no member short; if indep.: (1 - member shortfall rate)^k, what \
-         independent members would give; dep. ratio: no-short / if indep. (1 for independent members)"
+        "no-short: groups with no member short; indep. pred.: (1 - member shortfall rate)^k, a \
+         prediction under independence, not a forecast that failed; dep. ratio: no-short / indep. pred. \
+         (1 for independent members); horizon p99: 99% quantile of each replication's loss rate over its \
+         whole horizon (worst_cycle_loss_p95 in summary.csv is the worst single cycle)"
     );
     if let (true, Some(baseline)) = (report.arms.len() > 1, &report.baseline) {
         let _ = writeln!(
