@@ -42,6 +42,7 @@ pub mod demo;
 pub mod dist;
 pub mod engine;
 pub mod fit;
+pub mod group_size;
 pub mod loanbook;
 pub mod maths;
 pub mod output;
@@ -49,6 +50,7 @@ pub mod report;
 pub mod run;
 pub mod scenario;
 pub mod stats;
+pub mod stored;
 
 /// The caution every report carries: outputs are model estimates for planning.
 pub const CAUTION: &str = "Model estimates for planning only: lending decisions affect vulnerable borrowers, and local \

@@ -54,6 +54,30 @@ enum Command {
         /// every arm; the other results do not change.
         #[arg(long, value_name = "FILE")]
         loan_book: Option<PathBuf>,
+        /// The arm differences.csv compares against: a label or a number from 1, as `check` lists them.
+        #[arg(long, value_name = "ARM")]
+        baseline: Option<String>,
+    },
+    /// Redo comparisons from a finished run's files (summary.json, replications.csv), without
+    /// simulating again.
+    Compare {
+        /// The run's output directory.
+        dir: PathBuf,
+        /// Rewrite DIR/differences.csv against this arm: a label or a number from 1, as `check` lists them.
+        #[arg(long, value_name = "ARM")]
+        baseline: Option<String>,
+        /// Choose the arm with the highest FIGURE among those meeting every --subject-to.
+        #[arg(long, value_name = "FIGURE", conflicts_with = "minimize")]
+        maximize: Option<String>,
+        /// Choose the arm with the lowest FIGURE among those meeting every --subject-to.
+        #[arg(long, value_name = "FIGURE")]
+        minimize: Option<String>,
+        /// A constraint "FIGURE<=X" or "FIGURE>=X", met with 95% one-sided confidence; repeatable.
+        #[arg(long = "subject-to", value_name = "CONSTRAINT", allow_hyphen_values = true)]
+        subject_to: Vec<String>,
+        /// Print the selection as one JSON object on stdout, and nothing else.
+        #[arg(long)]
+        json: bool,
     },
     /// Write DIR/report.html and DIR/charts/*.svg from a finished run, without simulating again.
     Report {
@@ -275,6 +299,71 @@ fn board_report(dir: &std::path::Path, quiet: bool) -> Result<(), Failure> {
     Ok(())
 }
 
+/// `compare`: reads the run's own files and redoes the comparisons asked for.
+fn compare_command(
+    dir: &std::path::Path,
+    baseline: Option<&str>,
+    objective: Option<(String, loancycle::stats::compare::Direction)>,
+    subject_to: &[String],
+    json: bool,
+) -> Result<(), Failure> {
+    use loancycle::stats::{compare, select};
+    if objective.is_none() && (!subject_to.is_empty() || json) {
+        return Err(Failure::BadInput(
+            "--subject-to and --json go with --maximize FIGURE or --minimize FIGURE".to_string(),
+        ));
+    }
+    // Flags are checked before the files are read, so a typo is named first.
+    let selection_request = match &objective {
+        Some((name, direction)) => {
+            let metric = select::figure(name).map_err(|e| {
+                let flag = match direction {
+                    compare::Direction::Maximize => "--maximize",
+                    compare::Direction::Minimize => "--minimize",
+                };
+                Failure::BadInput(format!("{flag}: {e}"))
+            })?;
+            let constraints = subject_to
+                .iter()
+                .map(|t| select::parse_constraint(t).map(|c| (t.clone(), c)))
+                .collect::<Result<Vec<_>, _>>()
+                .map_err(|e| Failure::BadInput(format!("--subject-to: {e}")))?;
+            Some((metric, *direction, constraints))
+        }
+        None => None,
+    };
+    let stored = loancycle::stored::StoredRun::read(dir).map_err(|e| Failure::BadInput(e.to_string()))?;
+    if let Some((metric, direction, constraints)) = selection_request {
+        if baseline.is_some() {
+            return Err(Failure::BadInput(
+                "--baseline writes differences.csv; ask for it apart from --maximize/--minimize".to_string(),
+            ));
+        }
+        let selection = select::select(&stored.compared(), metric, direction, &constraints);
+        print!(
+            "{}",
+            if json {
+                output::tables::selection_json(&selection)
+            } else {
+                terminal::selection_text(&selection)
+            }
+        );
+        return Ok(());
+    }
+    let Some(given) = baseline else {
+        return Err(Failure::BadInput(
+            "compare: nothing asked; give --baseline ARM, or --maximize/--minimize FIGURE".to_string(),
+        ));
+    };
+    let index =
+        compare::resolve_arm(&stored.labels(), given).map_err(|e| Failure::BadInput(format!("--baseline: {e}")))?;
+    let rows = compare::differences(&stored.compared(), index);
+    let path = output::replace_file(dir, "differences.csv", &output::tables::difference_rows_csv(&rows))
+        .map_err(|e| Failure::Running(e.to_string()))?;
+    println!("wrote {}", path.display());
+    Ok(())
+}
+
 fn main() -> ExitCode {
     let cli = Cli::parse();
     match execute(cli.command) {
@@ -328,6 +417,21 @@ fn execute(command: Command) -> Result<(), Failure> {
             Ok(())
         }
         Command::Report { dir } => board_report(&dir, false),
+        Command::Compare {
+            dir,
+            baseline,
+            maximize,
+            minimize,
+            subject_to,
+            json,
+        } => {
+            let objective = match (maximize, minimize) {
+                (Some(f), _) => Some((f, loancycle::stats::compare::Direction::Maximize)),
+                (None, Some(f)) => Some((f, loancycle::stats::compare::Direction::Minimize)),
+                (None, None) => None,
+            };
+            compare_command(&dir, baseline.as_deref(), objective, &subject_to, json)
+        }
         Command::DemoScenario => {
             print!("{}", demo::BASELINE);
             Ok(())
@@ -348,12 +452,19 @@ fn execute(command: Command) -> Result<(), Failure> {
             max_memory,
             report: with_report,
             loan_book,
+            baseline,
         } => {
             // Only `run` catches signals: it has files to protect. The other commands write nothing
             // and keep the default action, so Ctrl-C ends them at once.
             let stop = install_stop_signals();
             let overrides = Overrides { replications, seed };
             let (scenario, text, origin) = load_with(file.as_ref(), &overrides)?;
+            let labels: Vec<&str> = scenario.arms().iter().map(|a| a.label()).collect();
+            let baseline = match &baseline {
+                Some(given) => loancycle::stats::compare::resolve_arm(&labels, given)
+                    .map_err(|e| Failure::BadInput(format!("--baseline: {e}")))?,
+                None => 0,
+            };
             if file.is_none() && !quiet {
                 eprintln!("no scenario file given: running the built-in baseline demo, {origin}");
             }
@@ -417,7 +528,7 @@ fn execute(command: Command) -> Result<(), Failure> {
                     });
                 }
             };
-            let report = report::build(&scenario, &text, &origin, &results);
+            let report = report::build_with_baseline(&scenario, &text, &origin, &results, baseline);
             let mut paths = match output::write_all(&out, &report, force, &stopped) {
                 Ok(paths) => paths,
                 Err(output::OutputError::Interrupted) => return Err(interrupted()),

@@ -2,9 +2,12 @@
 //! same figures and computes nothing of its own.
 
 use crate::companion::SimulationCompanion;
+use crate::group_size::GroupSizeRow;
 use crate::run::RunResults;
 use crate::scenario::{Arm, Scenario};
 use crate::stats::compare::{self, ComparedArm};
+use crate::stats::replications::ReplicationFigures;
+use crate::stats::select::{self, Selection};
 use crate::stats::summary::{self, ArmSummary, CyclePoint};
 use serde::Serialize;
 use sha2::{Digest, Sha256};
@@ -28,6 +31,13 @@ pub struct ArmReport {
     pub closed_form_optimum: Option<f64>,
     /// Means over replications per counted cycle.
     pub time_series: Vec<CyclePoint>,
+    /// Whether the arm is on the efficient frontier of loss rate against served share (no other arm
+    /// loses at most as much and serves at least as many, one of the two strictly); `None` when the
+    /// arm lacks either figure.
+    pub on_frontier: Option<bool>,
+    /// Per-replication figures, in replication order (replications.csv, not summary.json).
+    #[serde(skip)]
+    pub replications: Vec<ReplicationFigures>,
 }
 
 /// Everything a run reports.
@@ -49,7 +59,15 @@ pub struct RunReport {
     pub analytic_out_of_class: Option<String>,
     /// The best arm, when there are at least two arms and one of them served a group.
     pub best: Option<BestArm>,
-    /// Every other arm against the first, paired by replication (common random numbers make
+    /// The end-of-run choice: best by group repayment, no constraint, and the arms not worse
+    /// (`None` with a single arm).
+    pub selection: Option<Selection>,
+    /// The best group size by simulation, closed form, exact value and loss, per combination of
+    /// the other swept keys, when group size is swept.
+    pub group_size: Option<Vec<GroupSizeRow>>,
+    /// The arm the differences are taken against (the first unless `--baseline` names another).
+    pub baseline: Option<String>,
+    /// Every other arm against the baseline, paired by replication (common random numbers make
     /// these intervals much narrower than the difference of two separate intervals).
     pub differences: Vec<ArmDifference>,
     /// Self-check findings and other notes the user should see.
@@ -66,8 +84,20 @@ pub fn sha256_hex(text: &str) -> String {
         .collect()
 }
 
-/// Assembles the report of a finished run.
+/// Assembles the report of a finished run, with differences against the first arm.
 pub fn build(scenario: &Scenario, scenario_text: &str, origin: &str, results: &RunResults) -> RunReport {
+    build_with_baseline(scenario, scenario_text, origin, results, 0)
+}
+
+/// Assembles the report of a finished run, with differences against arm `baseline` (0-based; an
+/// index past the last arm gives no differences).
+pub fn build_with_baseline(
+    scenario: &Scenario,
+    scenario_text: &str,
+    origin: &str,
+    results: &RunResults,
+    baseline: usize,
+) -> RunReport {
     let analytic = SimulationCompanion::new(scenario);
     let summaries: Vec<ArmSummary> = scenario
         .arms
@@ -87,7 +117,26 @@ pub fn build(scenario: &Scenario, scenario_text: &str, origin: &str, results: &R
         })
         .collect();
     let best = compare::best_arm(&compared);
-    let differences = compare::differences(&compared, 0);
+    let selection = (compared.len() > 1)
+        .then(|| select::select(&compared, compare::GROUP_REPAYMENT, compare::Direction::Maximize, &[]));
+    let frontier = on_frontier(
+        &summaries
+            .iter()
+            .map(|s| s.loss_rate.map(|l| l.rate).zip(s.served_share))
+            .collect::<Vec<_>>(),
+    );
+    let differences = compare::differences(&compared, baseline);
+    let group_size = crate::group_size::table(
+        scenario,
+        &compared,
+        &(0..compared.len())
+            .map(|i| analytic.group_repayment(i))
+            .collect::<Vec<_>>(),
+        &summaries
+            .iter()
+            .map(|s| s.loss_rate.map(|l| l.rate))
+            .collect::<Vec<_>>(),
+    );
     let arms: Vec<ArmReport> = scenario
         .arms
         .iter()
@@ -95,11 +144,13 @@ pub fn build(scenario: &Scenario, scenario_text: &str, origin: &str, results: &R
         .zip(summaries)
         .enumerate()
         .map(|(i, ((arm, tally), summary))| ArmReport {
+            on_frontier: frontier[i],
             arm: arm.clone(),
             summary,
             analytic_group_repayment: analytic.group_repayment(i),
             closed_form_optimum: analytic.closed_form_optimum(),
             time_series: summary::time_series(tally, scenario),
+            replications: tally.replications.iter().map(ReplicationFigures::from_tally).collect(),
         })
         .collect();
     RunReport {
@@ -111,8 +162,49 @@ pub fn build(scenario: &Scenario, scenario_text: &str, origin: &str, results: &R
         arms,
         analytic_out_of_class: analytic.out_of_class().map(str::to_string),
         best,
+        selection,
+        group_size,
+        baseline: scenario.arms().get(baseline).map(|a| a.label().to_string()),
         differences,
         warnings,
         caution: CAUTION.to_string(),
+    }
+}
+
+/// For each arm's (loss rate, served share), whether no other arm has a loss rate at most as high
+/// and a served share at least as high, with one of the two strictly better. `None` where an arm
+/// lacks either figure; such arms dominate nothing.
+pub fn on_frontier(points: &[Option<(f64, f64)>]) -> Vec<Option<bool>> {
+    points
+        .iter()
+        .map(|p| {
+            p.map(|(loss, served)| {
+                !points
+                    .iter()
+                    .flatten()
+                    .any(|&(l, s)| l <= loss && s >= served && (l < loss || s > served))
+            })
+        })
+        .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_frontier_keeps_arms_no_other_arm_beats_on_both_figures() {
+        let points = [
+            Some((0.02, 0.80)), // frontier: lowest loss
+            Some((0.03, 0.90)), // frontier: serves more
+            Some((0.03, 0.85)), // beaten by the arm above (same loss, serves less)
+            Some((0.05, 0.90)), // beaten: loses more for the same service
+            Some((0.02, 0.80)), // a copy of the first: neither is strictly better, both stay
+            None,
+        ];
+        assert_eq!(
+            on_frontier(&points),
+            [Some(true), Some(true), Some(false), Some(false), Some(true), None]
+        );
     }
 }

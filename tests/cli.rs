@@ -17,7 +17,7 @@ const BAD_INPUT: i32 = 2;
 
 /// The columns of summary.csv as users' scripts know them, spelled out here rather than taken from
 /// the writer, so a renamed or reordered column fails this file.
-const SUMMARY_COLUMNS: [&str; 42] = [
+const SUMMARY_COLUMNS: [&str; 46] = [
     "arm",
     "group_size",
     "liability",
@@ -54,15 +54,26 @@ const SUMMARY_COLUMNS: [&str; 42] = [
     "loss_es99",
     "loss_cycle_p99",
     "loss_cycle_p999",
+    "worst_cycle_loss_p50",
+    "worst_cycle_loss_p95",
+    "worst_cycle_loss_p99",
     "analytic_group_repayment",
     "dependence_ratio",
     "shortfall_icc",
     "closed_form_optimum",
     "group_repayment_se",
     "loss_rate_se",
+    "on_frontier",
 ];
 
-const OUTPUTS: [&str; 4] = ["differences.csv", "summary.csv", "summary.json", "timeseries.csv"];
+const OUTPUTS: [&str; 6] = [
+    "differences.csv",
+    "group_size.csv",
+    "replications.csv",
+    "summary.csv",
+    "summary.json",
+    "timeseries.csv",
+];
 
 const TIMESERIES_HEADER: [&str; 6] = [
     "arm",
@@ -178,7 +189,7 @@ fn dir_contents(dir: &Path) -> BTreeMap<String, Vec<u8>> {
         .collect()
 }
 
-/// Asserts the directory holds exactly the four outputs (no temporary or other stray files).
+/// Asserts the directory holds exactly the run's outputs (no temporary or other stray files).
 fn assert_only_outputs(dir: &Path) -> BTreeMap<String, Vec<u8>> {
     let contents = dir_contents(dir);
     let names: Vec<&str> = contents.keys().map(String::as_str).collect();
@@ -890,7 +901,7 @@ fn a_single_arm_run_names_no_best_arm() {
     );
     assert_eq!(
         read_text(&dir.join("differences.csv")),
-        "arm,reference_arm,metric,difference,se,ci_low,ci_high\n"
+        "arm,baseline,metric,difference,se,ci_low,ci_high,significant,se_ratio\n"
     );
 }
 

@@ -271,6 +271,34 @@ pub fn closed_form_optimum_scaled(curve: &GroupSizeCurve, scale: f64) -> Option<
     }
 }
 
+/// Largest group size [`best_integer_scaled`] considers for a parametric curve.
+pub const LARGEST_SIZE_SCANNED: u32 = 1000;
+
+/// The integer group size k >= 1 (from the curve's first defined size) that maximises the group
+/// repayment (1 - min(1, u phi(k)))^k of independent members without cover, with every member's
+/// probability scaled by the risk multiplier u; the smaller size on ties. A table curve is read at
+/// its keys; a parametric curve up to [`LARGEST_SIZE_SCANNED`]. `None` for a bad u or when no size
+/// repays at all.
+pub fn best_integer_scaled(curve: &GroupSizeCurve, scale: f64) -> Option<u32> {
+    if !(scale.is_finite() && scale >= 0.0) || validate_curve(curve).is_err() {
+        return None;
+    }
+    let sizes: Vec<u32> = match curve {
+        GroupSizeCurve::Table { values } => values.keys().copied().collect(),
+        _ => (1..=LARGEST_SIZE_SCANNED).collect(),
+    };
+    let mut best: Option<(u32, f64)> = None;
+    for k in sizes {
+        let Some(phi) = curve.at(k) else { continue };
+        let q = (scale * phi).min(1.0);
+        let log_repayment = f64::from(k) * (-q).ln_1p();
+        if log_repayment.is_finite() && best.is_none_or(|(_, b)| log_repayment > b) {
+            best = Some((k, log_repayment));
+        }
+    }
+    best.map(|b| b.0)
+}
+
 /// What to solve: a curve, optionally a band of its exponent, and the integer sizes to tabulate.
 #[derive(Debug, Clone, PartialEq)]
 pub struct OptimumRequest {

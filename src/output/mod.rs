@@ -10,7 +10,14 @@ use crate::report::RunReport;
 use std::path::{Path, PathBuf};
 
 /// Files a run writes into its output directory.
-pub const OUTPUT_FILES: [&str; 4] = ["summary.csv", "timeseries.csv", "differences.csv", "summary.json"];
+pub const OUTPUT_FILES: [&str; 6] = [
+    "summary.csv",
+    "timeseries.csv",
+    "differences.csv",
+    "replications.csv",
+    "group_size.csv",
+    "summary.json",
+];
 
 /// Why outputs could not be written.
 #[derive(Debug, thiserror::Error)]
@@ -125,7 +132,7 @@ pub fn abandon_destination(dir: &Path, created: bool) {
     }
 }
 
-/// Writes summary.csv, timeseries.csv, differences.csv and summary.json into `dir` (created if
+/// Writes summary.csv, timeseries.csv, differences.csv, replications.csv and summary.json into `dir` (created if
 /// missing). `stop` is asked once every file is staged and before the first is put in place: when
 /// it returns true the staged files are removed and no result changes.
 pub fn write_all(
@@ -136,12 +143,18 @@ pub fn write_all(
 ) -> Result<Vec<PathBuf>, OutputError> {
     prepare_destination(dir, force)?;
     // Render everything first so a rendering problem cannot leave a partial set of files.
-    let files = [
+    let mut files = vec![
         ("summary.csv", tables::summary_csv(report)),
         ("timeseries.csv", tables::timeseries_csv(report)),
         ("differences.csv", tables::differences_csv(report)),
-        ("summary.json", tables::summary_json(report)),
+        ("replications.csv", tables::replications_csv(report)),
     ];
+    let group_size = tables::group_size_csv(report);
+    let with_group_size = group_size.is_some();
+    if let Some(bytes) = group_size {
+        files.push(("group_size.csv", bytes));
+    }
+    files.push(("summary.json", tables::summary_json(report)));
     // All temporary files first; only when every one is complete are they renamed into place.
     let mut staged: Vec<(PathBuf, &str)> = Vec::new();
     for (name, bytes) in &files {
@@ -174,7 +187,30 @@ pub fn write_all(
         }
         written.push(final_path);
     }
+    if !with_group_size {
+        // An earlier run's table (replaced with --force) must not sit beside this run's files.
+        let stale = dir.join("group_size.csv");
+        if stale.exists() {
+            std::fs::remove_file(&stale).map_err(|e| io_error(&stale, e))?;
+        }
+    }
     Ok(written)
+}
+
+/// Replaces DIR/NAME with `bytes`: written under a temporary name, then renamed, so the file is
+/// either the old one or the whole new one.
+pub fn replace_file(dir: &Path, name: &str, bytes: &[u8]) -> Result<PathBuf, OutputError> {
+    let tmp = dir.join(format!(".{name}.partial-{}", std::process::id()));
+    let final_path = dir.join(name);
+    if let Err(e) = std::fs::write(&tmp, bytes) {
+        let _ = std::fs::remove_file(&tmp);
+        return Err(io_error(&tmp, e));
+    }
+    std::fs::rename(&tmp, &final_path).map_err(|e| {
+        let _ = std::fs::remove_file(&tmp);
+        io_error(&final_path, e)
+    })?;
+    Ok(final_path)
 }
 
 #[cfg(test)]

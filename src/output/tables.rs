@@ -122,12 +122,16 @@ pub struct SummaryRow<'a> {
     loss_es99: Cell,
     loss_cycle_p99: Cell,
     loss_cycle_p999: Cell,
+    worst_cycle_loss_p50: Cell,
+    worst_cycle_loss_p95: Cell,
+    worst_cycle_loss_p99: Cell,
     analytic_group_repayment: Cell,
     dependence_ratio: Cell,
     shortfall_icc: Cell,
     closed_form_optimum: Cell,
     group_repayment_se: Cell,
     loss_rate_se: Cell,
+    on_frontier: &'static str,
 }
 
 impl<'a> SummaryRow<'a> {
@@ -175,19 +179,126 @@ impl<'a> SummaryRow<'a> {
             loss_es99: Cell(s.loss_es99),
             loss_cycle_p99: Cell(s.loss_cycle_p99),
             loss_cycle_p999: Cell(s.loss_cycle_p999),
+            worst_cycle_loss_p50: Cell(s.worst_cycle_loss_p50),
+            worst_cycle_loss_p95: Cell(s.worst_cycle_loss_p95),
+            worst_cycle_loss_p99: Cell(s.worst_cycle_loss_p99),
             analytic_group_repayment: Cell(a.analytic_group_repayment),
             dependence_ratio: Cell(s.dependence_ratio),
             shortfall_icc: Cell(s.shortfall_icc),
             closed_form_optimum: Cell(a.closed_form_optimum),
             group_repayment_se,
             loss_rate_se,
+            on_frontier: match a.on_frontier {
+                Some(true) => "true",
+                Some(false) => "false",
+                None => "",
+            },
         }
     }
 }
 
-/// summary.csv: one row per arm.
+/// The header and records of serialised rows, so columns can be added beside a row struct's own.
+fn records<R: Serialize + Default>(rows: impl IntoIterator<Item = R>) -> (csv::StringRecord, Vec<csv::StringRecord>) {
+    let bytes = csv_bytes(rows);
+    let mut reader = csv::Reader::from_reader(bytes.as_slice());
+    let header = reader.headers().expect("in-memory csv").clone();
+    let rows = reader.records().map(|r| r.expect("in-memory csv")).collect();
+    (header, rows)
+}
+
+/// summary.csv: one row per arm. Each swept path that is not already a column (a `[policy]` field
+/// has its own) gets a column named by the path, after the policy columns, holding the arm's value
+/// as its label shows it.
 pub fn summary_csv(report: &RunReport) -> Vec<u8> {
-    csv_bytes(report.arms.iter().map(SummaryRow::new))
+    let (header, rows) = records(report.arms.iter().map(SummaryRow::new));
+    let extra: Vec<&String> = report
+        .scenario
+        .swept_paths()
+        .iter()
+        .filter(|p| !header.iter().any(|h| h == p.as_str()))
+        .collect();
+    let at = header
+        .iter()
+        .position(|h| h == "matching")
+        .map_or(header.len(), |i| i + 1);
+    let splice = |record: &csv::StringRecord, added: Vec<&str>| {
+        let mut out = csv::StringRecord::new();
+        record.iter().take(at).for_each(|f| out.push_field(f));
+        added.into_iter().for_each(|f| out.push_field(f));
+        record.iter().skip(at).for_each(|f| out.push_field(f));
+        out
+    };
+    let mut w = csv::Writer::from_writer(Vec::new());
+    w.write_record(&splice(&header, extra.iter().map(|p| p.as_str()).collect()))
+        .expect("in-memory csv");
+    for (a, record) in report.arms.iter().zip(&rows) {
+        let values = extra
+            .iter()
+            .map(|p| {
+                a.arm
+                    .swept()
+                    .iter()
+                    .find(|v| &v.path == *p)
+                    .map_or("", |v| v.value.as_str())
+            })
+            .collect();
+        w.write_record(&splice(record, values)).expect("in-memory csv");
+    }
+    w.into_inner().expect("in-memory csv")
+}
+
+/// One row of replications.csv: a replication's rates and the numerators and denominators behind
+/// them.
+#[derive(Debug, Default, Serialize)]
+struct ReplicationRow<'a> {
+    arm: &'a str,
+    replication: u32,
+    group_repayment_rate: Cell,
+    groups_repaid: u64,
+    group_cycles: u64,
+    loss_rate: Cell,
+    loss: Cell,
+    disbursed: Cell,
+    net_yield: Cell,
+    collected: Cell,
+    recovered: Cell,
+    served_share: Cell,
+    excluded_share: Cell,
+    served_slot_cycles: u64,
+    excluded_slot_cycles: u64,
+    slot_cycles: u64,
+    member_default_rate: Cell,
+    member_defaults: u64,
+    member_loans: u64,
+    worst_cycle_loss: Cell,
+}
+
+/// replications.csv: one row per arm and replication, in arm order then replication order.
+pub fn replications_csv(report: &RunReport) -> Vec<u8> {
+    csv_bytes(report.arms.iter().flat_map(|a| {
+        a.replications.iter().map(move |r| ReplicationRow {
+            arm: &a.arm.label,
+            replication: r.replication,
+            group_repayment_rate: Cell(r.group_repayment_rate()),
+            groups_repaid: r.groups_repaid,
+            group_cycles: r.group_cycles,
+            loss_rate: Cell(r.loss_rate()),
+            loss: Cell(Some(r.loss)),
+            disbursed: Cell(Some(r.disbursed)),
+            net_yield: Cell(r.net_yield()),
+            collected: Cell(Some(r.collected)),
+            recovered: Cell(Some(r.recovered)),
+            served_share: Cell(r.served_share()),
+            excluded_share: Cell(r.excluded_share()),
+            served_slot_cycles: r.served_slot_cycles,
+            excluded_slot_cycles: r.excluded_slot_cycles,
+            slot_cycles: r.slot_cycles,
+            member_default_rate: Cell(r.member_default_rate()),
+            member_defaults: r.member_defaults,
+            member_loans: r.member_loans,
+            worst_cycle_loss: Cell(r.worst_cycle_loss),
+        })
+    }))
 }
 
 /// One row of timeseries.csv.
@@ -219,24 +330,37 @@ pub fn timeseries_csv(report: &RunReport) -> Vec<u8> {
 #[derive(Debug, Default, Serialize)]
 struct DifferenceRow<'a> {
     arm: &'a str,
-    reference_arm: &'a str,
+    baseline: &'a str,
     metric: &'a str,
     difference: Cell,
     se: Cell,
     ci_low: Cell,
     ci_high: Cell,
+    significant: &'static str,
+    se_ratio: Cell,
 }
 
-/// differences.csv: every arm against the first, per figure, paired by replication.
+/// differences.csv: every arm against the run's baseline, per figure, paired by replication.
 pub fn differences_csv(report: &RunReport) -> Vec<u8> {
-    csv_bytes(report.differences.iter().map(|d| DifferenceRow {
+    difference_rows_csv(&report.differences)
+}
+
+/// differences.csv from a list of differences (what `compare --baseline` rewrites).
+pub fn difference_rows_csv(differences: &[crate::stats::compare::ArmDifference]) -> Vec<u8> {
+    csv_bytes(differences.iter().map(|d| DifferenceRow {
         arm: &d.arm,
-        reference_arm: &d.reference,
+        baseline: &d.baseline,
         metric: d.metric,
         difference: Cell(Some(d.difference)),
         se: Cell(d.standard_error),
         ci_low: Cell(d.ci_low),
         ci_high: Cell(d.ci_high),
+        significant: match d.significant {
+            Some(true) => "true",
+            Some(false) => "false",
+            None => "",
+        },
+        se_ratio: Cell(d.se_ratio),
     }))
 }
 
@@ -245,4 +369,35 @@ pub fn summary_json(report: &RunReport) -> Vec<u8> {
     let mut bytes = serde_json::to_vec_pretty(report).expect("report serialises: no maps with non-string keys");
     bytes.push(b'\n');
     bytes
+}
+
+/// A selection as one JSON object and a newline (what `compare --json` prints, alone, on stdout).
+pub fn selection_json(selection: &crate::stats::select::Selection) -> String {
+    let mut text = serde_json::to_string_pretty(selection).expect("a selection serialises");
+    text.push('\n');
+    text
+}
+
+/// One row of group_size.csv.
+#[derive(Debug, Default, Serialize)]
+struct GroupSizeCsvRow<'a> {
+    context: &'a str,
+    best_simulated: Option<u32>,
+    not_worse: String,
+    best_closed_form: Option<u32>,
+    best_exact: Option<u32>,
+    best_by_loss: Option<u32>,
+}
+
+/// group_size.csv, when group size is swept: one row per combination of the other swept keys.
+pub fn group_size_csv(report: &RunReport) -> Option<Vec<u8>> {
+    let rows = report.group_size.as_ref()?;
+    Some(csv_bytes(rows.iter().map(|r| GroupSizeCsvRow {
+        context: &r.context,
+        best_simulated: r.best_simulated,
+        not_worse: r.not_worse.iter().map(u32::to_string).collect::<Vec<_>>().join(";"),
+        best_closed_form: r.best_closed_form,
+        best_exact: r.best_exact,
+        best_by_loss: r.best_by_loss,
+    })))
 }

@@ -38,15 +38,15 @@ pub fn summary_table(report: &RunReport) -> String {
     let width = report.arms.iter().map(|a| a.arm.label.len()).max().unwrap_or(3).max(3);
     let _ = writeln!(
         out,
-        "{:<width$}  {:>18}  {:>9}  {:>9}  {:>9}  {:>10}  {:>18}  {:>9}  {:>9}  {:>9}",
+        "{:<width$}  {:>18}  {:>9}  {:>9}  {:>12}  {:>10}  {:>18}  {:>11}  {:>9}  {:>9}",
         "arm",
         "group repaid (95%)",
         "exact",
         "no-short",
-        "if indep.",
+        "indep. pred.",
         "dep. ratio",
         "loss rate (95%)",
-        "loss p99",
+        "horizon p99",
         "served",
         "excluded"
     );
@@ -60,7 +60,7 @@ pub fn summary_table(report: &RunReport) -> String {
             .map_or("-".into(), |l| with_interval(l.rate, l.standard_error, 3, "%", false));
         let _ = writeln!(
             out,
-            "{:<width$}  {:>18}  {:>9}  {:>9}  {:>9}  {:>10}  {:>18}  {:>9}  {:>9}  {:>9}",
+            "{:<width$}  {:>18}  {:>9}  {:>9}  {:>12}  {:>10}  {:>18}  {:>11}  {:>9}  {:>9}",
             a.arm.label,
             g,
             pct(a.analytic_group_repayment),
@@ -75,21 +75,22 @@ pub fn summary_table(report: &RunReport) -> String {
     }
     let _ = writeln!(
         out,
-        "no-short: groups with no member short; if indep.: (1 - member shortfall rate)^k, what \
-         independent members would give; dep. ratio: no-short / if indep. (1 for independent members)"
+        "no-short: groups with no member short; indep. pred.: (1 - member shortfall rate)^k, a \
+         prediction under independence, not a forecast that failed; dep. ratio: no-short / indep. pred. \
+         (1 for independent members); horizon p99: 99% quantile of each replication's loss rate over its \
+         whole horizon (worst_cycle_loss_p95 in summary.csv is the worst single cycle)"
     );
-    if report.arms.len() > 1 {
+    if let (true, Some(baseline)) = (report.arms.len() > 1, &report.baseline) {
         let _ = writeln!(
             out,
-            "differences from the first arm ({}), paired by replication, 95%:",
-            report.arms[0].arm.label
+            "differences from the baseline arm ({baseline}), paired by replication, 95%:"
         );
         let _ = writeln!(
             out,
             "{:<width$}  {:>22}  {:>22}  {:>22}",
             "arm", "group repaid (pp)", "loss rate (pp)", "served share (pp)"
         );
-        for a in &report.arms[1..] {
+        for a in report.arms.iter().filter(|a| a.arm.label() != baseline.as_str()) {
             let show = |metric: &str| {
                 report
                     .differences
@@ -113,27 +114,93 @@ pub fn summary_table(report: &RunReport) -> String {
     if let Some(reason) = &report.analytic_out_of_class {
         let _ = writeln!(out, "exact values: none, outside the one-factor class ({reason})");
     }
+    if let Some(rows) = &report.group_size {
+        let width = rows.iter().map(|r| r.context.len()).max().unwrap_or(0).max(7);
+        let cell = |k: Option<u32>| k.map_or_else(|| "-".to_string(), |k| k.to_string());
+        let _ = writeln!(out, "best group size (group_size.csv):");
+        let _ = writeln!(
+            out,
+            "{:<width$}  {:>9}  {:>14}  {:>11}  {:>6}  {:>7}",
+            "context", "simulated", "not worse", "closed form", "exact", "by loss"
+        );
+        for r in rows {
+            let sizes: Vec<String> = r.not_worse.iter().map(u32::to_string).collect();
+            let context = if r.context.is_empty() { "(all arms)" } else { &r.context };
+            let _ = writeln!(
+                out,
+                "{:<width$}  {:>9}  {:>14}  {:>11}  {:>6}  {:>7}",
+                context,
+                cell(r.best_simulated),
+                sizes.join(";"),
+                cell(r.best_closed_form),
+                cell(r.best_exact),
+                cell(r.best_by_loss)
+            );
+        }
+        for sentence in rows.iter().flat_map(|r| &r.sentences) {
+            let _ = writeln!(out, "{sentence}");
+        }
+    }
     // With one arm there is nothing to choose, so no best-arm line.
-    if let Some(b) = &report.best {
-        let _ = writeln!(
-            out,
-            "best arm by group repayment: {} (group size {})",
-            b.label, b.group_size
-        );
-        let sizes: Vec<String> = b.confidence_set_group_sizes.iter().map(|k| k.to_string()).collect();
-        let _ = writeln!(
-            out,
-            "not significantly worse (paired by replication, 95%, Bonferroni): {} (group sizes {})",
-            b.confidence_set.join("; "),
-            sizes.join(", ")
-        );
-    } else if report.arms.len() > 1 {
-        let _ = writeln!(out, "no arm served any group in its counted cycles");
+    if let Some(sel) = &report.selection {
+        let size = |label: &str| {
+            report
+                .arms
+                .iter()
+                .find(|a| a.arm.label() == label)
+                .map_or(0, |a| a.arm.policy().group_size)
+        };
+        match &sel.best {
+            Some(best) => {
+                let _ = writeln!(out, "best arm by group repayment: {best} (group size {})", size(best));
+                let mut sizes: Vec<u32> = sel.not_worse.iter().map(|l| size(l)).collect();
+                sizes.sort_unstable();
+                sizes.dedup();
+                let sizes: Vec<String> = sizes.iter().map(u32::to_string).collect();
+                let _ = writeln!(
+                    out,
+                    "not significantly worse (paired by replication, 95%, Bonferroni): {} (group sizes {})",
+                    sel.not_worse.join("; "),
+                    sizes.join(", ")
+                );
+                for note in &sel.notes {
+                    let _ = writeln!(out, "{note}");
+                }
+            }
+            None => {
+                let _ = writeln!(out, "no arm served any group in its counted cycles");
+            }
+        }
     }
     for w in &report.warnings {
         let _ = writeln!(out, "warning: {w}");
     }
     let _ = writeln!(out, "{}", report.caution);
+    out
+}
+
+/// A selection in plain lines: the objective, constraints, feasible arms, best, not worse, notes.
+pub fn selection_text(s: &crate::stats::select::Selection) -> String {
+    let mut out = String::new();
+    let list = |v: &[String]| if v.is_empty() { "none".to_string() } else { v.join("; ") };
+    let _ = writeln!(out, "objective: {}", s.objective);
+    if !s.constraints.is_empty() {
+        let _ = writeln!(
+            out,
+            "subject to (each met with 95% one-sided confidence, Bonferroni over arms x constraints): {}",
+            s.constraints.join(", ")
+        );
+        let _ = writeln!(out, "feasible: {}", list(&s.feasible));
+    }
+    let _ = writeln!(out, "best: {}", s.best.as_deref().unwrap_or("none"));
+    let _ = writeln!(
+        out,
+        "not significantly worse (paired by replication, one-sided 5%, Bonferroni): {}",
+        list(&s.not_worse)
+    );
+    for note in &s.notes {
+        let _ = writeln!(out, "{note}");
+    }
     out
 }
 

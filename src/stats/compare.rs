@@ -34,13 +34,13 @@ pub const COMPARED: [Metric; 5] = [
     }),
 ];
 
-/// One arm's difference from the reference arm on one figure, paired by replication.
+/// One arm's difference from the baseline arm on one figure, paired by replication.
 #[derive(Debug, Clone, Serialize)]
 pub struct ArmDifference {
     /// The arm compared.
     pub arm: String,
-    /// The reference arm.
-    pub reference: String,
+    /// The baseline arm.
+    pub baseline: String,
     /// Which figure: group_repayment_rate, loss_rate, net_yield, served_share or excluded_share.
     pub metric: &'static str,
     /// arm's pooled figure minus the reference's.
@@ -51,6 +51,11 @@ pub struct ArmDifference {
     pub ci_low: Option<f64>,
     /// See `ci_low`.
     pub ci_high: Option<f64>,
+    /// Whether the 95% interval excludes 0 (`None` without an interval).
+    pub significant: Option<bool>,
+    /// The paired standard error over the unpaired one, sqrt(se_arm^2 + se_baseline^2): how much
+    /// common random numbers narrowed the comparison (`None` when either is missing or both are 0).
+    pub se_ratio: Option<f64>,
 }
 
 /// The best arm by group repayment and the arms not significantly worse.
@@ -89,31 +94,61 @@ pub fn paired(a: &ArmTally, b: &ArmTally, metric: Metric) -> Option<RatioEstimat
     estimate::paired_ratio_difference(&pairs(a, metric), &pairs(b, metric))
 }
 
-/// Every other arm against arm `reference` on each figure of [`COMPARED`], in arm order.
-pub fn differences(arms: &[ComparedArm], reference: usize) -> Vec<ArmDifference> {
-    let Some(base) = arms.get(reference) else {
+/// The standard error of one arm's pooled figure on its own.
+fn own_se(tally: &ArmTally, metric: Metric) -> Option<f64> {
+    estimate::ratio(pairs(tally, metric)).and_then(|r| r.standard_error)
+}
+
+/// Every other arm against arm `baseline` on each figure of [`COMPARED`], in arm order.
+pub fn differences(arms: &[ComparedArm], baseline: usize) -> Vec<ArmDifference> {
+    let Some(base) = arms.get(baseline) else {
         return Vec::new();
     };
     let mut out = Vec::new();
     for (i, arm) in arms.iter().enumerate() {
-        if i == reference {
+        if i == baseline {
             continue;
         }
         for metric in COMPARED {
             if let Some(d) = paired(arm.tally, base.tally, metric) {
+                let unpaired = match (own_se(arm.tally, metric), own_se(base.tally, metric)) {
+                    (Some(a), Some(b)) => Some((a * a + b * b).sqrt()),
+                    _ => None,
+                };
+                let (ci_low, ci_high) = (d.ci_low(), d.ci_high());
                 out.push(ArmDifference {
                     arm: arm.label.to_string(),
-                    reference: base.label.to_string(),
+                    baseline: base.label.to_string(),
                     metric: metric.0,
                     difference: d.rate,
                     standard_error: d.standard_error,
-                    ci_low: d.ci_low(),
-                    ci_high: d.ci_high(),
+                    ci_low,
+                    ci_high,
+                    significant: ci_low.zip(ci_high).map(|(lo, hi)| lo > 0.0 || hi < 0.0),
+                    se_ratio: d
+                        .standard_error
+                        .zip(unpaired)
+                        .and_then(|(se, u)| (u > 0.0).then(|| se / u)),
                 });
             }
         }
     }
     out
+}
+
+/// The arm a user names, by label or by index counted from 1 (as `check` lists them). The error
+/// says what was given and what is allowed.
+pub fn resolve_arm(labels: &[&str], given: &str) -> Result<usize, String> {
+    if let Some(i) = labels.iter().position(|l| *l == given) {
+        return Ok(i);
+    }
+    match given.trim().parse::<usize>() {
+        Ok(i) if (1..=labels.len()).contains(&i) => Ok(i - 1),
+        _ => Err(format!(
+            "`{given}` is not an arm: give an arm's label or its number from 1 to {} as `check` lists them",
+            labels.len()
+        )),
+    }
 }
 
 /// Which way a figure is better.
@@ -275,10 +310,23 @@ mod tests {
         ];
         let d = differences(&arms(&list), 0);
         let g = d.iter().find(|d| d.metric == "group_repayment_rate").unwrap();
-        assert_eq!((g.arm.as_str(), g.reference.as_str()), ("b", "a"));
+        assert_eq!((g.arm.as_str(), g.baseline.as_str()), ("b", "a"));
+        assert_eq!(g.significant, Some(true));
         assert!((g.difference - 0.05).abs() < 1e-15);
         assert!(g.standard_error.unwrap() < 1e-15);
         assert!(d.iter().all(|d| d.arm == "b"));
+    }
+
+    #[test]
+    fn arms_are_named_by_label_or_by_number_from_one() {
+        let labels = ["base", "group_size=4", "7"];
+        assert_eq!(resolve_arm(&labels, "group_size=4"), Ok(1));
+        assert_eq!(resolve_arm(&labels, "1"), Ok(0));
+        // A label wins over a number that spells the same text.
+        assert_eq!(resolve_arm(&labels, "7"), Ok(2));
+        assert!(resolve_arm(&labels, "0").unwrap_err().contains("from 1 to 3"));
+        assert!(resolve_arm(&labels, "4").is_err());
+        assert!(resolve_arm(&labels, "size").unwrap_err().contains("`size`"));
     }
 
     #[test]

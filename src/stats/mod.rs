@@ -8,6 +8,8 @@
 
 pub mod compare;
 pub mod estimate;
+pub mod replications;
+pub mod select;
 pub mod summary;
 pub mod tally;
 pub mod tolerance;

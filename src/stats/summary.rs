@@ -62,6 +62,13 @@ pub struct ArmSummary {
     pub loss_cycle_p99: Option<f64>,
     /// See `loss_cycle_p99`.
     pub loss_cycle_p999: Option<f64>,
+    /// Median over replications of the replication's worst single-cycle loss rate.
+    pub worst_cycle_loss_p50: Option<f64>,
+    /// 95% quantile over replications of the worst single-cycle loss rate: the worst period in a
+    /// bad year, as a risk officer quotes it.
+    pub worst_cycle_loss_p95: Option<f64>,
+    /// See `worst_cycle_loss_p95`.
+    pub worst_cycle_loss_p99: Option<f64>,
     /// Intra-group correlation of member shortfalls (beta-binomial moment estimator).
     pub shortfall_icc: Option<f64>,
 }
@@ -149,6 +156,11 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
         })
         .collect();
     let cycle_losses = estimate::sorted(&cycle_losses);
+    let worst: Vec<f64> = reps
+        .iter()
+        .filter_map(crate::stats::replications::worst_cycle_loss)
+        .collect();
+    let worst = estimate::sorted(&worst);
     ArmSummary {
         replications: reps.len() as u64,
         replications_without_lending: reps.iter().filter(|r| r.loss_rate().is_none()).count() as u64,
@@ -176,6 +188,9 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
         loss_es99: estimate::expected_shortfall_sorted(&rep_losses, 0.99),
         loss_cycle_p99: estimate::quantile_sorted(&cycle_losses, 0.99),
         loss_cycle_p999: estimate::quantile_sorted(&cycle_losses, 0.999),
+        worst_cycle_loss_p50: estimate::quantile_sorted(&worst, 0.5),
+        worst_cycle_loss_p95: estimate::quantile_sorted(&worst, 0.95),
+        worst_cycle_loss_p99: estimate::quantile_sorted(&worst, 0.99),
         shortfall_icc: shortfall_icc(tally, group_size),
     }
 }

@@ -1,0 +1,136 @@
+//! The modeller's question answered directly: which group size is best, by simulation, by the
+//! closed form and by the exact one-factor value, at every level of the other swept keys, and a plain
+//! sentence when they disagree (so a shift of the best size is read, not guessed by eye).
+
+use crate::analytic::optimum;
+use crate::scenario::{Scenario, ShockProbability, ShockScope};
+use crate::stats::compare::{self, ComparedArm, Direction};
+use crate::stats::select;
+use serde::Serialize;
+
+/// One row of group_size.csv: one combination of the other swept keys.
+#[derive(Debug, Clone, Serialize)]
+pub struct GroupSizeRow {
+    /// The other keys' values as in arm labels (`key=value,...`), empty when group size is the
+    /// only swept key.
+    pub context: String,
+    /// The swept size with the highest simulated group repayment.
+    pub best_simulated: Option<u32>,
+    /// Sizes not significantly worse than it (paired by replication, one-sided 5%, Bonferroni).
+    pub not_worse: Vec<u32>,
+    /// The best integer size of the closed form (independent members, no cover) for the arm's
+    /// curve with its mean risk multiplier, over all sizes, swept or not.
+    pub best_closed_form: Option<u32>,
+    /// The swept size with the highest exact one-factor group repayment, when every arm of the
+    /// context is in that class.
+    pub best_exact: Option<u32>,
+    /// The swept size with the lowest simulated loss rate.
+    pub best_by_loss: Option<u32>,
+    /// Plain sentences where the figures disagree.
+    pub sentences: Vec<String>,
+}
+
+/// The table, when group size is swept; `None` otherwise. `exact[i]` and `loss[i]` are arm i's
+/// exact group repayment and simulated loss rate.
+pub fn table(
+    scenario: &Scenario,
+    arms: &[ComparedArm],
+    exact: &[Option<f64>],
+    loss: &[Option<f64>],
+) -> Option<Vec<GroupSizeRow>> {
+    if !scenario.swept_paths().iter().any(|p| p == "group_size") {
+        return None;
+    }
+    let context_of = |i: usize| {
+        scenario.arms()[i]
+            .swept()
+            .iter()
+            .filter(|v| v.path != "group_size")
+            .map(|v| format!("{}={}", v.path, v.value))
+            .collect::<Vec<_>>()
+            .join(",")
+    };
+    let mut contexts: Vec<(String, Vec<usize>)> = Vec::new();
+    for i in 0..arms.len() {
+        let c = context_of(i);
+        match contexts.iter_mut().find(|(k, _)| *k == c) {
+            Some((_, list)) => list.push(i),
+            None => contexts.push((c, vec![i])),
+        }
+    }
+    let size = |i: usize| scenario.arms()[i].policy().group_size;
+    let mut rows = Vec::new();
+    for (context, members) in contexts {
+        let sub: Vec<ComparedArm> = members.iter().map(|&i| arms[i]).collect();
+        let chosen = select::select(&sub, compare::GROUP_REPAYMENT, Direction::Maximize, &[]);
+        let size_of_label = |l: &str| members.iter().find(|&&i| arms[i].label == l).map(|&i| size(i));
+        let best_simulated = chosen.best.as_deref().and_then(size_of_label);
+        let mut not_worse: Vec<u32> = chosen.not_worse.iter().filter_map(|l| size_of_label(l)).collect();
+        not_worse.sort_unstable();
+        not_worse.dedup();
+        let arm = &scenario.arms()[members[0]];
+        let best_closed_form = arm
+            .shocks()
+            .iter()
+            .find_map(|s| match (s.scope(), s.probability()) {
+                (ShockScope::Member, ShockProbability::Curve(c)) => Some(c),
+                _ => None,
+            })
+            .and_then(|c| optimum::best_integer_scaled(c, arm.risk().mean()));
+        let pick = |values: &dyn Fn(usize) -> Option<f64>, higher: bool| {
+            let vals: Option<Vec<(usize, f64)>> = members.iter().map(|&i| values(i).map(|v| (i, v))).collect();
+            vals?
+                .into_iter()
+                .fold(None, |acc: Option<(usize, f64)>, (i, v)| match acc {
+                    Some((_, b)) if (higher && b >= v) || (!higher && b <= v) => acc,
+                    _ => Some((i, v)),
+                })
+                .map(|(i, _)| size(i))
+        };
+        let best_exact = pick(&|i| exact[i], true);
+        let best_by_loss = pick(&|i| loss[i], false);
+        let mut sentences = Vec::new();
+        let at = if context.is_empty() {
+            String::new()
+        } else {
+            format!("at {context}, ")
+        };
+        if let (Some(c), Some(e)) = (best_closed_form, best_exact)
+            && c != e
+        {
+            sentences.push(format!(
+                "{at}correlation and peer cover move the best size from {c} (closed form) to {e} (exact)"
+            ));
+        }
+        if let (Some(from), Some(s)) = (best_exact.or(best_closed_form), best_simulated)
+            && from != s
+            && !not_worse.contains(&from)
+        {
+            let what = if best_exact.is_some() {
+                "exact value"
+            } else {
+                "closed form"
+            };
+            sentences.push(format!(
+                "{at}the rest of the model moves the best size from {from} ({what}) to {s} (simulated)"
+            ));
+        }
+        if let (Some(s), Some(l)) = (best_simulated, best_by_loss)
+            && s != l
+        {
+            sentences.push(format!(
+                    "{at}by loss rate the best size is {l}, not {s}: a defaulting group still collects from members who were not hit"
+                ));
+        }
+        rows.push(GroupSizeRow {
+            context,
+            best_simulated,
+            not_worse,
+            best_closed_form,
+            best_exact,
+            best_by_loss,
+            sentences,
+        });
+    }
+    Some(rows)
+}

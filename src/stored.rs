@@ -1,0 +1,201 @@
+//! A finished run read back from its own files, so comparisons and selections can be redone
+//! without simulating again: summary.json gives the arms (labels, swept values, group sizes) in
+//! order, and replications.csv gives each replication's numerators and denominators.
+
+use crate::stats::ArmTally;
+use crate::stats::compare::ComparedArm;
+use crate::stats::replications::ReplicationFigures;
+use serde_json::Value;
+use std::path::{Path, PathBuf};
+
+/// One arm of a stored run.
+#[derive(Debug, Clone)]
+pub struct StoredArm {
+    /// The arm's label.
+    pub label: String,
+    /// Its group size.
+    pub group_size: u32,
+    /// Its swept values as (path, value as labels show it), in `[sweep]` order.
+    pub swept: Vec<(String, String)>,
+    /// Its replications, rebuilt from replications.csv.
+    pub tally: ArmTally,
+}
+
+/// A run directory's arms and replications.
+#[derive(Debug, Clone)]
+pub struct StoredRun {
+    /// The directory read.
+    pub dir: PathBuf,
+    /// The arms, in arm order.
+    pub arms: Vec<StoredArm>,
+}
+
+/// Why a run directory cannot be read; always the user's input at fault (exit 2).
+#[derive(Debug, thiserror::Error)]
+#[error("{path}: {reason}")]
+pub struct StoredError {
+    /// The file at fault.
+    pub path: String,
+    /// What is wrong with it, and what is needed.
+    pub reason: String,
+}
+
+fn bad(path: &Path, reason: impl Into<String>) -> StoredError {
+    StoredError {
+        path: path.display().to_string(),
+        reason: reason.into(),
+    }
+}
+
+impl StoredRun {
+    /// Reads DIR/summary.json and DIR/replications.csv.
+    pub fn read(dir: &Path) -> Result<StoredRun, StoredError> {
+        let json_path = dir.join("summary.json");
+        let text = std::fs::read_to_string(&json_path).map_err(|e| {
+            bad(
+                &json_path,
+                format!(
+                    "cannot be read ({}); give the output directory of a finished run",
+                    e.to_string().to_lowercase()
+                ),
+            )
+        })?;
+        let v: Value = serde_json::from_str(&text).map_err(|e| bad(&json_path, format!("is not valid JSON ({e})")))?;
+        let list = v
+            .get("arms")
+            .and_then(Value::as_array)
+            .ok_or_else(|| bad(&json_path, "has no `arms` list; is it a run's summary.json?"))?;
+        let mut arms = Vec::with_capacity(list.len());
+        for (i, a) in list.iter().enumerate() {
+            let label = a
+                .get("label")
+                .and_then(Value::as_str)
+                .ok_or_else(|| bad(&json_path, format!("arm {} has no label", i + 1)))?;
+            let group_size = a
+                .pointer("/policy/group_size")
+                .and_then(Value::as_u64)
+                .and_then(|k| u32::try_from(k).ok())
+                .ok_or_else(|| bad(&json_path, format!("arm {label} has no policy.group_size")))?;
+            let swept = a
+                .get("swept")
+                .and_then(Value::as_array)
+                .map(|s| {
+                    s.iter()
+                        .filter_map(|x| {
+                            Some((
+                                x.get("path")?.as_str()?.to_string(),
+                                x.get("value")?.as_str()?.to_string(),
+                            ))
+                        })
+                        .collect()
+                })
+                .unwrap_or_default();
+            arms.push(StoredArm {
+                label: label.to_string(),
+                group_size,
+                swept,
+                tally: ArmTally::default(),
+            });
+        }
+        let csv_path = dir.join("replications.csv");
+        let mut reader = csv::Reader::from_path(&csv_path).map_err(|e| {
+            bad(
+                &csv_path,
+                format!("cannot be read ({e}); it is written by `run` from this version on"),
+            )
+        })?;
+        for (line, row) in reader.deserialize::<ReplicationRecord>().enumerate() {
+            let row = row.map_err(|e| bad(&csv_path, format!("row {}: {e}", line + 1)))?;
+            let arm = arms.iter_mut().find(|a| a.label == row.arm).ok_or_else(|| {
+                bad(
+                    &csv_path,
+                    format!("row {}: arm `{}` is not in summary.json", line + 1, row.arm),
+                )
+            })?;
+            let number = row.replication;
+            if number == 0 || arm.tally.replications.iter().any(|r| r.replication + 1 == number) {
+                return Err(bad(
+                    &csv_path,
+                    format!(
+                        "row {}: replication {number} of arm `{}` is 0 or repeated",
+                        line + 1,
+                        row.arm
+                    ),
+                ));
+            }
+            arm.tally.push(row.figures().to_tally());
+        }
+        let n = arms.first().map_or(0, |a| a.tally.len());
+        if let Some(a) = arms.iter().find(|a| a.tally.len() != n || n == 0) {
+            return Err(bad(
+                &csv_path,
+                format!(
+                    "arm `{}` has {} replications where the first arm has {n}; every arm needs the same replications, at least one",
+                    a.label,
+                    a.tally.len()
+                ),
+            ));
+        }
+        Ok(StoredRun {
+            dir: dir.to_path_buf(),
+            arms,
+        })
+    }
+
+    /// The arms as the comparisons see them.
+    pub fn compared(&self) -> Vec<ComparedArm<'_>> {
+        self.arms
+            .iter()
+            .map(|a| ComparedArm {
+                label: &a.label,
+                group_size: a.group_size,
+                tally: &a.tally,
+            })
+            .collect()
+    }
+
+    /// The arms' labels, in order.
+    pub fn labels(&self) -> Vec<&str> {
+        self.arms.iter().map(|a| a.label.as_str()).collect()
+    }
+}
+
+/// One row of replications.csv as read back: the columns the comparisons need, by name (csv
+/// cannot read numbers through a flattened struct, so they are listed here).
+#[derive(serde::Deserialize)]
+struct ReplicationRecord {
+    arm: String,
+    replication: u32,
+    groups_repaid: u64,
+    group_cycles: u64,
+    member_loans: u64,
+    member_defaults: u64,
+    loss: f64,
+    disbursed: f64,
+    collected: f64,
+    recovered: f64,
+    served_slot_cycles: u64,
+    excluded_slot_cycles: u64,
+    slot_cycles: u64,
+    worst_cycle_loss: Option<f64>,
+}
+
+impl ReplicationRecord {
+    fn figures(&self) -> ReplicationFigures {
+        ReplicationFigures {
+            replication: self.replication,
+            groups_repaid: self.groups_repaid,
+            group_cycles: self.group_cycles,
+            member_loans: self.member_loans,
+            member_defaults: self.member_defaults,
+            loss: self.loss,
+            disbursed: self.disbursed,
+            collected: self.collected,
+            recovered: self.recovered,
+            served_slot_cycles: self.served_slot_cycles,
+            excluded_slot_cycles: self.excluded_slot_cycles,
+            slot_cycles: self.slot_cycles,
+            worst_cycle_loss: self.worst_cycle_loss,
+        }
+    }
+}
