@@ -178,3 +178,199 @@ fn run_puts_exact_values_beside_simulated_ones_without_self_check_warnings() {
         assert!(arm["closed_form_optimum"].as_f64().is_some());
     }
 }
+
+/// A portfolio of 20 villages with a member shock correlated by village and portfolio, a drought
+/// whose strike probability rises in cycles 4-5, and two arms (individual and joint liability).
+const PORTFOLIO: &str = r#"
+name = "Riverside lenders: portfolio law"
+replications = 10
+cycles = 8
+[portfolio]
+borrowers = 2000
+villages = 20
+[loan]
+principal = 100
+interest_rate = 0.1
+[borrowers]
+income = 1.2
+[[shock]]
+name = "illness"
+scope = "member"
+probability = 0.04
+village_correlation = 0.1
+portfolio_correlation = 0.05
+severity = 1.0
+[[shock]]
+name = "drought"
+scope = "village"
+probability = 0.05
+reach = 0.5
+severity = 0.5
+stress = [{ from = 4, to = 5, probability = 0.4 }]
+[policy]
+group_size = 5
+[sweep]
+liability = ["individual", "joint"]
+"#;
+
+fn write(dir: &tempfile::TempDir, name: &str, text: &str) -> String {
+    let path = dir.path().join(name);
+    std::fs::write(&path, text).unwrap();
+    path.to_str().unwrap().to_string()
+}
+
+fn law_matches(json: &serde_json::Value, law: &loancycle::analytic::portfolio_law::PortfolioDefaultLaw) {
+    let close = |key: &str, v: &serde_json::Value, x: f64| {
+        let got = v.as_f64().unwrap_or_else(|| panic!("{key} is a number: {v}"));
+        assert!((got - x).abs() <= 1e-12 * x.abs().max(1.0), "{key}: {got} vs {x}");
+    };
+    assert_eq!(json["unit"], law.unit.as_str());
+    assert_eq!(json["units"].as_u64(), Some(law.units));
+    assert_eq!(json["cycles"], law.cycles.as_str());
+    close("mean", &json["mean"], law.mean);
+    close("es99", &json["es99"], law.es99);
+    for q in ["0.95", "0.99", "0.995", "0.999"] {
+        close(q, &json["quantiles"][q], law.quantiles[q]);
+        close(
+            q,
+            &json["large_portfolio_quantiles"][q],
+            law.large_portfolio_quantiles[q],
+        );
+    }
+}
+
+#[test]
+fn analyze_json_carries_the_portfolio_law_of_every_arm_and_stress_state() {
+    let dir = tempfile::tempdir().unwrap();
+    let file = write(&dir, "portfolio.toml", PORTFOLIO);
+    let out = loancycle(&["analyze", &file, "--json"]);
+    // One JSON object and nothing else on stdout.
+    let v = json(&out);
+    assert!(v.is_object());
+    let scenario = loancycle::scenario::Scenario::from_toml_str(PORTFOLIO, "portfolio.toml").expect("valid");
+    let laws = loancycle::analytic::portfolio_law::portfolio_default_laws(&scenario);
+    let first = laws[0].portfolio_default_law.as_ref().expect("in class");
+    assert_eq!(first.unit, "member loans");
+    assert_eq!(first.units, 2000);
+    law_matches(&v["portfolio_default_law"], first);
+    assert!(v["portfolio_out_of_class"].is_null());
+    let stress = v["stress_laws"].as_array().expect("stress laws");
+    assert_eq!(stress.len(), 1);
+    assert_eq!(stress[0]["cycles"], "4-5");
+    law_matches(&stress[0], &laws[0].stress_laws[0]);
+    let arms = v["arms"].as_array().expect("arms");
+    assert_eq!(arms.len(), 2);
+    for (arm, law) in arms.iter().zip(&laws) {
+        assert_eq!(arm["label"], law.label.as_str());
+        law_matches(
+            &arm["portfolio_default_law"],
+            law.portfolio_default_law.as_ref().unwrap(),
+        );
+        law_matches(&arm["stress_laws"][0], &law.stress_laws[0]);
+    }
+    assert_eq!(arms[1]["portfolio_default_law"]["unit"], "group loans");
+    assert_eq!(arms[1]["portfolio_default_law"]["units"].as_u64(), Some(400));
+    // The one-factor section's Basel yardstick is kept at the top level.
+    assert!(v["basel"]["capital_requirement"].as_f64().is_some());
+}
+
+#[test]
+fn analyze_table_shows_exact_and_large_portfolio_quantiles_side_by_side() {
+    let dir = tempfile::tempdir().unwrap();
+    let file = write(&dir, "portfolio.toml", PORTFOLIO);
+    let out = loancycle(&["analyze", &file]);
+    assert!(out.status.success());
+    let text = String::from_utf8_lossy(&out.stdout);
+    let scenario = loancycle::scenario::Scenario::from_toml_str(PORTFOLIO, "portfolio.toml").expect("valid");
+    let laws = loancycle::analytic::portfolio_law::portfolio_default_laws(&scenario);
+    let law = laws[0].portfolio_default_law.as_ref().unwrap();
+    assert!(text.contains("liability=individual: 2000 member loans"), "{text}");
+    let row = |name: &str, nth: usize| -> Vec<f64> {
+        text.lines()
+            .filter(|l| l.trim_start().starts_with(name))
+            .nth(nth)
+            .unwrap_or_else(|| panic!("row {name} in {text}"))
+            .split_whitespace()
+            .filter_map(|w| w.parse().ok())
+            .collect()
+    };
+    // First arm, normal cycles: mean, four quantiles and ES99, printed to six decimals.
+    let exact = row("exact", 0);
+    let expected = [
+        law.mean,
+        law.quantiles["0.95"],
+        law.quantiles["0.99"],
+        law.quantiles["0.995"],
+        law.quantiles["0.999"],
+        law.es99,
+    ];
+    assert_eq!(exact.len(), 6, "{text}");
+    for (got, want) in exact.iter().zip(expected) {
+        assert!((got - want).abs() <= 5e-7, "{got} vs {want}");
+    }
+    let large = row("large portfolio", 0);
+    assert_eq!(large.len(), 4, "{text}");
+    assert!((large[3] - law.large_portfolio_quantiles["0.999"]).abs() <= 5e-7);
+    // The finite portfolio's village factors and drought strikes add to the tail.
+    assert!(exact[4] > large[3], "{text}");
+    assert!(text.lines().any(|l| l.trim() == "cycles 4-5"), "{text}");
+    assert!(text.contains("one village's law"), "{text}");
+}
+
+/// Independent members (no correlation, no shared strike): the number in default is binomial(N, p)
+/// (the binomial law, statrs), and the large-portfolio limit is a point mass at p.
+#[test]
+fn analyze_json_matches_the_binomial_law_for_independent_members() {
+    use statrs::distribution::{Binomial, DiscreteCDF};
+    let text = r#"
+replications = 1
+cycles = 1
+[portfolio]
+borrowers = 1000
+villages = 10
+[loan]
+principal = 100
+[[shock]]
+name = "illness"
+scope = "member"
+probability = 0.05
+severity = 1.0
+[policy]
+liability = "individual"
+group_size = 1
+"#;
+    let dir = tempfile::tempdir().unwrap();
+    let v = json(&loancycle(&["analyze", &write(&dir, "iid.toml", text), "--json"]));
+    let law = &v["portfolio_default_law"];
+    let binomial = Binomial::new(0.05, 1000).unwrap();
+    for q in [0.95, 0.99, 0.995, 0.999] {
+        let j = (0..=1000u64).find(|&j| binomial.cdf(j) >= q).unwrap();
+        let got = law["quantiles"][format!("{q}")].as_f64().unwrap();
+        assert!((got - j as f64 / 1000.0).abs() < 1e-12, "q {q}: {got} vs {j}/1000");
+        let large = law["large_portfolio_quantiles"][format!("{q}")].as_f64().unwrap();
+        assert!((large - 0.05).abs() < 1e-12);
+    }
+    assert!((law["mean"].as_f64().unwrap() - 0.05).abs() < 1e-12);
+}
+
+#[test]
+fn analyze_names_the_input_that_puts_the_portfolio_law_out_of_class() {
+    let root = env!("CARGO_MANIFEST_DIR");
+    let baseline = format!("{root}/scenarios-demo/baseline.toml");
+    let v = json(&loancycle(&["analyze", &baseline, "--json"]));
+    assert!(v["portfolio_default_law"].is_null());
+    let reason = v["portfolio_out_of_class"].as_str().expect("a reason");
+    assert!(reason.contains("borrowers.income"), "{reason}");
+    for arm in v["arms"].as_array().unwrap() {
+        assert!(arm["portfolio_default_law"].is_null());
+        assert!(arm["portfolio_out_of_class"].as_str().is_some());
+    }
+    let out = loancycle(&["analyze", &baseline]);
+    let text = String::from_utf8_lossy(&out.stdout);
+    assert!(
+        text.contains(
+            "Share of the portfolio's loans in default per cycle (exact law)\n  out of class: borrowers.income"
+        ),
+        "{text}"
+    );
+}

@@ -1,14 +1,17 @@
 //! The `analyze` report: every closed form that applies to a scenario, gathered in one place.
 //!
 //! A planner looking at a scenario wants to know what can be said without simulating: exact group
-//! repayment per arm when the scenario is in the one-factor class (or why it is not), how bad a bad
-//! cycle gets by the hit-share law, how far a village of the scenario's size is from the large-pool
+//! repayment per arm when the scenario is in the one-factor class (or why it is not), the exact law of
+//! the whole portfolio's default share per cycle beside its large-portfolio limit (or the input that
+//! puts an arm outside that law's class), how bad a bad cycle gets by the hit-share law, how far a village of the scenario's size is from the large-pool
 //! formula, and how the assumed correlation compares with the Basel II retail yardstick. The report
 //! never fails as a whole: each section carries its own reason when it does not apply.
 
 use super::one_factor::{self, OneFactorModel, OneFactorResult};
+use super::portfolio_law::{self, PortfolioDefaultLaw};
 use super::{basel, vasicek};
 use crate::scenario::{Liability, Scenario, ShockProbability, ShockScope};
+use rayon::prelude::*;
 use serde::Serialize;
 use std::collections::BTreeMap;
 
@@ -35,6 +38,12 @@ pub struct ArmExact {
     pub exact: Option<OneFactorResult>,
     /// Why this arm has no exact result although the scenario is in the class.
     pub reason: Option<String>,
+    /// The exact law of the portfolio's default share in cycles outside stress windows.
+    pub portfolio_default_law: Option<PortfolioDefaultLaw>,
+    /// The same law in each stress state of the counted cycles.
+    pub stress_laws: Vec<PortfolioDefaultLaw>,
+    /// The input that puts this arm outside the class of the portfolio law.
+    pub portfolio_out_of_class: Option<String>,
 }
 
 /// Which population the hit-share law describes.
@@ -136,6 +145,14 @@ pub struct AnalyzeReport {
     pub hit_share: Option<HitShareSection>,
     /// Why the hit-share section does not apply.
     pub hit_share_reason: Option<String>,
+    /// The first arm's exact portfolio default law in normal cycles (`None`: out of class).
+    pub portfolio_default_law: Option<PortfolioDefaultLaw>,
+    /// The first arm's laws in each stress state.
+    pub stress_laws: Vec<PortfolioDefaultLaw>,
+    /// The input that puts the first arm outside the portfolio law's class.
+    pub portfolio_out_of_class: Option<String>,
+    /// The Basel II comparison at the first arm's hit probability, where it applies.
+    pub basel: Option<BaselComparison>,
     /// The caution printed under the table.
     pub caution: String,
 }
@@ -147,7 +164,13 @@ pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
         Ok(m) => (Some(m), None),
         Err(e) => (None, Some(e.reason)),
     };
-    let arms = scenario
+    // Each arm's law is independent of the others', so the arms are computed in parallel.
+    let mut laws = (0..scenario.arms().len())
+        .into_par_iter()
+        .map(|a| portfolio_law::arm_laws(scenario, a))
+        .collect::<Vec<_>>()
+        .into_iter();
+    let mut arms: Vec<ArmExact> = scenario
         .arms
         .iter()
         .enumerate()
@@ -170,17 +193,39 @@ pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
                 peer_cover: policy.peer_cover,
                 exact,
                 reason,
+                portfolio_default_law: None,
+                stress_laws: Vec::new(),
+                portfolio_out_of_class: None,
             }
         })
         .collect();
+    for arm in &mut arms {
+        if let Some(l) = laws.next() {
+            arm.portfolio_default_law = l.portfolio_default_law;
+            arm.stress_laws = l.stress_laws;
+            arm.portfolio_out_of_class = l.out_of_class;
+        }
+    }
     let (hit_share, hit_share_reason) = match hit_share_section(scenario) {
         Ok(section) => (Some(section), None),
         Err(reason) => (None, Some(reason)),
     };
+    let first = arms.first();
+    let basel = hit_share.as_ref().and_then(|h| {
+        let label = first.map(|a| a.label.as_str())?;
+        h.entries
+            .iter()
+            .find(|e| e.arms.iter().any(|l| l == label))
+            .and_then(|e| e.basel.clone())
+    });
     AnalyzeReport {
         scenario: scenario.name.clone(),
         out_of_class,
         model,
+        portfolio_default_law: first.and_then(|a| a.portfolio_default_law.clone()),
+        stress_laws: first.map(|a| a.stress_laws.clone()).unwrap_or_default(),
+        portfolio_out_of_class: first.and_then(|a| a.portfolio_out_of_class.clone()),
+        basel,
         arms,
         hit_share,
         hit_share_reason,

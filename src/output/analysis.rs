@@ -2,6 +2,7 @@
 //!
 //! They sit beside the run writers so that `analytic` only computes and `output` only prints.
 
+use crate::analytic::portfolio_law::{PortfolioDefaultLaw, QUANTILE_LEVELS};
 use crate::analytic::report::{AnalyzeReport, HitShareScope, short};
 use crate::scenario::{Liability, ShockProbability};
 use std::fmt::Write as _;
@@ -83,6 +84,8 @@ pub fn table(report: &AnalyzeReport) -> String {
         (None, None) => {}
     }
     let _ = writeln!(out);
+    portfolio_section(&mut out, report);
+    let _ = writeln!(out);
     match (&report.hit_share, &report.hit_share_reason) {
         (Some(section), _) => {
             let whom = match section.scope {
@@ -95,6 +98,12 @@ pub fn table(report: &AnalyzeReport) -> String {
                 section.shock_name,
                 short(section.rho)
             );
+            if section.scope == HitShareScope::PerVillage {
+                let _ = writeln!(
+                    out,
+                    "  one village's law, not the portfolio's: villages' own factors diversify, so the portfolio's tail is lower (its exact law is above)"
+                );
+            }
             for note in &section.notes {
                 let _ = writeln!(out, "  note: {note}");
             }
@@ -157,6 +166,80 @@ pub fn table(report: &AnalyzeReport) -> String {
     let _ = writeln!(out);
     let _ = writeln!(out, "{}", report.caution);
     out
+}
+
+/// One row of figures: mean (exact law only), the quantiles, and ES99 (exact law only).
+fn law_row(out: &mut String, name: &str, mean: Option<f64>, quantiles: &[f64], es: Option<f64>) {
+    let cell = |x: Option<f64>| x.map_or_else(|| format!("{:>9}", "-"), |x| format!("{x:>9.6}"));
+    let q: Vec<String> = quantiles.iter().map(|&x| cell(Some(x))).collect();
+    let _ = writeln!(out, "      {name:<16} {} {} {}", cell(mean), q.join(" "), cell(es));
+}
+
+fn law_rows(out: &mut String, law: &PortfolioDefaultLaw) {
+    let pick = |m: &std::collections::BTreeMap<String, f64>| -> Vec<f64> {
+        QUANTILE_LEVELS
+            .iter()
+            .map(|q| m.get(&format!("{q}")).copied().unwrap_or(f64::NAN))
+            .collect()
+    };
+    if law.cycles.is_empty() {
+        let _ = writeln!(out, "    {} (none counted)", law.state);
+    } else if law.state.ends_with(&law.cycles) {
+        let _ = writeln!(out, "    {}", law.state);
+    } else {
+        let _ = writeln!(out, "    {} ({})", law.state, law.cycles);
+    }
+    law_row(out, "exact", Some(law.mean), &pick(&law.quantiles), Some(law.es99));
+    law_row(
+        out,
+        "large portfolio",
+        None,
+        &pick(&law.large_portfolio_quantiles),
+        None,
+    );
+}
+
+/// The exact per-cycle law of the portfolio's default share, per arm and stress state, beside the
+/// large-portfolio limit.
+fn portfolio_section(out: &mut String, report: &AnalyzeReport) {
+    let _ = writeln!(out, "Share of the portfolio's loans in default per cycle (exact law)");
+    let reasons: Vec<&str> = report
+        .arms
+        .iter()
+        .filter_map(|a| a.portfolio_out_of_class.as_deref())
+        .collect();
+    if !report.arms.is_empty() && reasons.len() == report.arms.len() && reasons.iter().all(|r| *r == reasons[0]) {
+        let _ = writeln!(out, "  out of class: {}", reasons[0]);
+        return;
+    }
+    let levels: Vec<String> = QUANTILE_LEVELS
+        .iter()
+        .map(|q| format!("{:>9}", format!("q{}", q * 100.0)))
+        .collect();
+    let _ = writeln!(out, "      {:<16} {:>9} {} {:>9}", "", "mean", levels.join(" "), "ES99");
+    for arm in &report.arms {
+        match (&arm.portfolio_default_law, &arm.portfolio_out_of_class) {
+            (Some(law), _) => {
+                let _ = writeln!(
+                    out,
+                    "  {}: {} {}; large-portfolio limit: {}",
+                    arm.label, law.units, law.unit, law.large_portfolio_law
+                );
+                law_rows(out, law);
+                for s in &arm.stress_laws {
+                    law_rows(out, s);
+                }
+            }
+            (None, reason) => {
+                let reason = reason.as_deref().unwrap_or("no reason recorded");
+                let _ = writeln!(out, "  {}: out of class: {reason}", arm.label);
+            }
+        }
+    }
+    let _ = writeln!(
+        out,
+        "  q: the smallest share x of loans in default with P(share <= x) >= q; ES99: the mean share in the worst 1% of cycles; large portfolio: villages and members per village without bound, so only the portfolio-wide draws remain"
+    );
 }
 
 /// The report as pretty-printed JSON.
