@@ -104,26 +104,39 @@ impl StoredRun {
                 format!("cannot be read ({e}); it is written by `run` from this version on"),
             )
         })?;
-        for (line, row) in reader.deserialize::<ReplicationRecord>().enumerate() {
-            let row = row.map_err(|e| bad(&csv_path, format!("row {}: {e}", line + 1)))?;
-            let arm = arms.iter_mut().find(|a| a.label == row.arm).ok_or_else(|| {
+        // The figures deserialise by column name (the rate columns beside them are ignored); the arm's
+        // label is read from its own column, since csv cannot flatten a struct holding numbers.
+        let headers = reader
+            .headers()
+            .map_err(|e| bad(&csv_path, format!("header: {e}")))?
+            .clone();
+        let arm_column = headers
+            .iter()
+            .position(|h| h == "arm")
+            .ok_or_else(|| bad(&csv_path, "header: missing field `arm`".to_owned()))?;
+        for (line, record) in reader.records().enumerate() {
+            let row_error = |e: csv::Error| bad(&csv_path, format!("row {}: {e}", line + 1));
+            let record = record.map_err(row_error)?;
+            let figures: ReplicationFigures = record.deserialize(Some(&headers)).map_err(row_error)?;
+            let label = record.get(arm_column).unwrap_or_default();
+            let arm = arms.iter_mut().find(|a| a.label == label).ok_or_else(|| {
                 bad(
                     &csv_path,
-                    format!("row {}: arm `{}` is not in summary.json", line + 1, row.arm),
+                    format!("row {}: arm `{label}` is not in summary.json", line + 1),
                 )
             })?;
-            let number = row.replication;
+            let number = figures.replication;
             if number == 0 || arm.tally.replications.iter().any(|r| r.replication + 1 == number) {
                 return Err(bad(
                     &csv_path,
                     format!(
                         "row {}: replication {number} of arm `{}` is 0 or repeated",
                         line + 1,
-                        row.arm
+                        label
                     ),
                 ));
             }
-            arm.tally.push(row.figures().to_tally());
+            arm.tally.push(figures.to_tally());
         }
         let n = arms.first().map_or(0, |a| a.tally.len());
         if let Some(a) = arms.iter().find(|a| a.tally.len() != n || n == 0) {
@@ -157,45 +170,5 @@ impl StoredRun {
     /// The arms' labels, in order.
     pub fn labels(&self) -> Vec<&str> {
         self.arms.iter().map(|a| a.label.as_str()).collect()
-    }
-}
-
-/// One row of replications.csv as read back: the columns the comparisons need, by name (csv
-/// cannot read numbers through a flattened struct, so they are listed here).
-#[derive(serde::Deserialize)]
-struct ReplicationRecord {
-    arm: String,
-    replication: u32,
-    groups_repaid: u64,
-    group_cycles: u64,
-    member_loans: u64,
-    member_defaults: u64,
-    loss: f64,
-    disbursed: f64,
-    collected: f64,
-    recovered: f64,
-    served_slot_cycles: u64,
-    excluded_slot_cycles: u64,
-    slot_cycles: u64,
-    worst_cycle_loss: Option<f64>,
-}
-
-impl ReplicationRecord {
-    fn figures(&self) -> ReplicationFigures {
-        ReplicationFigures {
-            replication: self.replication,
-            groups_repaid: self.groups_repaid,
-            group_cycles: self.group_cycles,
-            member_loans: self.member_loans,
-            member_defaults: self.member_defaults,
-            loss: self.loss,
-            disbursed: self.disbursed,
-            collected: self.collected,
-            recovered: self.recovered,
-            served_slot_cycles: self.served_slot_cycles,
-            excluded_slot_cycles: self.excluded_slot_cycles,
-            slot_cycles: self.slot_cycles,
-            worst_cycle_loss: self.worst_cycle_loss,
-        }
     }
 }
