@@ -45,8 +45,8 @@ pub fn table(
         scenario.arms()[i]
             .swept()
             .iter()
-            .filter(|v| v.path != "group_size")
-            .map(|v| format!("{}={}", v.path, v.value))
+            .filter(|v| v.path() != "group_size")
+            .map(|v| format!("{}={}", v.path(), v.value()))
             .collect::<Vec<_>>()
             .join(",")
     };
@@ -58,7 +58,7 @@ pub fn table(
             None => contexts.push((c, vec![i])),
         }
     }
-    let size = |i: usize| scenario.arms()[i].policy().group_size;
+    let size = |i: usize| scenario.arms()[i].policy().group_size();
     let mut rows = Vec::new();
     for (context, members) in contexts {
         let sub: Vec<ComparedArm> = members.iter().map(|&i| arms[i]).collect();

@@ -27,7 +27,7 @@
 //! "#;
 //! let scenario = Scenario::from_toml_str(text, "example.toml").unwrap();
 //! let results = simulate(&scenario, RunOptions::default(), &mut |_| {}).unwrap();
-//! let summary = summarize_arm(&results.arms[0], scenario.arms[0].policy.group_size);
+//! let summary = summarize_arm(&results.arms[0], scenario.arms()[0].policy().group_size());
 //! // 100 borrowers in groups of 5, every cycle: 20 groups x 6 cycles x 4 replications
 //! assert_eq!(summary.group_cycles, 480);
 //! let repaid = summary.group_repayment.unwrap().rate;

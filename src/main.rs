@@ -488,7 +488,7 @@ fn execute(command: Command) -> Result<(), Failure> {
                 output::abandon_destination(&out, created);
                 Failure::Interrupted(stop.load(Ordering::Relaxed))
             };
-            let tasks = u64::from(scenario.replications) * scenario.arms.len() as u64;
+            let tasks = u64::from(scenario.replications()) * scenario.arms().len() as u64;
             let bar = if quiet {
                 ProgressBar::with_draw_target(Some(tasks), ProgressDrawTarget::hidden())
             } else {

@@ -100,19 +100,19 @@ pub fn build_with_baseline(
 ) -> RunReport {
     let analytic = SimulationCompanion::new(scenario);
     let summaries: Vec<ArmSummary> = scenario
-        .arms
+        .arms()
         .iter()
         .zip(&results.arms)
-        .map(|(arm, tally)| summary::summarize_arm(tally, arm.policy.group_size))
+        .map(|(arm, tally)| summary::summarize_arm(tally, arm.policy().group_size()))
         .collect();
     let warnings = analytic.self_check(scenario, &summaries);
     let compared: Vec<ComparedArm> = scenario
-        .arms
+        .arms()
         .iter()
         .zip(&results.arms)
         .map(|(arm, tally)| ComparedArm {
-            label: &arm.label,
-            group_size: arm.policy.group_size,
+            label: arm.label(),
+            group_size: arm.policy().group_size(),
             tally,
         })
         .collect();
@@ -138,7 +138,7 @@ pub fn build_with_baseline(
             .collect::<Vec<_>>(),
     );
     let arms: Vec<ArmReport> = scenario
-        .arms
+        .arms()
         .iter()
         .zip(&results.arms)
         .zip(summaries)
@@ -148,7 +148,7 @@ pub fn build_with_baseline(
             arm: arm.clone(),
             summary,
             analytic_group_repayment: analytic.group_repayment(i),
-            closed_form_optimum: analytic.closed_form_optimum(),
+            closed_form_optimum: analytic.closed_form_optimum(i),
             time_series: summary::time_series(tally, scenario),
             replications: tally.replications.iter().map(ReplicationFigures::from_tally).collect(),
         })
@@ -157,10 +157,10 @@ pub fn build_with_baseline(
         tool: format!("loancycle {}", env!("CARGO_PKG_VERSION")),
         scenario_sha256: sha256_hex(scenario_text),
         scenario_origin: origin.to_string(),
-        seed: scenario.seed,
+        seed: scenario.seed(),
         scenario: scenario.clone(),
         arms,
-        analytic_out_of_class: analytic.out_of_class().map(str::to_string),
+        analytic_out_of_class: analytic.out_of_class(),
         best,
         selection,
         group_size,

@@ -62,14 +62,14 @@ pub fn simulate_until(
             threads,
             reason: e.to_string(),
         })?;
-    let arms = scenario.arms.len();
+    let arms = scenario.arms().len();
     let mut tallies = vec![ArmTally::default(); arms];
     // Batches bound memory in flight and give the progress bar something to show.
     let batch_replications = (threads * 4).max(1) as u32;
     let mut done = 0u64;
     let mut first = 0u32;
-    while first < scenario.replications {
-        let last = (first + batch_replications).min(scenario.replications);
+    while first < scenario.replications() {
+        let last = (first + batch_replications).min(scenario.replications());
         let tasks: Vec<(u32, usize)> = (first..last).flat_map(|r| (0..arms).map(move |a| (r, a))).collect();
         let results: Option<Vec<ReplicationTally>> = pool.install(|| {
             tasks

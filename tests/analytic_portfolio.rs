@@ -325,7 +325,7 @@ fn exact_quantiles_bound_the_simulated_cycle_quantiles() {
     let law = normal_law(&s, 0);
     let results = run::simulate(&s, RunOptions::default(), &mut |_| {}).unwrap();
     let summary = summary::summarize_arm(&results.arms[0], 4);
-    let n = u64::from(s.replications) * u64::from(s.cycles);
+    let n = u64::from(s.replications()) * u64::from(s.cycles());
     // Two-sided probability of a standard normal beyond STANDARD_ERRORS.
     let alpha = 2.0 * normal::cdf(-STANDARD_ERRORS);
     for (q, simulated) in [

@@ -76,13 +76,13 @@ fn simulated_group_repayment_matches_quadrature() {
         ));
         let results = simulate(&s);
         let mut covered_differs = false;
-        for arm in 0..s.arms.len() {
+        for arm in 0..s.arms().len() {
             let exact = one_factor::exact_for_arm(&s, arm).expect("in the one-factor class");
             let g = arm_summary(&s, &results, arm).group_repayment.unwrap();
-            let label = format!("rho={} {}", village_rho + portfolio_rho, s.arms[arm].label);
+            let label = format!("rho={} {}", village_rho + portfolio_rho, s.arms()[arm].label());
             assert_within(&label, g.rate, g.standard_error.unwrap(), exact.group_repayment, 0.01);
             covered_differs |=
-                s.arms[arm].policy.peer_cover > 0.0 && exact.group_repayment > exact.iid_group_repayment + 0.05;
+                s.arms()[arm].policy().peer_cover() > 0.0 && exact.group_repayment > exact.iid_group_repayment + 0.05;
         }
         assert!(
             covered_differs,

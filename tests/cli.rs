@@ -251,7 +251,7 @@ fn listed_arms(stdout: &str) -> Vec<String> {
 }
 
 fn labels(scenario: &Scenario) -> Vec<String> {
-    scenario.arms.iter().map(|a| a.label.clone()).collect()
+    scenario.arms().iter().map(|a| a.label().to_owned()).collect()
 }
 
 /// The `# expect-KEY: value` header lines of a bad fixture.
@@ -521,7 +521,7 @@ fn run_without_a_file_runs_the_built_in_baseline_into_the_default_directory() {
     let json = read_json(&dir.join("summary.json"));
     assert_eq!(json["scenario_sha256"], sha256_hex(&baseline).as_str());
     let (scenario, _) = Scenario::load(&root().join("scenarios-demo/baseline.toml")).unwrap_or_else(|e| panic!("{e}"));
-    assert_eq!(json["seed"], scenario.seed);
+    assert_eq!(json["seed"], scenario.seed());
     assert_eq!(json["arms"].as_array().map(Vec::len), Some(10));
 
     let (header, rows) = read_csv(&dir.join("summary.csv"));
@@ -615,14 +615,14 @@ fn run_writes_well_formed_summary_timeseries_and_json() {
     let path = dir.join("timeseries.csv");
     let (header, rows) = read_csv(&path);
     assert_eq!(header, TIMESERIES_HEADER);
-    assert_eq!(scenario.cycles, 5);
-    assert_eq!(rows.len(), arm_labels.len() * scenario.cycles as usize);
+    assert_eq!(scenario.cycles(), 5);
+    assert_eq!(rows.len(), arm_labels.len() * scenario.cycles() as usize);
     let keys: Vec<(String, String)> = rows.iter().map(|r| (r[0].clone(), r[1].clone())).collect();
     let expected: Vec<(String, String)> = arm_labels
         .iter()
         .flat_map(|a| {
-            let first = scenario.warmup_cycles + 1;
-            (first..first + scenario.cycles).map(move |c| (a.clone(), c.to_string()))
+            let first = scenario.warmup_cycles() + 1;
+            (first..first + scenario.cycles()).map(move |c| (a.clone(), c.to_string()))
         })
         .collect();
     assert_eq!(keys, expected);
@@ -645,7 +645,7 @@ fn run_writes_well_formed_summary_timeseries_and_json() {
     assert!(hash.bytes().all(|b| b.is_ascii_hexdigit()), "{hash}");
     let file_bytes = std::fs::read(tiny()).expect("tiny scenario");
     assert_eq!(hash, sha256_hex(&file_bytes));
-    assert_eq!(json["scenario"]["name"], scenario.name.as_str());
+    assert_eq!(json["scenario"]["name"], scenario.name());
     let json_arms: Vec<&str> = json["arms"]
         .as_array()
         .expect("arms is an array")

@@ -30,8 +30,8 @@ fn independent_members_repay_with_binomial_probability() {
         "#
     ));
     let results = simulate(&s);
-    for (arm, a) in s.arms.iter().enumerate() {
-        let k = a.policy.group_size;
+    for (arm, a) in s.arms().iter().enumerate() {
+        let k = a.policy().group_size();
         let summary = arm_summary(&s, &results, arm);
         let g = summary.group_repayment.expect("groups served");
         let reference = (1.0 - q).powi(k as i32);
@@ -80,8 +80,8 @@ fn peer_cover_matches_binomial_cdf() {
         "#
     ));
     let results = simulate(&s);
-    for (arm, a) in s.arms.iter().enumerate() {
-        let k = a.policy.group_size;
+    for (arm, a) in s.arms().iter().enumerate() {
+        let k = a.policy().group_size();
         let summary = arm_summary(&s, &results, arm);
         let g = summary.group_repayment.unwrap();
         let reference = Binomial::new(q, u64::from(k)).unwrap().cdf(u64::from(k / 3));
@@ -135,8 +135,8 @@ fn exclusion_share_follows_renewal_reward() {
     ));
     let results = simulate(&s);
     let d = 1.0 - (1.0f64 - q).powi(k);
-    for (arm, a) in s.arms.iter().enumerate() {
-        let e = match a.policy.exclusion_cycles {
+    for (arm, a) in s.arms().iter().enumerate() {
+        let e = match a.policy().exclusion_cycles() {
             loancycle::scenario::Exclusion::Cycles(e) => f64::from(e),
             loancycle::scenario::Exclusion::Permanent => unreachable!(),
         };

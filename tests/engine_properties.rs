@@ -420,13 +420,14 @@ fn check(condition: bool, what: impl FnOnce() -> String) -> Result<(), TestCaseE
 
 /// The per-replication identities listed in the module comment.
 fn check_replication(case: &Case, s: &Scenario, arm: usize, r: &ReplicationTally) -> Result<(), TestCaseError> {
-    let policy = &s.arms[arm].policy;
-    let k = u64::from(policy.group_size);
-    let joint = policy.liability == loancycle::scenario::Liability::Joint;
+    let policy = &s.arms()[arm].policy();
+    let k = u64::from(policy.group_size());
+    let joint = policy.liability() == loancycle::scenario::Liability::Joint;
     let at = |what: &str| {
         format!(
             "arm {arm} ({}), replication {}: {what}; {r:?}",
-            s.arms[arm].label, r.replication
+            s.arms()[arm].label(),
+            r.replication
         )
     };
     check(at_most(r.collected, r.due), || at("collected > due"))?;
@@ -439,17 +440,18 @@ fn check_replication(case: &Case, s: &Scenario, arm: usize, r: &ReplicationTally
     check(close(r.loss + r.recovered, r.unpaid_principal), || {
         at("loss + recovered != unpaid principal")
     })?;
-    check(close(r.due, r.disbursed * (1.0 + s.interest_rate)), || {
+    check(close(r.due, r.disbursed * (1.0 + s.arms()[0].interest_rate())), || {
         at("due != disbursed x (1 + r)")
     })?;
     check(
-        close(r.disbursed, k as f64 * r.group_cycles as f64 * s.principal),
+        close(r.disbursed, k as f64 * r.group_cycles as f64 * s.arms()[0].principal()),
         || at("disbursed != k x groups x P"),
     )?;
 
-    check(r.slot_cycles() == u64::from(s.borrowers) * u64::from(s.cycles), || {
-        at("slot-cycles != N x cycles")
-    })?;
+    check(
+        r.slot_cycles() == u64::from(s.borrowers()) * u64::from(s.cycles()),
+        || at("slot-cycles != N x cycles"),
+    )?;
     check(r.member_loans == r.served_slot_cycles, || {
         at("member loans != served slot-cycles")
     })?;
@@ -457,7 +459,7 @@ fn check_replication(case: &Case, s: &Scenario, arm: usize, r: &ReplicationTally
         at("member loans != k x groups")
     })?;
     check(
-        r.waiting_slot_cycles <= (k - 1) * u64::from(s.villages) * u64::from(s.cycles),
+        r.waiting_slot_cycles <= (k - 1) * u64::from(s.villages()) * u64::from(s.cycles()),
         || at("k or more members waiting in a village"),
     )?;
     check(r.groups_repaid <= r.group_cycles, || at("repaid > groups"))?;
@@ -495,10 +497,10 @@ fn check_replication(case: &Case, s: &Scenario, arm: usize, r: &ReplicationTally
             at("individual: defaults != shortfalls")
         })?;
     }
-    match policy.exclusion_cycles {
+    match policy.exclusion_cycles() {
         loancycle::scenario::Exclusion::Cycles(0) => {
             check(r.excluded_slot_cycles == 0, || at("excluded without exclusion"))?;
-            if s.dropout == 0.0 {
+            if s.arms()[0].dropout() == 0.0 {
                 check(r.empty_slot_cycles == 0, || {
                     at("empty slots without exclusion or dropout")
                 })?;
@@ -520,7 +522,7 @@ fn check_replication(case: &Case, s: &Scenario, arm: usize, r: &ReplicationTally
         })?;
     }
 
-    check(r.cycles.len() == s.cycles as usize, || {
+    check(r.cycles.len() == s.cycles() as usize, || {
         at("cycle records != counted cycles")
     })?;
     let served: u64 = r.cycles.iter().map(|c| u64::from(c.served)).sum();
@@ -550,7 +552,7 @@ fn check_replication(case: &Case, s: &Scenario, arm: usize, r: &ReplicationTally
 
 /// The ranges of an arm's summary.
 fn check_summary(s: &Scenario, results: &RunResults, arm: usize) -> Result<(), TestCaseError> {
-    let m = summarize_arm(&results.arms[arm], s.arms[arm].policy.group_size);
+    let m = summarize_arm(&results.arms[arm], s.arms()[arm].policy().group_size());
     let unit = [
         ("group_repayment", m.group_repayment.map(|i| i.rate)),
         ("member_shortfall_rate", m.member_shortfall_rate),
@@ -589,7 +591,7 @@ fn check_summary(s: &Scenario, results: &RunResults, arm: usize) -> Result<(), T
         format!("arm {arm}: the four shares sum to {total}")
     })?;
     check(
-        m.member_loans == m.group_cycles * u64::from(s.arms[arm].policy.group_size),
+        m.member_loans == m.group_cycles * u64::from(s.arms()[arm].policy().group_size()),
         || format!("arm {arm}: member loans != k x group-cycles"),
     )?;
     Ok(())
@@ -608,7 +610,7 @@ fn invariants_hold_on_random_valid_scenarios() {
         let results = loancycle::run::simulate(&s, loancycle::run::RunOptions { threads: Some(1) }, &mut |_| {})
             .map_err(|e| TestCaseError::fail(e.to_string()))?;
         for (arm, tally) in results.arms.iter().enumerate() {
-            check(tally.replications.len() == s.replications as usize, || {
+            check(tally.replications.len() == s.replications() as usize, || {
                 "replication count".into()
             })?;
             for r in &tally.replications {

@@ -119,7 +119,7 @@ fn full_fit_recovers_the_curve_the_correlation_and_the_optimum() {
     let toml = report.scenario_toml();
     let scenario = loancycle::scenario::Scenario::from_toml_str(&toml, "calibrated.toml")
         .unwrap_or_else(|e| panic!("{e}\n{toml}"));
-    assert!(scenario.arms.len() >= 4, "one arm per size seen");
+    assert!(scenario.arms().len() >= 4, "one arm per size seen");
     if report.best_curve == CurveKind::ScaledPower {
         assert!(toml.contains("curve = \"table\""), "{toml}");
     }

@@ -11,7 +11,7 @@
 //! through `loancycle check` and `loancycle run`, which must exit 2 with one line for a bad input.
 
 use loancycle::run::{RunOptions, simulate};
-use loancycle::scenario::Scenario;
+use loancycle::scenario::{Overrides, Scenario};
 use loancycle::stats::summary::summarize_arm;
 use std::panic::{AssertUnwindSafe, catch_unwind};
 use std::path::{Path, PathBuf};
@@ -326,13 +326,20 @@ fn parse_without_panic(name: &str, bytes: &[u8]) -> Result<Scenario, String> {
         .map_err(|e| e.to_string())
 }
 
-/// Simulates at most two replications on one thread, inside `catch_unwind`, and summarises.
-fn simulate_without_panic(name: &str, mut scenario: Scenario) {
-    scenario.replications = scenario.replications.min(2);
+/// Simulates at most two replications on one thread, inside `catch_unwind`, and summarises. The
+/// accepted text is validated again with the replications overridden, as `--replications` would.
+fn simulate_without_panic(name: &str, bytes: &[u8], scenario: Scenario) {
+    let text = String::from_utf8_lossy(bytes).into_owned();
+    let fewer = Overrides {
+        replications: Some(scenario.replications().min(2)),
+        ..Default::default()
+    };
+    let scenario = Scenario::from_toml_str_with(&text, ORIGIN, &fewer)
+        .unwrap_or_else(|e| panic!("{name}: refused with fewer replications: {e}"));
     catch_unwind(AssertUnwindSafe(|| {
         let results = simulate(&scenario, RunOptions { threads: Some(1) }, &mut |_| {}).expect("simulates");
-        for (tally, arm) in results.arms.iter().zip(&scenario.arms) {
-            summarize_arm(tally, arm.policy.group_size);
+        for (tally, arm) in results.arms.iter().zip(scenario.arms()) {
+            summarize_arm(tally, arm.policy().group_size());
         }
     }))
     .unwrap_or_else(|_| panic!("{name}: the simulation panicked"));
@@ -422,7 +429,7 @@ fn nasty_inputs_get_what_they_must_without_panicking() {
         }
         match (expect, result) {
             (Expect::Refused, result) => assert_refused_in_one_line(name, result),
-            (Expect::Accepted, Ok(scenario)) => simulate_without_panic(name, scenario),
+            (Expect::Accepted, Ok(scenario)) => simulate_without_panic(name, bytes, scenario),
             (Expect::Accepted, Err(message)) => panic!("{name}: refused, but it must be accepted: {message}"),
             (Expect::Unreadable, _) => {}
         }
@@ -444,7 +451,7 @@ fn fuzz_inputs_never_panic_the_parser_or_the_engine() {
     for sub in ["refused", "accepted", "open"] {
         for (name, bytes) in fuzz_inputs(sub) {
             if let Ok(scenario) = parse_without_panic(&name, &bytes) {
-                simulate_without_panic(&name, scenario);
+                simulate_without_panic(&name, &bytes, scenario);
             }
         }
     }
@@ -464,7 +471,7 @@ fn refused_fuzz_inputs_are_refused_in_one_line_by_the_parser_and_the_binary() {
 fn accepted_fuzz_inputs_validate_and_run() {
     for (name, bytes) in fuzz_inputs("accepted") {
         let scenario = parse_without_panic(&name, &bytes).unwrap_or_else(|e| panic!("{name}: refused: {e}"));
-        simulate_without_panic(&name, scenario);
+        simulate_without_panic(&name, &bytes, scenario);
         assert_binary_runs(&name, &bytes);
     }
 }

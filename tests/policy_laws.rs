@@ -76,8 +76,8 @@ fn defaulters_scope_excludes_only_the_short_members() {
         "#
     ));
     let results = simulate(&s);
-    for (arm, a) in s.arms.iter().enumerate() {
-        let e = match a.policy.exclusion_cycles {
+    for (arm, a) in s.arms().iter().enumerate() {
+        let e = match a.policy().exclusion_cycles() {
             loancycle::scenario::Exclusion::Cycles(e) => f64::from(e),
             loancycle::scenario::Exclusion::Permanent => unreachable!(),
         };
@@ -338,7 +338,7 @@ fn persistent_groups_await_a_clean_split_geometrically() {
     };
     for (arm, persistent) in [(0usize, false), (1, true)] {
         assert_eq!(
-            s.arms[arm].policy.formation == loancycle::scenario::Formation::Persistent,
+            s.arms()[arm].policy().formation() == loancycle::scenario::Formation::Persistent,
             persistent
         );
         for cycle in 1..=cycles {
@@ -441,7 +441,7 @@ fn assortative_matching_groups_similar_risks() {
             "the two matchings' laws ({random}, {assortative}) must differ by many standard errors ({se})"
         );
         check(
-            &format!("group repayment, arm {}", s.arms[arm].label),
+            &format!("group repayment, arm {}", s.arms()[arm].label()),
             g.rate,
             se,
             reference,
@@ -494,7 +494,7 @@ fn group_sizes_share_member_shocks() {
         first.replications.iter().any(|t| t.member_shortfalls > 0),
         "the shock must hit someone"
     );
-    for arm in 1..s.arms.len() {
+    for arm in 1..s.arms().len() {
         for (t0, t) in first.replications.iter().zip(&results.arms[arm].replications) {
             assert_eq!(t.member_loans, t0.member_loans, "everybody served");
             assert_eq!(
@@ -502,8 +502,8 @@ fn group_sizes_share_member_shocks() {
                 shortfalls(t0),
                 "replication {}: shortfalls per cycle, {} vs {}",
                 t.replication,
-                s.arms[arm].label,
-                s.arms[0].label
+                s.arms()[arm].label(),
+                s.arms()[0].label()
             );
         }
         // the arms do differ in what the groups do with the same shocks

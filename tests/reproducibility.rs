@@ -73,8 +73,15 @@ fn results_are_identical_for_one_and_two_threads() {
 #[test]
 fn a_different_seed_gives_different_results() {
     let s = scenario(SCENARIO);
-    let mut other = s.clone();
-    other.seed += 1;
+    let other = loancycle::scenario::Scenario::from_toml_str_with(
+        SCENARIO,
+        "inline",
+        &loancycle::scenario::Overrides {
+            seed: Some(s.seed() + 1),
+            ..Default::default()
+        },
+    )
+    .unwrap();
     let a = run::simulate(&s, RunOptions { threads: Some(2) }, &mut |_| {}).unwrap();
     let b = run::simulate(&other, RunOptions { threads: Some(2) }, &mut |_| {}).unwrap();
     assert_ne!(a.arms, b.arms);
@@ -195,7 +202,11 @@ fn paired_differences_are_sharp() {
     let s = scenario(text);
     let results = simulate(&s);
     let report = loancycle::report::build(&s, text, "inline", &results);
-    let same: Vec<_> = report.differences.iter().filter(|d| d.arm == s.arms[1].label).collect();
+    let same: Vec<_> = report
+        .differences
+        .iter()
+        .filter(|d| d.arm == s.arms()[1].label())
+        .collect();
     assert_eq!(same.len(), 5);
     assert!(
         same.iter()
@@ -204,7 +215,7 @@ fn paired_differences_are_sharp() {
     let covered = report
         .differences
         .iter()
-        .find(|d| d.arm == s.arms[2].label && d.metric == "group_repayment_rate")
+        .find(|d| d.arm == s.arms()[2].label() && d.metric == "group_repayment_rate")
         .unwrap();
     let se = |a: usize| report.arms[a].summary.group_repayment.unwrap().standard_error.unwrap();
     let unpaired = (se(0).powi(2) + se(2).powi(2)).sqrt();

@@ -137,49 +137,75 @@ fn every_valid_fixture_loads() {
     for file in files {
         let (scenario, text) = Scenario::load(&file).unwrap_or_else(|e| panic!("{e}"));
         assert!(!text.is_empty());
-        assert!(!scenario.arms.is_empty());
+        assert!(!scenario.arms().is_empty());
     }
 }
 
 #[test]
 fn minimal_fixture_takes_the_defaults() {
     let s = load("scenarios", "minimal.toml");
-    assert_eq!((s.replications, s.cycles, s.warmup_cycles, s.seed), (50, 12, 0, 0));
-    assert_eq!((s.borrowers, s.villages), (300, 1));
-    assert_eq!((s.principal, s.interest_rate, s.recovery_rate), (100.0, 0.0, 0.0));
+    assert_eq!(
+        (s.replications(), s.cycles(), s.warmup_cycles(), s.seed()),
+        (50, 12, 0, 0)
+    );
+    assert_eq!((s.borrowers(), s.villages()), (300, 1));
+    assert_eq!(
+        (
+            s.arms()[0].principal(),
+            s.arms()[0].interest_rate(),
+            s.arms()[0].recovery_rate()
+        ),
+        (100.0, 0.0, 0.0)
+    );
     assert_eq!(s.amount_due(), 100.0);
-    assert_eq!((s.income.fixed_value(), s.risk.fixed_value()), (Some(1.0), Some(1.0)));
-    assert!(s.shocks.is_empty());
-    assert_eq!((s.dropout, s.replace_departures), (0.0, true));
-    assert_eq!(s.arms.len(), 1);
-    assert_eq!(s.arms[0].label, "base");
-    let p = &s.arms[0].policy;
-    assert_eq!(p.group_size, 5);
-    assert_eq!(p.liability, Liability::Joint);
-    assert_eq!(p.peer_cover, 0.0);
-    assert_eq!(p.exclusion_cycles, Exclusion::Cycles(0));
-    assert_eq!(p.exclusion_scope, ExclusionScope::Group);
-    assert_eq!(p.formation, Formation::Reshuffle);
-    assert_eq!(p.matching, Matching::Random);
+    assert_eq!(
+        (s.arms()[0].income().fixed_value(), s.arms()[0].risk().fixed_value()),
+        (Some(1.0), Some(1.0))
+    );
+    assert!(s.arms()[0].shocks().is_empty());
+    assert_eq!((s.arms()[0].dropout(), s.arms()[0].replace_departures()), (0.0, true));
+    assert_eq!(s.arms().len(), 1);
+    assert_eq!(s.arms()[0].label(), "base");
+    let p = &s.arms()[0].policy();
+    assert_eq!(p.group_size(), 5);
+    assert_eq!(p.liability(), Liability::Joint);
+    assert_eq!(p.peer_cover(), 0.0);
+    assert_eq!(p.exclusion_cycles(), Exclusion::Cycles(0));
+    assert_eq!(p.exclusion_scope(), ExclusionScope::Group);
+    assert_eq!(p.formation(), Formation::Reshuffle);
+    assert_eq!(p.matching(), Matching::Random);
 }
 
 #[test]
 fn full_fixture_reads_every_field() {
     let s = load("scenarios", "full.toml");
-    assert_eq!(s.name, "full example: two-season programme");
+    assert_eq!(s.name(), "full example: two-season programme");
     assert_eq!(
-        (s.seed, s.replications, s.cycles, s.warmup_cycles),
+        (s.seed(), s.replications(), s.cycles(), s.warmup_cycles()),
         (20240611, 400, 24, 4)
     );
     assert_eq!(s.total_cycles(), 28);
-    assert_eq!((s.borrowers, s.villages), (1200, 30));
-    assert_eq!((s.principal, s.interest_rate, s.recovery_rate), (150.0, 0.08, 0.25));
-    assert_eq!((s.income.kind_name(), s.income.mean()), ("lognormal", 1.4));
-    assert_eq!((s.risk.kind_name(), s.risk.mean()), ("gamma", 1.0));
+    assert_eq!((s.borrowers(), s.villages()), (1200, 30));
+    assert_eq!(
+        (
+            s.arms()[0].principal(),
+            s.arms()[0].interest_rate(),
+            s.arms()[0].recovery_rate()
+        ),
+        (150.0, 0.08, 0.25)
+    );
+    assert_eq!(
+        (s.arms()[0].income().kind_name(), s.arms()[0].income().mean()),
+        ("lognormal", 1.4)
+    );
+    assert_eq!(
+        (s.arms()[0].risk().kind_name(), s.arms()[0].risk().mean()),
+        ("gamma", 1.0)
+    );
 
-    let names: Vec<&str> = s.shocks.iter().map(|x| x.name.as_str()).collect();
+    let names: Vec<&str> = s.arms()[0].shocks().iter().map(|x| x.name()).collect();
     assert_eq!(names, ["illness", "crop_loss", "theft", "price_slump"]);
-    let scopes: Vec<ShockScope> = s.shocks.iter().map(|x| x.scope).collect();
+    let scopes: Vec<ShockScope> = s.arms()[0].shocks().iter().map(|x| x.scope()).collect();
     assert_eq!(
         scopes,
         [
@@ -190,52 +216,56 @@ fn full_fixture_reads_every_field() {
         ]
     );
 
-    let illness = &s.shocks[0];
-    assert!(matches!(&illness.probability, ShockProbability::Curve(c) if c.kind_name() == "power_plus_log"));
+    let illness = &s.arms()[0].shocks()[0];
+    assert!(matches!(&illness.probability(), ShockProbability::Curve(c) if c.kind_name() == "power_plus_log"));
     assert_eq!(
         (
-            illness.village_correlation,
-            illness.portfolio_correlation,
-            illness.reach
+            illness.village_correlation(),
+            illness.portfolio_correlation(),
+            illness.reach()
         ),
         (0.1, 0.05, 1.0)
     );
-    assert_eq!(illness.severity.kind_name(), "beta");
+    assert_eq!(illness.severity().kind_name(), "beta");
 
-    let crop = &s.shocks[1];
-    assert_eq!(crop.probability, ShockProbability::Fixed(0.04));
+    let crop = &s.arms()[0].shocks()[1];
+    assert_eq!(*crop.probability(), ShockProbability::Fixed(0.04));
     assert_eq!(
-        (crop.village_correlation, crop.portfolio_correlation, crop.reach),
+        (crop.village_correlation(), crop.portfolio_correlation(), crop.reach()),
         (0.0, 0.0, 0.7)
     );
-    assert_eq!(crop.severity.support(), (0.3, 0.9));
+    assert_eq!(crop.severity().support(), (0.3, 0.9));
     // Windows come back sorted by their first cycle.
-    let windows: Vec<(u32, u32, f64)> = crop.stress.iter().map(|w| (w.from, w.to, w.probability)).collect();
+    let windows: Vec<(u32, u32, f64)> = crop
+        .stress()
+        .iter()
+        .map(|w| (w.from(), w.to(), w.probability()))
+        .collect();
     assert_eq!(windows, [(10, 11, 0.2), (20, 22, 0.3)]);
     assert_eq!(crop.probability_in_cycle(11, 6), 0.2);
     assert_eq!(crop.probability_in_cycle(12, 6), 0.04);
 
-    assert_eq!(s.shocks[2].severity.fixed_value(), Some(0.5));
-    assert_eq!(s.shocks[3].severity.fixed_value(), Some(0.3));
-    assert_eq!(s.shocks[3].reach, 0.4);
+    assert_eq!(s.arms()[0].shocks()[2].severity().fixed_value(), Some(0.5));
+    assert_eq!(s.arms()[0].shocks()[3].severity().fixed_value(), Some(0.3));
+    assert_eq!(s.arms()[0].shocks()[3].reach(), 0.4);
 
-    assert_eq!(s.arms.len(), 1);
-    let p = &s.arms[0].policy;
-    assert_eq!(p.group_size, 6);
-    assert_eq!(p.liability, Liability::Joint);
-    assert_eq!(p.peer_cover, 0.5);
-    assert_eq!(p.exclusion_cycles, Exclusion::Permanent);
-    assert_eq!(p.exclusion_scope, ExclusionScope::Defaulters);
-    assert_eq!(p.formation, Formation::Persistent);
-    assert_eq!(p.matching, Matching::Assortative);
-    assert_eq!((s.dropout, s.replace_departures), (0.02, false));
+    assert_eq!(s.arms().len(), 1);
+    let p = &s.arms()[0].policy();
+    assert_eq!(p.group_size(), 6);
+    assert_eq!(p.liability(), Liability::Joint);
+    assert_eq!(p.peer_cover(), 0.5);
+    assert_eq!(p.exclusion_cycles(), Exclusion::Permanent);
+    assert_eq!(p.exclusion_scope(), ExclusionScope::Defaulters);
+    assert_eq!(p.formation(), Formation::Persistent);
+    assert_eq!(p.matching(), Matching::Assortative);
+    assert_eq!((s.arms()[0].dropout(), s.arms()[0].replace_departures()), (0.02, false));
 }
 
 #[test]
 fn sweep_fixture_resolves_arms_in_written_order() {
     let s = load("scenarios", "sweep.toml");
-    assert_eq!(s.swept_fields, ["group_size", "exclusion_cycles"]);
-    let labels: Vec<&str> = s.arms.iter().map(|a| a.label.as_str()).collect();
+    assert_eq!(s.swept_paths(), ["group_size", "exclusion_cycles"]);
+    let labels: Vec<&str> = s.arms().iter().map(|a| a.label()).collect();
     assert_eq!(
         labels,
         [
@@ -252,15 +282,15 @@ fn sweep_fixture_resolves_arms_in_written_order() {
     );
     // The [policy] group size (3) is swept over, so it is not an arm; unswept fields carry through.
     assert!(
-        s.arms
+        s.arms()
             .iter()
-            .all(|a| a.policy.group_size != 3 && a.policy.peer_cover == 0.25)
+            .all(|a| a.policy().group_size() != 3 && a.policy().peer_cover() == 0.25)
     );
-    assert_eq!(s.arms[5].policy.group_size, 4);
-    assert_eq!(s.arms[5].policy.exclusion_cycles, Exclusion::Permanent);
-    assert_eq!(s.arms[4].policy.exclusion_cycles, Exclusion::Cycles(2));
-    for arm in &s.arms {
-        let phi = s.shocks[0].probability.at(arm.policy.group_size);
+    assert_eq!(s.arms()[5].policy().group_size(), 4);
+    assert_eq!(s.arms()[5].policy().exclusion_cycles(), Exclusion::Permanent);
+    assert_eq!(s.arms()[4].policy().exclusion_cycles(), Exclusion::Cycles(2));
+    for arm in s.arms() {
+        let phi = s.arms()[0].shocks()[0].probability().at(arm.policy().group_size());
         assert!((0.0..=1.0).contains(&phi));
     }
 }
@@ -487,7 +517,7 @@ fn sweep_builds_the_product_with_the_last_key_fastest() {
     let swept: Vec<(&str, &str, &str)> = s.arms()[3]
         .swept()
         .iter()
-        .map(|v| (v.path.as_str(), v.value.as_str(), v.written.as_str()))
+        .map(|v| (v.path(), v.value(), v.written()))
         .collect();
     assert_eq!(
         swept,
@@ -570,9 +600,11 @@ fn loan_pool_and_severity_fields_can_be_swept() {
     assert_eq!(arm.shocks()[0].severity().fixed_value(), Some(0.5));
     assert_eq!(arm.shocks()[0].portfolio_correlation(), 0.3);
     assert_eq!(s.arms()[0].interest_rate(), 0.0);
-    // The closed forms read one model for all arms: a sweep outside [policy] is out of their class.
-    let reason = loancycle::analytic::one_factor::class_check(&s).unwrap_err().reason;
-    assert!(reason.contains("the sweep varies loan.interest_rate"), "{reason}");
+    // The closed forms read each arm's own model: the swept amount due reaches the exact calculator.
+    let first = loancycle::analytic::one_factor::class_check(&s.arms()[0]).unwrap();
+    let second = loancycle::analytic::one_factor::class_check(arm).unwrap();
+    assert_eq!((first.amount_due, second.amount_due), (100.0, 120.0));
+    assert_eq!(second.portfolio_correlation, 0.3);
 }
 
 #[test]

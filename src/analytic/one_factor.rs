@@ -13,7 +13,7 @@ use super::{AnalyticError, bad, check_correlation, check_probability, normal, op
 use crate::curve::GroupSizeCurve;
 use crate::engine::settlement::{self, GroupPosition};
 use crate::maths::binomial_pmf_into;
-use crate::scenario::{Liability, Scenario, ShockProbability, ShockScope};
+use crate::scenario::{Arm, Liability, Scenario, ShockProbability, ShockScope};
 use serde::Serialize;
 
 /// Largest group size whose hit-count law is computed exactly: the law has k + 1 entries at every
@@ -98,35 +98,35 @@ impl OneFactorModel {
 /// Checks that a scenario is in the one-factor class and extracts its model. The class: fixed income,
 /// fixed risk, exactly one shock, of member scope, with fixed severity and no stress window; any
 /// correlations, curve, liability and peer cover.
-pub fn class_check(scenario: &Scenario) -> Result<OneFactorModel, OutOfClass> {
-    if let Some(path) = scenario.model_swept() {
-        return Err(OutOfClass::new(format!(
-            "the sweep varies {path}; exact values are computed for sweeps of [policy] fields only"
-        )));
-    }
-    let income = scenario.income.fixed_value().ok_or_else(|| {
+pub fn class_check(arm: &Arm) -> Result<OneFactorModel, OutOfClass> {
+    let income = arm.income().fixed_value().ok_or_else(|| {
         OutOfClass::new(format!(
             "borrowers.income is a {} distribution, not fixed",
-            scenario.income.kind_name()
+            arm.income().kind_name()
         ))
     })?;
-    let risk = scenario.risk.fixed_value().ok_or_else(|| {
+    let risk = arm.risk().fixed_value().ok_or_else(|| {
         OutOfClass::new(format!(
             "borrowers.risk is a {} distribution, not fixed",
-            scenario.risk.kind_name()
+            arm.risk().kind_name()
         ))
     })?;
-    let shock = match scenario.shocks.as_slice() {
+    let shock = match arm.shocks() {
         [] => {
             return Err(OutOfClass::new(
                 "the scenario has no shock; the class needs exactly one member-scope shock",
             ));
         }
         [only] => only,
-        [_, second, ..] => return Err(OutOfClass::new(format!("shock[1] '{}' is a second shock", second.name))),
+        [_, second, ..] => {
+            return Err(OutOfClass::new(format!(
+                "shock[1] '{}' is a second shock",
+                second.name()
+            )));
+        }
     };
-    if shock.scope != ShockScope::Member {
-        let scope = match shock.scope {
+    if shock.scope() != ShockScope::Member {
+        let scope = match shock.scope() {
             ShockScope::Member => "member",
             ShockScope::Group => "group",
             ShockScope::Village => "village",
@@ -134,31 +134,33 @@ pub fn class_check(scenario: &Scenario) -> Result<OneFactorModel, OutOfClass> {
         };
         return Err(OutOfClass::new(format!(
             "shock[0] '{}' has {scope} scope, not member scope",
-            shock.name
+            shock.name()
         )));
     }
-    let severity = shock.severity.fixed_value().ok_or_else(|| {
+    let severity = shock.severity().fixed_value().ok_or_else(|| {
         OutOfClass::new(format!(
             "shock[0] '{}' severity is a {} distribution, not fixed",
-            shock.name,
-            shock.severity.kind_name()
+            shock.name(),
+            shock.severity().kind_name()
         ))
     })?;
-    if let Some(w) = shock.stress.first() {
+    if let Some(w) = shock.stress().first() {
         return Err(OutOfClass::new(format!(
             "shock[0] '{}' has a stress window (cycles {}..={})",
-            shock.name, w.from, w.to
+            shock.name(),
+            w.from(),
+            w.to()
         )));
     }
     Ok(OneFactorModel {
-        shock_name: shock.name.clone(),
-        amount_due: scenario.amount_due(),
+        shock_name: shock.name().to_owned(),
+        amount_due: arm.amount_due(),
         income_ratio: income,
         risk,
         severity,
-        probability: shock.probability.clone(),
-        village_correlation: shock.village_correlation,
-        portfolio_correlation: shock.portfolio_correlation,
+        probability: shock.probability().clone(),
+        village_correlation: shock.village_correlation(),
+        portfolio_correlation: shock.portfolio_correlation(),
     })
 }
 
@@ -327,16 +329,16 @@ pub fn group_repayment(
 /// Exact results for one arm of a scenario; out-of-class scenarios, a missing arm and sizes the
 /// quadrature refuses all come back as [`OutOfClass`] with the reason.
 pub fn exact_for_arm(scenario: &Scenario, arm_index: usize) -> Result<OneFactorResult, OutOfClass> {
-    let model = class_check(scenario)?;
-    let arm = scenario.arms.get(arm_index).ok_or_else(|| {
+    let arm = scenario.arms().get(arm_index).ok_or_else(|| {
         OutOfClass::new(format!(
             "arm index {arm_index} does not exist: the scenario has {} arm(s)",
-            scenario.arms.len()
+            scenario.arms().len()
         ))
     })?;
-    let policy = &arm.policy;
-    group_repayment(&model, policy.group_size, policy.liability, policy.peer_cover)
-        .map_err(|e| OutOfClass::new(format!("arm '{}': {e}", arm.label)))
+    let model = class_check(arm)?;
+    let policy = &arm.policy();
+    group_repayment(&model, policy.group_size(), policy.liability(), policy.peer_cover())
+        .map_err(|e| OutOfClass::new(format!("arm '{}': {e}", arm.label())))
 }
 
 #[cfg(test)]
@@ -517,7 +519,7 @@ mod tests {
     #[test]
     fn class_check_names_the_feature_outside_the_class() {
         let s = scenario();
-        let m = class_check(&s).unwrap();
+        let m = class_check(&s.arms[0]).unwrap();
         assert!((m.rho() - 0.15).abs() < 1e-15);
         assert!((m.amount_due - 110.0).abs() < 1e-12);
         let result = exact_for_arm(&s, 0).unwrap();
@@ -525,61 +527,61 @@ mod tests {
         assert!(exact_for_arm(&s, 3).unwrap_err().reason.contains("arm index 3"));
 
         let mut t = s.clone();
-        t.income = Distribution::lognormal(1.5, 0.3).unwrap();
+        t.arms[0].income = Distribution::lognormal(1.5, 0.3).unwrap();
         assert_eq!(
-            class_check(&t).unwrap_err().reason,
+            class_check(&t.arms[0]).unwrap_err().reason,
             "borrowers.income is a lognormal distribution, not fixed"
         );
         let mut t = s.clone();
-        t.risk = Distribution::gamma(1.0, 0.5).unwrap();
+        t.arms[0].risk = Distribution::gamma(1.0, 0.5).unwrap();
         assert_eq!(
-            class_check(&t).unwrap_err().reason,
+            class_check(&t.arms[0]).unwrap_err().reason,
             "borrowers.risk is a gamma distribution, not fixed"
         );
         let mut t = s.clone();
-        let mut second = t.shocks[0].clone();
+        let mut second = t.arms[0].shocks[0].clone();
         second.name = "harvest".into();
-        t.shocks.push(second);
+        t.arms[0].shocks.push(second);
         assert_eq!(
-            class_check(&t).unwrap_err().reason,
+            class_check(&t.arms[0]).unwrap_err().reason,
             "shock[1] 'harvest' is a second shock"
         );
         let mut t = s.clone();
-        t.shocks[0].stress.push(StressWindow {
+        t.arms[0].shocks[0].stress.push(StressWindow {
             from: 3,
             to: 5,
             probability: 0.5,
         });
         assert!(
-            class_check(&t)
+            class_check(&t.arms[0])
                 .unwrap_err()
                 .reason
                 .starts_with("shock[0] 'illness' has a stress window")
         );
         let mut t = s.clone();
-        t.shocks[0].scope = ShockScope::Village;
+        t.arms[0].shocks[0].scope = ShockScope::Village;
         assert_eq!(
-            class_check(&t).unwrap_err().reason,
+            class_check(&t.arms[0]).unwrap_err().reason,
             "shock[0] 'illness' has village scope, not member scope"
         );
         let mut t = s.clone();
-        t.shocks[0].severity = Distribution::beta(0.5, 0.1).unwrap();
+        t.arms[0].shocks[0].severity = Distribution::beta(0.5, 0.1).unwrap();
         assert!(
-            class_check(&t)
+            class_check(&t.arms[0])
                 .unwrap_err()
                 .reason
                 .contains("severity is a beta distribution")
         );
         let mut t = s;
-        t.shocks.clear();
-        assert!(class_check(&t).unwrap_err().reason.contains("no shock"));
+        t.arms[0].shocks.clear();
+        assert!(class_check(&t.arms[0]).unwrap_err().reason.contains("no shock"));
     }
 
     #[test]
     fn curve_probability_uses_the_arm_size_and_reports_the_curve_optimum() {
         let mut s = scenario();
         let curve = GroupSizeCurve::power_plus_log(0.5).unwrap();
-        s.shocks[0].probability = ShockProbability::Curve(curve.clone());
+        s.arms[0].shocks[0].probability = ShockProbability::Curve(curve.clone());
         let r = exact_for_arm(&s, 0).unwrap();
         assert!((r.hit_probability - curve.at(5).unwrap()).abs() < 1e-15);
         assert_eq!(r.class_optimum, optimum::closed_form_optimum(&curve));

@@ -117,12 +117,16 @@ pub struct ArmPortfolioLaws {
 
 /// The exact laws of every arm of a scenario.
 pub fn portfolio_default_laws(scenario: &Scenario) -> Vec<ArmPortfolioLaws> {
-    (0..scenario.arms.len()).map(|a| arm_laws(scenario, a)).collect()
+    (0..scenario.arms().len()).map(|a| arm_laws(scenario, a)).collect()
 }
 
 /// The exact laws of arm `arm` (normal cycles and each stress state); never fails as a whole.
 pub fn arm_laws(scenario: &Scenario, arm: usize) -> ArmPortfolioLaws {
-    let label = scenario.arms.get(arm).map(|a| a.label.clone()).unwrap_or_default();
+    let label = scenario
+        .arms()
+        .get(arm)
+        .map(|a| a.label().to_owned())
+        .unwrap_or_default();
     let empty = |reason: String| ArmPortfolioLaws {
         label: label.clone(),
         portfolio_default_law: None,
@@ -158,16 +162,16 @@ pub fn arm_laws(scenario: &Scenario, arm: usize) -> ArmPortfolioLaws {
 /// portfolio factor; at most [`MAX_STRIKE_SHOCKS`] shocks of each unit scope.
 pub fn class_check(scenario: &Scenario, arm: usize) -> Result<(), OutOfClass> {
     let out = |reason: String| Err(OutOfClass { reason });
-    let Some(arm_def) = scenario.arms.get(arm) else {
+    let Some(arm_def) = scenario.arms().get(arm) else {
         return out(format!(
             "arm index {arm} does not exist: the scenario has {} arm(s)",
-            scenario.arms.len()
+            scenario.arms().len()
         ));
     };
-    let Some(w) = scenario.income.fixed_value() else {
+    let Some(w) = scenario.arms()[arm].income().fixed_value() else {
         return out(format!(
             "borrowers.income is a {} distribution, not fixed",
-            scenario.income.kind_name()
+            scenario.arms()[arm].income().kind_name()
         ));
     };
     if w < 1.0 {
@@ -175,45 +179,45 @@ pub fn class_check(scenario: &Scenario, arm: usize) -> Result<(), OutOfClass> {
             "borrowers.income = {w} is below 1: members are short without any shock"
         ));
     }
-    if scenario.risk.fixed_value().is_none() {
+    if scenario.arms()[arm].risk().fixed_value().is_none() {
         return out(format!(
             "borrowers.risk is a {} distribution, not fixed",
-            scenario.risk.kind_name()
+            scenario.arms()[arm].risk().kind_name()
         ));
     }
     let (mut village_factor, mut portfolio_factor) = (None::<usize>, None::<usize>);
     let mut per_scope: BTreeMap<&str, usize> = BTreeMap::new();
-    for (i, shock) in scenario.shocks.iter().enumerate() {
-        let Some(s) = shock.severity.fixed_value() else {
+    for (i, shock) in scenario.arms()[arm].shocks().iter().enumerate() {
+        let Some(s) = shock.severity().fixed_value() else {
             return out(format!(
                 "shock[{i}] '{}' severity is a {} distribution, not fixed",
-                shock.name,
-                shock.severity.kind_name()
+                shock.name(),
+                shock.severity().kind_name()
             ));
         };
         if w * (1.0 - s) >= 1.0 {
             return out(format!(
                 "shock[{i}] '{}' severity = {s} leaves a hit member able to repay (income x (1 - severity) = {} >= 1)",
-                shock.name,
+                shock.name(),
                 w * (1.0 - s)
             ));
         }
-        match shock.scope {
+        match shock.scope() {
             ShockScope::Member => {
-                if shock.village_correlation > 0.0 {
+                if shock.village_correlation() > 0.0 {
                     if let Some(j) = village_factor {
                         return out(format!(
                             "shock[{i}] '{}' has a village correlation as shock[{j}] does; the exact law integrates one village factor",
-                            shock.name
+                            shock.name()
                         ));
                     }
                     village_factor = Some(i);
                 }
-                if shock.portfolio_correlation > 0.0 {
+                if shock.portfolio_correlation() > 0.0 {
                     if let Some(j) = portfolio_factor {
                         return out(format!(
                             "shock[{i}] '{}' has a portfolio correlation as shock[{j}] does; the exact law integrates one portfolio factor",
-                            shock.name
+                            shock.name()
                         ));
                     }
                     portfolio_factor = Some(i);
@@ -226,23 +230,25 @@ pub fn class_check(scenario: &Scenario, arm: usize) -> Result<(), OutOfClass> {
                 if *n > MAX_STRIKE_SHOCKS {
                     return out(format!(
                         "shock[{i}] '{}' is {name}-scope shock number {}; the exact law enumerates at most {MAX_STRIKE_SHOCKS} per scope",
-                        shock.name, *n
+                        shock.name(),
+                        *n
                     ));
                 }
             }
         }
     }
-    let policy = &arm_def.policy;
-    if policy.exclusion_cycles != Exclusion::Cycles(0) {
+    let policy = &arm_def.policy();
+    if policy.exclusion_cycles() != Exclusion::Cycles(0) {
         return out(format!(
             "policy.exclusion_cycles = {} in arm '{}': excluded members change who is served from cycle to cycle",
-            policy.exclusion_cycles, arm_def.label
+            policy.exclusion_cycles(),
+            arm_def.label()
         ));
     }
-    if scenario.dropout > 0.0 && !scenario.replace_departures {
+    if scenario.arms()[arm].dropout() > 0.0 && !scenario.arms()[arm].replace_departures() {
         return out(format!(
             "pool.replace_departures = false with pool.dropout = {}: departures shrink the portfolio from cycle to cycle",
-            scenario.dropout
+            scenario.arms()[arm].dropout()
         ));
     }
     Ok(())
@@ -272,21 +278,21 @@ struct StressState {
 /// reference law even if every counted cycle is stressed), then stressed states in order of first
 /// occurrence. Cycles in a window whose probabilities equal the normal ones count as normal.
 fn stress_states(scenario: &Scenario, arm: usize) -> Vec<StressState> {
-    let k = scenario.arms[arm].policy.group_size;
+    let k = scenario.arms()[arm].policy().group_size();
     let key = |cycle: Option<u32>| -> Vec<u64> {
-        scenario
-            .shocks
+        scenario.arms()[arm]
+            .shocks()
             .iter()
             .map(|s| match cycle {
                 Some(c) => s.probability_in_cycle(c, k),
-                None => s.probability.at(k),
+                None => s.probability().at(k),
             })
             .map(f64::to_bits)
             .collect()
     };
     let normal = key(None);
     let mut states: Vec<(Vec<u64>, Option<u32>, Vec<u32>)> = vec![(normal, None, Vec::new())];
-    for c in scenario.warmup_cycles + 1..=scenario.total_cycles() {
+    for c in scenario.warmup_cycles() + 1..=scenario.total_cycles() {
         let kc = key(Some(c));
         match states.iter_mut().find(|s| s.0 == kc) {
             Some(s) => s.2.push(c),
@@ -396,14 +402,14 @@ impl CycleModel {
     /// Builds the model of arm `arm` with the probabilities of `cycle` (`None`: normal cycles).
     /// Assumes [`class_check`] passed.
     fn new(scenario: &Scenario, arm: usize, cycle: Option<u32>) -> Result<Self, OutOfClass> {
-        let policy = &scenario.arms[arm].policy;
-        let k = policy.group_size;
-        let w = scenario.income.fixed_value().unwrap_or(1.0);
-        let u = scenario.risk.fixed_value().unwrap_or(1.0);
+        let policy = &scenario.arms()[arm].policy();
+        let k = policy.group_size();
+        let w = scenario.arms()[arm].income().fixed_value().unwrap_or(1.0);
+        let u = scenario.arms()[arm].risk().fixed_value().unwrap_or(1.0);
         let mut sources = Vec::new();
         let mut multipliers = Vec::new();
         let mut portfolio_correlation = None;
-        for shock in &scenario.shocks {
+        for shock in scenario.arms()[arm].shocks() {
             let base = match cycle {
                 Some(c) => shock.probability_in_cycle(c, k),
                 None => shock.probability.at(k),
@@ -446,17 +452,20 @@ impl CycleModel {
             .iter()
             .any(|s| matches!(*s, Source::Member { a_v, .. } if a_v > 0.0));
         let portfolio_factor = portfolio_correlation.is_some();
-        let settlement = match policy.liability {
+        let settlement = match policy.liability() {
             Liability::Individual => Settlement::Individual,
-            Liability::Joint => joint_settlement(k, w, scenario.amount_due(), policy.peer_cover, &active, &multipliers)
-                .map_err(|reason| OutOfClass {
-                    reason: format!("arm '{}': {reason}", scenario.arms[arm].label),
-                })?,
+            Liability::Joint => {
+                joint_settlement(k, w, scenario.amount_due(), policy.peer_cover(), &active, &multipliers).map_err(
+                    |reason| OutOfClass {
+                        reason: format!("arm '{}': {reason}", scenario.arms()[arm].label()),
+                    },
+                )?
+            }
         };
         let mut by_units: BTreeMap<u32, u32> = BTreeMap::new();
-        for v in 0..scenario.villages {
+        for v in 0..scenario.villages() {
             let groups = scenario.village_size(v) / k;
-            let units = match policy.liability {
+            let units = match policy.liability() {
                 Liability::Individual => groups * k,
                 Liability::Joint => groups,
             };
@@ -470,12 +479,12 @@ impl CycleModel {
             return Err(OutOfClass {
                 reason: format!(
                     "policy.group_size = {k} in arm '{}' exceeds every village's size: no loans are made",
-                    scenario.arms[arm].label
+                    scenario.arms()[arm].label()
                 ),
             });
         }
         Ok(CycleModel {
-            liability: policy.liability,
+            liability: policy.liability(),
             k,
             sources,
             active,

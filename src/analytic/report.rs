@@ -95,6 +95,8 @@ pub struct HitShareQuantile {
 pub struct HitShareEntry {
     /// The per-cycle hit probability p.
     pub p: f64,
+    /// The factor loading these arms' members share (village + portfolio correlation).
+    pub rho: f64,
     /// Labels of the arms whose group size gives this p.
     pub arms: Vec<String>,
     /// The large-pool quantile of the hit share at each of [`HIT_SHARE_LEVELS`].
@@ -120,11 +122,11 @@ pub struct HitShareSection {
     pub shock_name: String,
     /// Which population the law describes.
     pub scope: HitShareScope,
-    /// The factor correlation the population shares: village + portfolio correlation.
+    /// The first arm's factor loading, village + portfolio correlation (each entry has its own).
     pub rho: f64,
     /// Members of that population (all borrowers, or the largest village).
     pub population: u32,
-    /// One entry per distinct hit probability across the arms.
+    /// One entry per distinct hit probability, loading and loss given default across the arms.
     pub entries: Vec<HitShareEntry>,
     /// Conditions under which the law holds.
     pub notes: Vec<String>,
@@ -159,7 +161,7 @@ pub struct AnalyzeReport {
 
 /// Builds the report. Nothing here fails as a whole: each part records its own reason.
 pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
-    let class = one_factor::class_check(scenario);
+    let class = one_factor::class_check(&scenario.arms()[0]);
     let (model, out_of_class) = match class {
         Ok(m) => (Some(m), None),
         Err(e) => (None, Some(e.reason)),
@@ -171,26 +173,28 @@ pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
         .collect::<Vec<_>>()
         .into_iter();
     let mut arms: Vec<ArmExact> = scenario
-        .arms
+        .arms()
         .iter()
         .enumerate()
         .map(|(index, arm)| {
-            let policy = &arm.policy;
-            let computed = model.as_ref().map(|m| {
-                one_factor::group_repayment(m, policy.group_size, policy.liability, policy.peer_cover)
+            let policy = &arm.policy();
+            // Each arm is checked against the class on its own model: a sweep may vary any input.
+            let computed = one_factor::class_check(arm).map_err(|e| e.reason).and_then(|m| {
+                one_factor::group_repayment(&m, policy.group_size(), policy.liability(), policy.peer_cover())
                     .map_err(|e| e.to_string())
             });
             let (exact, reason) = match computed {
-                Some(Ok(r)) => (Some(r), None),
-                Some(Err(e)) => (None, Some(e)),
-                None => (None, None),
+                Ok(r) => (Some(r), None),
+                // The first arm's reason is the report's; an arm repeating it says nothing new.
+                Err(e) if out_of_class.as_deref() == Some(e.as_str()) => (None, None),
+                Err(e) => (None, Some(e)),
             };
             ArmExact {
                 index,
-                label: arm.label.clone(),
-                group_size: policy.group_size,
-                liability: policy.liability,
-                peer_cover: policy.peer_cover,
+                label: arm.label().to_owned(),
+                group_size: policy.group_size(),
+                liability: policy.liability(),
+                peer_cover: policy.peer_cover(),
                 exact,
                 reason,
                 portfolio_default_law: None,
@@ -219,7 +223,7 @@ pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
             .and_then(|e| e.basel.clone())
     });
     AnalyzeReport {
-        scenario: scenario.name.clone(),
+        scenario: scenario.name().to_owned(),
         out_of_class,
         model,
         portfolio_default_law: first.and_then(|a| a.portfolio_default_law.clone()),
@@ -234,93 +238,102 @@ pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
 }
 
 fn hit_share_section(scenario: &Scenario) -> Result<HitShareSection, String> {
-    if let Some(path) = scenario.model_swept() {
-        return Err(format!(
-            "the sweep varies {path}; the law is computed for sweeps of [policy] fields only"
-        ));
-    }
-    let (index, shock) = scenario
-        .shocks
+    let first = &scenario.arms()[0];
+    let (index, shock) = first
+        .shocks()
         .iter()
         .enumerate()
-        .find(|(_, s)| s.scope == ShockScope::Member)
+        .find(|(_, s)| s.scope() == ShockScope::Member)
         .ok_or_else(|| "the scenario has no member-scope shock, and only those follow a one-factor law".to_string())?;
-    let risk = scenario.risk.fixed_value().ok_or_else(|| {
-        format!(
-            "borrowers.risk is a {} distribution, not fixed, so members' hit probabilities differ and the hit share is a mixture of one-factor laws",
-            scenario.risk.kind_name()
-        )
-    })?;
-    if scenario.villages == 0 || scenario.borrowers == 0 {
+    // A sweep may vary the shock's correlations or probability, the risk multiplier or the recovery
+    // rate: every arm is read from its own model (the same shock, by index, in every arm).
+    let mut per_arm = Vec::with_capacity(scenario.arms().len());
+    for arm in scenario.arms() {
+        let own = &arm.shocks()[index];
+        let risk = arm.risk().fixed_value().ok_or_else(|| {
+            format!(
+                "borrowers.risk is a {} distribution, not fixed, so members' hit probabilities differ and the hit share is a mixture of one-factor laws",
+                arm.risk().kind_name()
+            )
+        })?;
+        per_arm.push((arm, own, risk));
+    }
+    if scenario.villages() == 0 || scenario.borrowers() == 0 {
         return Err(format!(
             "portfolio has {} borrowers in {} villages; the hit share needs at least one of each",
-            scenario.borrowers, scenario.villages
+            scenario.borrowers(),
+            scenario.villages()
         ));
     }
-    let (v, pc) = (shock.village_correlation, shock.portfolio_correlation);
+    let (v, pc) = (shock.village_correlation(), shock.portfolio_correlation());
     let rho = v + pc;
-    let scope = if scenario.villages > 1 && v > 0.0 {
+    // Within one village members share loading v + pc whatever v is; the whole portfolio is one
+    // one-factor population only when no arm has a village factor.
+    let scope = if scenario.villages() > 1 && per_arm.iter().any(|(_, s, _)| s.village_correlation() > 0.0) {
         HitShareScope::PerVillage
     } else {
         HitShareScope::Portfolio
     };
     let village_members = scenario.village_size(0);
     let population = match scope {
-        HitShareScope::Portfolio => scenario.borrowers,
+        HitShareScope::Portfolio => scenario.borrowers(),
         HitShareScope::PerVillage => village_members,
     };
     let mut notes = Vec::new();
     match scope {
-        HitShareScope::Portfolio if scenario.villages > 1 => notes.push(format!(
+        HitShareScope::Portfolio if scenario.villages() > 1 => notes.push(format!(
             "villages share no factor of their own (village correlation 0), so all {} members share one factor of loading {}",
-            scenario.borrowers,
+            scenario.borrowers(),
             short(rho)
         )),
         HitShareScope::Portfolio => {
-            notes.push(format!("one village: all {} members share one factor of loading {}", scenario.borrowers, short(rho)))
+            notes.push(format!("one village: all {} members share one factor of loading {}", scenario.borrowers(), short(rho)))
         }
         HitShareScope::PerVillage => notes.push(format!(
             "with {} villages and village correlation {}, the portfolio-wide hit share mixes independent village factors and is not a one-factor law; shown: the hit share within one village (members share loading {} + {} = {})",
-            scenario.villages,
+            scenario.villages(),
             short(v),
             short(v),
             short(pc),
             short(rho)
         )),
     }
-    if scenario.shocks.len() > 1 {
+    if scenario.arms()[0].shocks().len() > 1 {
         notes.push(format!(
             "shock[{index}] '{}' alone; the scenario's other shocks add further hits",
-            shock.name
+            shock.name()
         ));
     }
-    if !shock.stress.is_empty() {
+    if !shock.stress().is_empty() {
         notes.push("holds outside the shock's stress windows, which change p".to_string());
     }
     notes.push(format!(
         "finite pool: the largest village, {village_members} members, at the same loading"
     ));
 
-    // One entry per distinct hit probability; a curve gives one per distinct group size.
-    let mut by_p: BTreeMap<u64, (f64, Vec<String>)> = BTreeMap::new();
-    let base_p = |k: u32| -> Result<f64, String> {
-        match &shock.probability {
-            ShockProbability::Fixed(p) => Ok(*p),
+    // One entry per distinct (hit probability, loading, loss given default); a curve gives one per
+    // distinct group size, a swept correlation one per value.
+    type Key = (u64, u64, u64);
+    let mut by_model: BTreeMap<Key, (f64, f64, f64, Vec<String>)> = BTreeMap::new();
+    for (arm, own, risk) in &per_arm {
+        let k = arm.policy().group_size();
+        let base = match own.probability() {
+            ShockProbability::Fixed(p) => *p,
             ShockProbability::Curve(c) => c
                 .at(k)
-                .ok_or_else(|| format!("group size {k} is outside the curve's domain ({})", c.domain_text())),
-        }
-    };
-    for arm in &scenario.arms {
-        let p = (risk * base_p(arm.policy.group_size)?).min(1.0);
-        by_p.entry(p.to_bits())
-            .or_insert_with(|| (p, Vec::new()))
-            .1
-            .push(arm.label.clone());
+                .ok_or_else(|| format!("group size {k} is outside the curve's domain ({})", c.domain_text()))?,
+        };
+        let p = (risk * base).min(1.0);
+        let rho = own.village_correlation() + own.portfolio_correlation();
+        let lgd = 1.0 - arm.recovery_rate();
+        by_model
+            .entry((p.to_bits(), rho.to_bits(), lgd.to_bits()))
+            .or_insert_with(|| (p, rho, lgd, Vec::new()))
+            .3
+            .push(arm.label().to_owned());
     }
-    let lgd = 1.0 - scenario.recovery_rate;
     let mut entries = Vec::new();
-    for (_, (p, arms)) in by_p {
+    for (_, (p, rho, lgd, arms)) in by_model {
         let quantiles = HIT_SHARE_LEVELS
             .iter()
             .map(|&level| vasicek::quantile(level, p, rho).map(|share| HitShareQuantile { level, share }))
@@ -333,6 +346,7 @@ fn hit_share_section(scenario: &Scenario) -> Result<HitShareSection, String> {
         };
         entries.push(HitShareEntry {
             p,
+            rho,
             arms,
             quantiles,
             finite_members: village_members,
@@ -344,7 +358,7 @@ fn hit_share_section(scenario: &Scenario) -> Result<HitShareSection, String> {
         });
     }
     Ok(HitShareSection {
-        shock_name: shock.name.clone(),
+        shock_name: shock.name().to_owned(),
         scope,
         rho,
         population,
@@ -474,7 +488,9 @@ mod tests {
     #[test]
     fn out_of_class_scenario_says_why_and_still_shows_the_law() {
         let mut s = scenario(1, 0.1);
-        s.income = Distribution::lognormal(1.4, 0.3).unwrap();
+        for arm in &mut s.arms {
+            arm.income = Distribution::lognormal(1.4, 0.3).unwrap();
+        }
         let report = analyze(&s);
         assert_eq!(
             report.out_of_class.as_deref(),
@@ -483,7 +499,9 @@ mod tests {
         assert!(report.arms.iter().all(|a| a.exact.is_none()));
         assert!(report.hit_share.is_some());
         assert!(crate::output::analysis::table(&report).contains("out of class: borrowers.income"));
-        s.risk = Distribution::gamma(1.0, 0.4).unwrap();
+        for arm in &mut s.arms {
+            arm.risk = Distribution::gamma(1.0, 0.4).unwrap();
+        }
         let report = analyze(&s);
         assert!(report.hit_share_reason.as_deref().unwrap().contains("borrowers.risk"));
         assert!(crate::output::analysis::table(&report).trim_end().ends_with(CAUTION));
@@ -496,7 +514,9 @@ mod tests {
         let report = analyze(&s);
         assert!(report.hit_share_reason.as_deref().unwrap().contains("0 villages"));
         s.arms[0].policy.group_size = 0;
-        s.shocks[0].village_correlation = 2.0;
+        for arm in &mut s.arms {
+            arm.shocks[0].village_correlation = 2.0;
+        }
         let report = analyze(&s);
         assert!(report.arms[0].reason.as_deref().unwrap().contains("group size = 0"));
         assert!(
@@ -511,12 +531,38 @@ mod tests {
     #[test]
     fn curve_probability_gives_one_entry_per_group_size() {
         let mut s = scenario(1, 0.1);
-        s.shocks[0].probability = ShockProbability::Curve(GroupSizeCurve::power_plus_log(0.5).unwrap());
+        for arm in &mut s.arms {
+            arm.shocks[0].probability = ShockProbability::Curve(GroupSizeCurve::power_plus_log(0.5).unwrap());
+        }
         s.arms[1].policy.group_size = 8;
         let report = analyze(&s);
         let section = report.hit_share.as_ref().unwrap();
         assert_eq!(section.entries.len(), 2);
         let x = report.arms[0].exact.as_ref().unwrap().class_optimum.unwrap();
         assert!((x - 5.135).abs() < 1e-3);
+    }
+
+    /// A swept correlation gives each arm its own exact value and its own hit-share law: the values
+    /// equal those of the scenario written once per correlation, with no sweep.
+    #[test]
+    fn a_correlation_sweep_is_analysed_arm_by_arm() {
+        let base = "replications = 1\ncycles = 10\n[portfolio]\nborrowers = 400\nvillages = 4\n[loan]\nprincipal = 100\n\
+            [borrowers]\nincome = 1.4\n[[shock]]\nname = \"drought\"\nscope = \"member\"\nprobability = 0.05\n\
+            village_correlation = RHO\nseverity = 0.7\n";
+        let swept = format!(
+            "{}[sweep]\n\"shock.drought.village_correlation\" = [0.05, 0.2]\n",
+            base.replace("RHO", "0.1")
+        );
+        let report = analyze(&Scenario::from_toml_str(&swept, "inline").unwrap());
+        assert!(report.out_of_class.is_none());
+        let section = report.hit_share.as_ref().unwrap();
+        assert_eq!(section.entries.len(), 2);
+        for (i, rho) in [0.05, 0.2].into_iter().enumerate() {
+            let alone = analyze(&Scenario::from_toml_str(&base.replace("RHO", &rho.to_string()), "inline").unwrap());
+            let expected = alone.arms[0].exact.as_ref().unwrap().group_repayment;
+            assert_eq!(report.arms[i].exact.as_ref().unwrap().group_repayment, expected);
+            let entry = section.entries.iter().find(|e| e.rho == rho).unwrap();
+            assert_eq!(entry.quantiles, alone.hit_share.as_ref().unwrap().entries[0].quantiles);
+        }
     }
 }

@@ -9,12 +9,12 @@ impl ArmReplication<'_> {
     /// defaulting group (defaulters scope), or each defaulting member (individual liability) sits
     /// out cycles t+1 ..= t+E, or leaves for good (`permanent`).
     pub(super) fn exclusion(&mut self, v: usize, cycle: u32) {
-        let exclusion = self.policy.exclusion_cycles;
+        let exclusion = self.policy.exclusion_cycles();
         if exclusion == Exclusion::Cycles(0) {
             return;
         }
-        let joint = self.policy.liability == Liability::Joint;
-        let whole_group = self.policy.exclusion_scope == ExclusionScope::Group;
+        let joint = self.policy.liability() == Liability::Joint;
+        let whole_group = self.policy.exclusion_scope() == ExclusionScope::Group;
         let first = self.groups.village_first[v];
         for (group, &repaid) in self.groups.iter_from(first).zip(&self.group_repaid[first..]) {
             if joint && repaid {
@@ -34,7 +34,7 @@ impl ArmReplication<'_> {
 
     /// Step 7: each present member, excluded ones included, leaves with probability `dropout`.
     pub(super) fn dropout(&mut self, v: usize, cycle: u32) {
-        let q = self.arm.dropout;
+        let q = self.arm.dropout();
         if q <= 0.0 {
             return;
         }

@@ -24,7 +24,7 @@ impl ArmReplication<'_> {
         let range = self.layout.range(v);
         self.pool.assigned[range.clone()].fill(false);
         self.groups.village_first[v] = self.groups.len();
-        if self.policy.formation == Formation::Persistent && !self.previous.is_empty() {
+        if self.policy.formation() == Formation::Persistent && !self.previous.is_empty() {
             self.keep_persistent_groups(v, cycle);
         }
         self.form_village(v, cycle);
@@ -76,7 +76,7 @@ impl ArmReplication<'_> {
 
     /// Orders the village's unassigned eligible members and cuts them into groups of k.
     fn form_village(&mut self, v: usize, cycle: u32) {
-        let k = self.policy.group_size as usize;
+        let k = self.policy.group_size() as usize;
         let (start, end) = (self.layout.village_start[v], self.layout.village_start[v + 1]);
         let size = end - start;
         let needs_keys = k > 1;
@@ -85,7 +85,7 @@ impl ArmReplication<'_> {
             self.dense.fill(&self.key, id, size, 2);
         }
         let scratch = &mut self.formation_scratch;
-        match self.policy.matching {
+        match self.policy.matching() {
             Matching::Random => {
                 // Sort keys pack the slot's random word above its index in the village, so one
                 // integer comparison orders by the random word and breaks ties by position.

@@ -68,22 +68,26 @@ impl MemoryEstimate {
 
 /// Estimates the peak memory of simulating and reporting `scenario` on `threads` worker threads.
 pub fn estimate(scenario: &Scenario, threads: usize) -> MemoryEstimate {
-    let slots = u64::from(scenario.borrowers);
-    let villages = u64::from(scenario.villages.max(1));
+    let slots = u64::from(scenario.borrowers());
+    let villages = u64::from(scenario.villages().max(1));
     let largest_village = slots.div_ceil(villages);
-    let member_shocks = scenario.shocks.iter().filter(|s| s.scope == ShockScope::Member).count() as u64;
-    let shocks = scenario.shocks.len() as u64;
+    let member_shocks = scenario.arms()[0]
+        .shocks()
+        .iter()
+        .filter(|s| s.scope() == ShockScope::Member)
+        .count() as u64;
+    let shocks = scenario.arms()[0].shocks().len() as u64;
     let persistent = scenario
-        .arms
+        .arms()
         .iter()
-        .any(|a| a.policy.formation == Formation::Persistent);
+        .any(|a| a.policy().formation() == Formation::Persistent);
     let largest_group = scenario
-        .arms
+        .arms()
         .iter()
-        .map(|a| u64::from(a.policy.group_size))
+        .map(|a| u64::from(a.policy().group_size()))
         .max()
         .unwrap_or(1);
-    let cycles = u64::from(scenario.cycles);
+    let cycles = u64::from(scenario.cycles());
     let record_bytes = std::mem::size_of::<CycleRecord>() as u64;
     let tally_bytes = std::mem::size_of::<ReplicationTally>() as u64;
     // One replication's tally: the struct (twice: the arm's list grows by doubling), its per-cycle
@@ -93,12 +97,12 @@ pub fn estimate(scenario: &Scenario, threads: usize) -> MemoryEstimate {
     let per_slot = SLOT_BYTES + member_shocks * SLOT_SHOCK_BYTES + if persistent { SLOT_PERSISTENT_BYTES } else { 0 };
     let worker_bytes =
         slots * per_slot + largest_village * VILLAGE_SLOT_BYTES + villages * shocks * VILLAGE_SHOCK_BYTES + one_tally;
-    let tasks = u64::from(scenario.replications) * scenario.arms.len() as u64;
+    let tasks = u64::from(scenario.replications()) * scenario.arms().len() as u64;
     MemoryEstimate {
         workers: (threads.max(1) as u64).min(tasks.max(1)),
         worker_bytes,
         tally_bytes: tasks * one_tally,
-        summary_bytes: u64::from(scenario.replications) * cycles * SUMMARY_RECORD_BYTES,
+        summary_bytes: u64::from(scenario.replications()) * cycles * SUMMARY_RECORD_BYTES,
         base_bytes: BASE_BYTES,
     }
 }

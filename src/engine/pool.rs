@@ -171,7 +171,7 @@ impl ArmReplication<'_> {
     /// are replaced). Each entrant's attributes come from its own (slot, entrant) stream, so a
     /// rejection sampler's retries can never shift another entrant's draws.
     pub(super) fn entry(&mut self, v: usize, cycle: u32) {
-        if cycle > 1 && !self.arm.replace_departures {
+        if cycle > 1 && !self.arm.replace_departures() {
             return;
         }
         for i in self.layout.range(v) {
@@ -182,8 +182,8 @@ impl ArmReplication<'_> {
             self.pool.entrants[i] += 1;
             let slot = self.layout.slot_of(v, i);
             let mut rng = streams::open(&self.key, streams::entry_stream_id(slot, entrant));
-            let income = self.arm.income.sample(&mut rng);
-            let risk = self.arm.risk.sample(&mut rng);
+            let income = self.arm.income().sample(&mut rng);
+            let risk = self.arm.risk().sample(&mut rng);
             self.pool.occupied[i] = true;
             self.pool.income[i] = income;
             self.pool.risk[i] = risk;

@@ -116,10 +116,10 @@ impl ArmReplication<'_> {
     /// Records who fell short and which groups repaid, for the exclusion step.
     pub(super) fn settlement(&mut self, v: usize, counted: bool, record: &mut CycleRecord) {
         let d = self.due;
-        let principal = self.arm.principal;
-        let recovery = self.arm.recovery_rate;
-        let lambda = self.policy.peer_cover;
-        let joint = self.policy.liability == Liability::Joint;
+        let principal = self.arm.principal();
+        let recovery = self.arm.recovery_rate();
+        let lambda = self.policy.peer_cover();
+        let joint = self.policy.liability() == Liability::Joint;
         let (first, last) = (self.groups.village_first[v], self.groups.len());
         self.group_repaid.resize(last, false);
         for (group, repaid) in self.groups.iter_from(first).zip(&mut self.group_repaid[first..]) {

@@ -45,18 +45,18 @@ impl ShockState {
     /// The state for a scenario's shocks, before the first cycle.
     pub fn new(arm: &Arm) -> Self {
         let member_shocks: Vec<usize> = arm
-            .shocks
+            .shocks()
             .iter()
             .enumerate()
-            .filter(|(_, s)| s.scope == ShockScope::Member)
+            .filter(|(_, s)| s.scope() == ShockScope::Member)
             .map(|(i, _)| i)
             .collect();
         ShockState {
             cached_probability: vec![f64::NAN; member_shocks.len()],
             member_shocks,
-            shared_risk: arm.risk.fixed_value().is_some(),
+            shared_risk: arm.risk().fixed_value().is_some(),
             cycle: Vec::new(),
-            village_draws: vec![DenseBlocks::default(); arm.shocks.len()],
+            village_draws: vec![DenseBlocks::default(); arm.shocks().len()],
             dense_reach: DenseBlocks::default(),
             hits: Vec::new(),
         }
@@ -77,8 +77,8 @@ impl ArmReplication<'_> {
     /// window starting or ending).
     pub(super) fn refresh_thresholds(&mut self, cycle: u32) {
         for row in 0..self.shocks.member_shocks.len() {
-            let shock = &self.arm.shocks[self.shocks.member_shocks[row]];
-            let p = shock.probability_in_cycle(cycle, self.policy.group_size);
+            let shock = &self.arm.shocks()[self.shocks.member_shocks[row]];
+            let p = shock.probability_in_cycle(cycle, self.policy.group_size());
             if p.to_bits() == self.shocks.cached_probability[row].to_bits() {
                 continue;
             }
@@ -97,12 +97,12 @@ impl ArmReplication<'_> {
         let state = &mut self.shocks;
         state.cycle.clear();
         let mut threshold_row = 0usize;
-        for (si, shock) in self.arm.shocks.iter().enumerate() {
-            let is_member = shock.scope == ShockScope::Member;
+        for (si, shock) in self.arm.shocks().iter().enumerate() {
+            let is_member = shock.scope() == ShockScope::Member;
             let row = threshold_row;
             threshold_row += usize::from(is_member);
-            let p = shock.probability_in_cycle(cycle, self.policy.group_size);
-            let portfolio_factor = if is_member && shock.portfolio_correlation > 0.0 && p > 0.0 {
+            let p = shock.probability_in_cycle(cycle, self.policy.group_size());
+            let portfolio_factor = if is_member && shock.portfolio_correlation() > 0.0 && p > 0.0 {
                 let mut d = SlotDraws::<2>::seek(&self.key, cycle_stream_id(Purpose::PortfolioFactor, cycle, si, 0), 0);
                 StandardNormal.sample(&mut d)
             } else {
@@ -110,13 +110,13 @@ impl ArmReplication<'_> {
             };
             // p = 0: nobody is hit (no unit is struck and min(1, u * 0) = 0 for every member)
             let mut active = p > 0.0;
-            if active && shock.scope == ShockScope::Portfolio {
+            if active && shock.scope() == ShockScope::Portfolio {
                 let mut d = SlotDraws::<2>::seek(&self.key, cycle_stream_id(Purpose::PortfolioStrike, cycle, si, 0), 0);
                 active = unit_f64(rand::RngCore::next_u64(&mut d)) < p;
             }
             // Village factors and strikes: one stream per (cycle, shock), one block per village.
-            let village_purpose = match shock.scope {
-                ShockScope::Member if shock.village_correlation > 0.0 => Some(Purpose::VillageFactor),
+            let village_purpose = match shock.scope() {
+                ShockScope::Member if shock.village_correlation() > 0.0 => Some(Purpose::VillageFactor),
                 ShockScope::Village => Some(Purpose::VillageStrike),
                 _ => None,
             };
@@ -160,7 +160,7 @@ impl ArmReplication<'_> {
             ..
         } = sc;
         let arm = self.arm;
-        let shock = &arm.shocks[si];
+        let shock = &arm.shocks()[si];
         let start = self.layout.village_start[v];
         let size = self.layout.village_start[v + 1] - start;
         let n = self.layout.n;
@@ -171,10 +171,10 @@ impl ArmReplication<'_> {
         let hits = &mut state.hits;
         hits.clear();
         let mut hit = |i: u32| hits.push(i);
-        match shock.scope {
+        match shock.scope() {
             ShockScope::Member => {
-                let rv = shock.village_correlation;
-                let rp = shock.portfolio_correlation;
+                let rv = shock.village_correlation();
+                let rp = shock.portfolio_correlation();
                 let village_factor = if rv > 0.0 {
                     let id = cycle_stream_id(Purpose::VillageFactor, cycle, si, 0);
                     let mut d = SlotDraws::<2>::from_dense(key, id, &state.village_draws[si], v as u32);
@@ -226,20 +226,20 @@ impl ArmReplication<'_> {
                 }
             }
             ShockScope::Group | ShockScope::Village | ShockScope::Portfolio => {
-                if shock.scope == ShockScope::Village && unit_f64(state.village_draws[si].u64_at(v as u32)) >= p {
+                if shock.scope() == ShockScope::Village && unit_f64(state.village_draws[si].u64_at(v as u32)) >= p {
                     return;
                 }
-                let reach = shock.reach;
+                let reach = shock.reach();
                 if reach < 1.0 {
                     let id = cycle_stream_id(Purpose::Reach, cycle, si, v as u32);
                     state.dense_reach.fill(key, id, size, 2);
                 }
-                if shock.scope == ShockScope::Group {
+                if shock.scope() == ShockScope::Group {
                     let id = cycle_stream_id(Purpose::GroupStrike, cycle, si, v as u32);
                     self.dense.fill(key, id, size, 2);
                 }
                 for group in groups.iter_from(g_start).take(g_end - g_start) {
-                    if shock.scope == ShockScope::Group {
+                    if shock.scope() == ShockScope::Group {
                         // a group's strike is keyed by its lowest slot, the lowest index in the village
                         let lowest = *group.iter().min().expect("groups are not empty") - start as u32;
                         if unit_f64(self.dense.u64_at(lowest)) >= p {
@@ -261,10 +261,10 @@ impl ArmReplication<'_> {
     /// seeking when hits are few and by one dense fill when they are many: the same words either
     /// way, so the choice changes speed only.
     fn apply_severities(&mut self, cycle: u32, si: usize, v: usize) {
-        let shock = &self.arm.shocks[si];
+        let shock = &self.arm.shocks()[si];
         let start = self.layout.village_start[v] as u32;
         let hits = &self.shocks.hits;
-        if let Some(s) = shock.severity.fixed_value() {
+        if let Some(s) = shock.severity().fixed_value() {
             for &i in hits {
                 self.pool.multiplier[i as usize] *= 1.0 - s;
             }
@@ -280,11 +280,11 @@ impl ArmReplication<'_> {
         for &i in hits {
             let s = if dense {
                 shock
-                    .severity
+                    .severity()
                     .sample(&mut SlotDraws::<4>::from_dense(&self.key, id, &self.dense, i - start))
             } else {
                 shock
-                    .severity
+                    .severity()
                     .sample(&mut SlotDraws::<4>::seek(&self.key, id, i - start))
             };
             self.pool.multiplier[i as usize] *= 1.0 - s;

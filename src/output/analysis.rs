@@ -113,7 +113,11 @@ pub fn table(report: &AnalyzeReport) -> String {
                 } else {
                     format!("arms: {}", e.arms.join(", "))
                 };
-                let _ = writeln!(out, "  p = {:.6} ({whose})", e.p);
+                if e.rho == section.rho {
+                    let _ = writeln!(out, "  p = {:.6} ({whose})", e.p);
+                } else {
+                    let _ = writeln!(out, "  p = {:.6}, rho = {} ({whose})", e.p, short(e.rho));
+                }
                 let levels: Vec<String> = e
                     .quantiles
                     .iter()

@@ -137,20 +137,20 @@ pub struct SummaryRow<'a> {
 impl<'a> SummaryRow<'a> {
     /// The row of one arm.
     pub fn new(a: &'a ArmReport) -> Self {
-        let p = &a.arm.policy;
+        let p = &a.arm.policy();
         let s = &a.summary;
         let (group_repayment_rate, group_repayment_ci_low, group_repayment_ci_high, group_repayment_se) =
             cells(s.group_repayment);
         let (loss_rate, loss_rate_ci_low, loss_rate_ci_high, loss_rate_se) = cells(s.loss_rate);
         SummaryRow {
-            arm: &a.arm.label,
-            group_size: p.group_size,
-            liability: liability_name(p.liability),
-            peer_cover: Cell(Some(p.peer_cover)),
-            exclusion_cycles: p.exclusion_cycles.to_string(),
-            exclusion_scope: exclusion_scope_name(p.exclusion_scope),
-            formation: formation_name(p.formation),
-            matching: matching_name(p.matching),
+            arm: a.arm.label(),
+            group_size: p.group_size(),
+            liability: liability_name(p.liability()),
+            peer_cover: Cell(Some(p.peer_cover())),
+            exclusion_cycles: p.exclusion_cycles().to_string(),
+            exclusion_scope: exclusion_scope_name(p.exclusion_scope()),
+            formation: formation_name(p.formation()),
+            matching: matching_name(p.matching()),
             replications: s.replications,
             group_cycles: s.group_cycles,
             group_repayment_rate,
@@ -234,13 +234,7 @@ pub fn summary_csv(report: &RunReport) -> Vec<u8> {
     for (a, record) in report.arms.iter().zip(&rows) {
         let values = extra
             .iter()
-            .map(|p| {
-                a.arm
-                    .swept()
-                    .iter()
-                    .find(|v| &v.path == *p)
-                    .map_or("", |v| v.value.as_str())
-            })
+            .map(|p| a.arm.swept().iter().find(|v| v.path() == *p).map_or("", |v| v.value()))
             .collect();
         w.write_record(&splice(record, values)).expect("in-memory csv");
     }
@@ -277,7 +271,7 @@ struct ReplicationRow<'a> {
 pub fn replications_csv(report: &RunReport) -> Vec<u8> {
     csv_bytes(report.arms.iter().flat_map(|a| {
         a.replications.iter().map(move |r| ReplicationRow {
-            arm: &a.arm.label,
+            arm: a.arm.label(),
             replication: r.replication,
             group_repayment_rate: Cell(r.group_repayment_rate()),
             groups_repaid: r.groups_repaid,
@@ -316,7 +310,7 @@ struct TimeseriesRow<'a> {
 pub fn timeseries_csv(report: &RunReport) -> Vec<u8> {
     csv_bytes(report.arms.iter().flat_map(|a| {
         a.time_series.iter().map(move |c| TimeseriesRow {
-            arm: &a.arm.label,
+            arm: a.arm.label(),
             cycle: c.cycle,
             served_share: Cell(c.served_share),
             group_repayment_rate: Cell(c.group_repayment_rate),

@@ -25,17 +25,25 @@ fn with_interval(share: f64, standard_error: Option<f64>, decimals: usize, unit:
 /// A table of the main figures per arm, the best arm, warnings and the caution.
 pub fn summary_table(report: &RunReport) -> String {
     let mut out = String::new();
-    let name = if report.scenario.name.is_empty() {
+    let name = if report.scenario.name().is_empty() {
         "(unnamed scenario)"
     } else {
-        &report.scenario.name
+        report.scenario.name()
     };
     let _ = writeln!(
         out,
         "{name}: {} replications x {} counted cycles, seed {}",
-        report.scenario.replications, report.scenario.cycles, report.seed
+        report.scenario.replications(),
+        report.scenario.cycles(),
+        report.seed
     );
-    let width = report.arms.iter().map(|a| a.arm.label.len()).max().unwrap_or(3).max(3);
+    let width = report
+        .arms
+        .iter()
+        .map(|a| a.arm.label().len())
+        .max()
+        .unwrap_or(3)
+        .max(3);
     let _ = writeln!(
         out,
         "{:<width$}  {:>18}  {:>9}  {:>9}  {:>12}  {:>10}  {:>18}  {:>11}  {:>9}  {:>9}",
@@ -61,7 +69,7 @@ pub fn summary_table(report: &RunReport) -> String {
         let _ = writeln!(
             out,
             "{:<width$}  {:>18}  {:>9}  {:>9}  {:>12}  {:>10}  {:>18}  {:>11}  {:>9}  {:>9}",
-            a.arm.label,
+            a.arm.label(),
             g,
             pct(a.analytic_group_repayment),
             pct(s.shortfall_free_group_rate),
@@ -95,7 +103,7 @@ pub fn summary_table(report: &RunReport) -> String {
                 report
                     .differences
                     .iter()
-                    .find(|d| d.arm == a.arm.label && d.metric == metric)
+                    .find(|d| d.arm == a.arm.label() && d.metric == metric)
                     .map_or_else(
                         || "-".to_string(),
                         |d| with_interval(d.difference, d.standard_error, 3, "", true),
@@ -104,7 +112,7 @@ pub fn summary_table(report: &RunReport) -> String {
             let _ = writeln!(
                 out,
                 "{:<width$}  {:>22}  {:>22}  {:>22}",
-                a.arm.label,
+                a.arm.label(),
                 show("group_repayment_rate"),
                 show("loss_rate"),
                 show("served_share")
@@ -148,7 +156,7 @@ pub fn summary_table(report: &RunReport) -> String {
                 .arms
                 .iter()
                 .find(|a| a.arm.label() == label)
-                .map_or(0, |a| a.arm.policy().group_size)
+                .map_or(0, |a| a.arm.policy().group_size())
         };
         match &sel.best {
             Some(best) => {
@@ -208,33 +216,33 @@ pub fn selection_text(s: &crate::stats::select::Selection) -> String {
 pub fn arms_listing(scenario: &crate::scenario::Scenario, origin: &str) -> String {
     use crate::output::tables::{exclusion_scope_name, formation_name, liability_name, matching_name};
     let mut out = String::new();
-    let _ = writeln!(out, "{origin}: valid scenario \"{}\"", scenario.name);
+    let _ = writeln!(out, "{origin}: valid scenario \"{}\"", scenario.name());
     let _ = writeln!(
         out,
         "{} borrowers in {} villages, {} replications x ({} warm-up + {} counted) cycles, {} shocks, seed {}",
-        scenario.borrowers,
-        scenario.villages,
-        scenario.replications,
-        scenario.warmup_cycles,
-        scenario.cycles,
-        scenario.shocks.len(),
-        scenario.seed
+        scenario.borrowers(),
+        scenario.villages(),
+        scenario.replications(),
+        scenario.warmup_cycles(),
+        scenario.cycles(),
+        scenario.arms()[0].shocks().len(),
+        scenario.seed()
     );
-    let _ = writeln!(out, "{} arm(s):", scenario.arms.len());
-    for (i, a) in scenario.arms.iter().enumerate() {
-        let p = &a.policy;
+    let _ = writeln!(out, "{} arm(s):", scenario.arms().len());
+    for (i, a) in scenario.arms().iter().enumerate() {
+        let p = &a.policy();
         let _ = writeln!(
             out,
             "  {:>3}  {:<32} k={} {} cover={} exclusion={} ({}) {} {}",
             i + 1,
-            a.label,
-            p.group_size,
-            liability_name(p.liability),
-            p.peer_cover,
-            p.exclusion_cycles,
-            exclusion_scope_name(p.exclusion_scope),
-            formation_name(p.formation),
-            matching_name(p.matching)
+            a.label(),
+            p.group_size(),
+            liability_name(p.liability()),
+            p.peer_cover(),
+            p.exclusion_cycles(),
+            exclusion_scope_name(p.exclusion_scope()),
+            formation_name(p.formation()),
+            matching_name(p.matching())
         );
     }
     out

@@ -42,38 +42,38 @@ impl ShockProbability {
 
 /// A stress window: cycles `from..=to` (counted from 1, warm-up included) use `probability` instead.
 ///
-/// Callers should read through the methods: the fields become private once every caller does.
+/// Fields are private to the crate: values exist only as validation builds them, read through the methods.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct StressWindow {
     /// First cycle of the window (>= 1).
-    pub from: u32,
+    pub(crate) from: u32,
     /// Last cycle of the window (>= from).
-    pub to: u32,
+    pub(crate) to: u32,
     /// The probability in force during the window, in [0, 1].
-    pub probability: f64,
+    pub(crate) probability: f64,
 }
 
 /// One validated shock.
 ///
-/// Callers should read through the methods: the fields become private once every caller does.
+/// Fields are private to the crate: values exist only as validation builds them, read through the methods.
 #[derive(Debug, Clone, Serialize)]
 pub struct Shock {
     /// Unique name.
-    pub name: String,
+    pub(crate) name: String,
     /// Where it strikes.
-    pub scope: ShockScope,
+    pub(crate) scope: ShockScope,
     /// Per-cycle probability (of a member being hit, or of a unit being struck).
-    pub probability: ShockProbability,
+    pub(crate) probability: ShockProbability,
     /// Loading on the village factor (member scope), >= 0.
-    pub village_correlation: f64,
+    pub(crate) village_correlation: f64,
     /// Loading on the portfolio factor (member scope), >= 0; the two sum to < 1.
-    pub portfolio_correlation: f64,
+    pub(crate) portfolio_correlation: f64,
     /// Share of a struck unit's served members who are hit (unit scopes), in [0, 1].
-    pub reach: f64,
+    pub(crate) reach: f64,
     /// Share of cycle income lost when hit, supported on [0, 1].
-    pub severity: Distribution,
+    pub(crate) severity: Distribution,
     /// Non-overlapping stress windows, sorted by `from`.
-    pub stress: Vec<StressWindow>,
+    pub(crate) stress: Vec<StressWindow>,
 }
 
 impl Shock {
@@ -158,23 +158,23 @@ pub enum Matching {
 
 /// One lending policy (an arm of the experiment).
 ///
-/// Callers should read through the methods: the fields become private once every caller does.
+/// Fields are private to the crate: values exist only as validation builds them, read through the methods.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Policy {
     /// Members per group, k >= 1.
-    pub group_size: u32,
+    pub(crate) group_size: u32,
     /// Joint or individual liability.
-    pub liability: Liability,
+    pub(crate) liability: Liability,
     /// Share lambda of surplus peers put towards shortfalls, in [0, 1].
-    pub peer_cover: f64,
+    pub(crate) peer_cover: f64,
     /// Exclusion after default.
-    pub exclusion_cycles: Exclusion,
+    pub(crate) exclusion_cycles: Exclusion,
     /// Who a joint default excludes.
-    pub exclusion_scope: ExclusionScope,
+    pub(crate) exclusion_scope: ExclusionScope,
     /// Reshuffled or persistent groups.
-    pub formation: Formation,
+    pub(crate) formation: Formation,
     /// Random or assortative matching.
-    pub matching: Matching,
+    pub(crate) matching: Matching,
 }
 
 impl Policy {
@@ -196,51 +196,51 @@ impl Policy {
 #[derive(Debug, Clone, PartialEq, Eq, Serialize)]
 pub struct SweptValue {
     /// The swept path, such as `group_size` or `shock.illness.village_correlation`.
-    pub path: String,
+    pub(crate) path: String,
     /// The value as arm labels show it (numbers in plain `Display`, words unquoted).
-    pub value: String,
+    pub(crate) value: String,
     /// The value exactly as the file wrote it (`0.20`, `"permanent"`).
-    pub written: String,
+    pub(crate) written: String,
 }
 
 /// One arm: the full model it runs (everything a sweep can vary) and a short label of its swept values.
 /// Serialised (in summary.json) as its label, swept values and policy: the scenario holds the rest,
 /// and `swept` says what differs.
 ///
-/// Callers should read through the methods: the fields become private once every caller does.
+/// Fields are private to the crate: values exist only as validation builds them, read through the methods.
 #[derive(Debug, Clone, Serialize)]
 pub struct Arm {
     /// Readable label such as `group_size=5,exclusion_cycles=2` (or `base` without a sweep).
-    pub label: String,
+    pub(crate) label: String,
     /// The swept values of this arm, in `[sweep]` order (empty without a sweep).
     #[serde(skip_serializing_if = "Vec::is_empty")]
-    pub swept: Vec<SweptValue>,
+    pub(crate) swept: Vec<SweptValue>,
     /// The arm's full policy.
-    pub policy: Policy,
+    pub(crate) policy: Policy,
     /// Principal P > 0 per member per cycle.
     #[serde(skip)]
-    pub principal: f64,
+    pub(crate) principal: f64,
     /// Flat interest per cycle, r >= 0.
     #[serde(skip)]
-    pub interest_rate: f64,
+    pub(crate) interest_rate: f64,
     /// Share of unpaid principal recovered later, in [0, 1].
     #[serde(skip)]
-    pub recovery_rate: f64,
+    pub(crate) recovery_rate: f64,
     /// Income ratio w (income / amount due), drawn at entry.
     #[serde(skip)]
-    pub income: Distribution,
+    pub(crate) income: Distribution,
     /// Risk multiplier u of member-scope probabilities, drawn at entry.
     #[serde(skip)]
-    pub risk: Distribution,
+    pub(crate) risk: Distribution,
     /// The shocks, in file order (the same shocks, by index, in every arm).
     #[serde(skip)]
-    pub shocks: Vec<Shock>,
+    pub(crate) shocks: Vec<Shock>,
     /// Per-cycle probability that a member leaves, in [0, 1).
     #[serde(skip)]
-    pub dropout: f64,
+    pub(crate) dropout: f64,
     /// Whether emptied slots get new entrants.
     #[serde(skip)]
-    pub replace_departures: bool,
+    pub(crate) replace_departures: bool,
 }
 
 impl Arm {
@@ -296,48 +296,48 @@ impl Arm {
 
 /// A validated scenario: what every arm shares (the run's size, the pool, the seed) and the arms.
 ///
-/// The model fields here (`principal` ... `replace_departures`) are the FIRST arm's values, kept
-/// while callers move to per-arm reads: any of them may be swept, so read them from the `Arm`.
-/// Callers should read through the methods: the fields become private once every caller does.
+/// The model fields here (`principal` ... `replace_departures`) are the FIRST arm's values, kept only
+/// so summary.json records the resolved scenario; they have no read methods because any of them may
+/// be swept: read them from the `Arm`. Fields are private to the crate and read through the methods.
 #[derive(Debug, Clone, Serialize)]
 pub struct Scenario {
     /// Free text.
-    pub name: String,
+    pub(crate) name: String,
     /// Master seed.
-    pub seed: u64,
+    pub(crate) seed: u64,
     /// Independent replications, >= 1.
-    pub replications: u32,
+    pub(crate) replications: u32,
     /// Counted cycles per replication, >= 1.
-    pub cycles: u32,
+    pub(crate) cycles: u32,
     /// Cycles simulated first and not counted.
-    pub warmup_cycles: u32,
+    pub(crate) warmup_cycles: u32,
     /// Borrower slots N >= 1.
-    pub borrowers: u32,
+    pub(crate) borrowers: u32,
     /// Villages V in [1, N]; slot j lives in village j % V.
-    pub villages: u32,
+    pub(crate) villages: u32,
     /// The first arm's principal (see `Arm::principal`).
-    pub principal: f64,
+    pub(crate) principal: f64,
     /// The first arm's interest rate (see `Arm::interest_rate`).
-    pub interest_rate: f64,
+    pub(crate) interest_rate: f64,
     /// The first arm's recovery rate (see `Arm::recovery_rate`).
-    pub recovery_rate: f64,
+    pub(crate) recovery_rate: f64,
     /// The first arm's income distribution (see `Arm::income`).
-    pub income: Distribution,
+    pub(crate) income: Distribution,
     /// The first arm's risk distribution (see `Arm::risk`).
-    pub risk: Distribution,
+    pub(crate) risk: Distribution,
     /// The first arm's shocks (see `Arm::shocks`).
-    pub shocks: Vec<Shock>,
+    pub(crate) shocks: Vec<Shock>,
     /// The first arm's dropout (see `Arm::dropout`).
-    pub dropout: f64,
+    pub(crate) dropout: f64,
     /// The first arm's replacement rule (see `Arm::replace_departures`).
-    pub replace_departures: bool,
+    pub(crate) replace_departures: bool,
     /// Swept paths, in the order of their lines in `[sweep]` (policy fields by their bare name).
-    pub swept_fields: Vec<String>,
+    pub(crate) swept_fields: Vec<String>,
     /// The arms, in sweep order (one arm without a sweep).
-    pub arms: Vec<Arm>,
+    pub(crate) arms: Vec<Arm>,
     /// Warnings found while validating (arms resolving to the same model); the caller prints them.
     #[serde(skip)]
-    pub warnings: Vec<String>,
+    pub(crate) warnings: Vec<String>,
 }
 
 impl Scenario {
@@ -372,11 +372,6 @@ impl Scenario {
     /// Swept paths in order, one per column writers add (`group_size`, `shock.illness.reach`, ...).
     pub fn swept_paths(&self) -> &[String] {
         &self.swept_fields
-    }
-    /// The first swept path outside `[policy]` (a loan, borrower, pool or shock field), if any: code
-    /// that still reads the scenario-level model fields must not assume they hold in every arm then.
-    pub fn model_swept(&self) -> Option<&str> {
-        self.swept_fields.iter().map(String::as_str).find(|p| p.contains('.'))
     }
     /// The arms, in sweep order.
     pub fn arms(&self) -> &[Arm] {
@@ -496,6 +491,21 @@ impl Shock {
     /// Stress windows, sorted by `from`.
     pub fn stress(&self) -> &[StressWindow] {
         &self.stress
+    }
+}
+
+impl SweptValue {
+    /// The swept path, such as `group_size` or `shock.illness.village_correlation`.
+    pub fn path(&self) -> &str {
+        &self.path
+    }
+    /// The value as arm labels show it.
+    pub fn value(&self) -> &str {
+        &self.value
+    }
+    /// The value exactly as the file wrote it.
+    pub fn written(&self) -> &str {
+        &self.written
     }
 }
 

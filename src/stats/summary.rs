@@ -228,8 +228,8 @@ pub fn shortfall_icc(tally: &ArmTally, group_size: u32) -> Option<f64> {
 
 /// The time series of one arm: per counted cycle, means over replications.
 pub fn time_series(tally: &ArmTally, scenario: &Scenario) -> Vec<CyclePoint> {
-    let n = f64::from(scenario.borrowers);
-    (0..scenario.cycles as usize)
+    let n = f64::from(scenario.borrowers());
+    (0..scenario.cycles() as usize)
         .map(|c| {
             let mut served = (0.0, 0u64);
             let mut repay = (0.0, 0u64);
@@ -252,7 +252,7 @@ pub fn time_series(tally: &ArmTally, scenario: &Scenario) -> Vec<CyclePoint> {
             }
             let mean = |(s, c): (f64, u64)| (c > 0).then(|| s / c as f64);
             CyclePoint {
-                cycle: scenario.warmup_cycles + c as u32 + 1,
+                cycle: scenario.warmup_cycles() + c as u32 + 1,
                 served_share: mean(served),
                 group_repayment_rate: mean(repay),
                 loss_rate: mean(loss),

@@ -18,7 +18,7 @@ pub fn simulate(s: &Scenario) -> RunResults {
 
 /// Summary of arm `arm`.
 pub fn arm_summary(s: &Scenario, results: &RunResults, arm: usize) -> ArmSummary {
-    summary::summarize_arm(&results.arms[arm], s.arms[arm].policy.group_size)
+    summary::summarize_arm(&results.arms[arm], s.arms()[arm].policy().group_size())
 }
 
 /// Asserts |estimate - reference| <= STANDARD_ERRORS * se, and that the check is sharp: the standard
