@@ -17,7 +17,6 @@ use crate::analytic::quadrature::GaussHermite;
 use crate::analytic::{normal, optimum};
 use crate::curve::GroupSizeCurve;
 use serde::Serialize;
-use statrs::function::erf;
 use std::collections::{BTreeMap, HashMap};
 
 /// Gauss-Hermite nodes used for the clustered likelihood. The integrand is a product over the
@@ -328,11 +327,10 @@ fn log1m_exp(a: f64) -> f64 {
     }
 }
 
-/// Phi(-z) = erfc(z / sqrt 2) / 2. The likelihood evaluates it thousands of times per fit, so it
-/// uses statrs' rational erfc (relative error about 1e-10 in the far tail, far below the
-/// likelihood's sampling noise) rather than the slower series of `accurate_normal`.
+/// Phi(-z), from the one shared normal CDF (`maths`, through `libm::erfc`), so the fit and the
+/// engine agree on the law to the last bit.
 fn upper_tail(z: f64) -> f64 {
-    0.5 * erf::erfc(z / std::f64::consts::SQRT_2)
+    crate::maths::normal_cdf(-z)
 }
 
 /// Per size and node: (ln P(group repays | m), ln P(group defaults | m)).
