@@ -15,7 +15,9 @@ impl ArmReplication<'_> {
         }
         let joint = self.policy.liability == Liability::Joint;
         let whole_group = self.policy.exclusion_scope == ExclusionScope::Group;
+        let counted = cycle > self.scenario.warmup_cycles;
         let first = self.groups.village_first[v];
+        let mut events = 0u64;
         for (group, &repaid) in self.groups.iter_from(first).zip(&self.group_repaid[first..]) {
             if joint && repaid {
                 continue;
@@ -23,11 +25,21 @@ impl ArmReplication<'_> {
             for &i in group {
                 let i = i as usize;
                 if (joint && whole_group) || self.pool.short[i] {
+                    events += 1;
                     match exclusion {
                         Exclusion::Cycles(e) => self.pool.excluded_through[i] = cycle + e,
-                        Exclusion::Permanent => self.pool.occupied[i] = false,
+                        Exclusion::Permanent => {
+                            self.pool.occupied[i] = false;
+                            self.pool.removed[i] = true;
+                        }
                     }
                 }
+            }
+        }
+        if counted {
+            self.tally.exclusion_events += events;
+            if exclusion == Exclusion::Permanent {
+                self.tally.removals += events;
             }
         }
     }

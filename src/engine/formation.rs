@@ -2,11 +2,13 @@
 //!
 //! Within each village, persistent groups whose members are all still there and eligible are
 //! kept; the remaining eligible members are ordered (a random shuffle, or ascending risk) and cut
-//! into groups of k. The fewer-than-k left over wait.
+//! into groups. With every group of size k the fewer-than-k left over wait; with sizes allowed in
+//! [min, max] the cut ([`cut`]) makes groups as even as possible around k, so that whether a
+//! village divides by k no longer decides how many of its members borrow.
 
 use super::ArmReplication;
 use super::streams::{Purpose, cycle_stream_id};
-use crate::scenario::{Formation, Matching};
+use crate::scenario::{Exclusion, Formation, Matching};
 use crate::stats::CycleRecord;
 
 /// Scratch buffers of formation, reused across villages and cycles.
@@ -16,6 +18,34 @@ pub(super) struct FormationScratch {
     sort_scratch: Vec<u64>,
     sort_counts: Vec<u32>,
     assortative: Vec<(f64, u64, u32)>,
+}
+
+/// How `n` members in formation order are cut into groups of sizes in [min, max] around the
+/// nominal size k: `(groups, members)`, the first `members` of them forming `groups` groups as even
+/// as possible (the larger first), the rest waiting.
+///
+/// The number of groups g is the value in [ceil(m / max), floor(m / min)] closest to m / k, a tie
+/// going to the larger g, with m = n when that range is not empty and otherwise the largest m < n
+/// for which it is not. Fewer than `min` members all wait. With min = max = k this is n / k groups
+/// of k.
+pub fn cut(n: usize, k: usize, min: usize, max: usize) -> (usize, usize) {
+    if min == max {
+        return (n / min, n / min * min);
+    }
+    let mut m = n;
+    while m >= min {
+        let (low, high) = (m.div_ceil(max), m / min);
+        if low <= high {
+            // |g - m/k| compares as |g k - m|: integers, no rounding
+            let distance = |g: usize| (g * k).abs_diff(m);
+            let below = (m / k).clamp(low, high);
+            let above = m.div_ceil(k).clamp(low, high);
+            let g = if distance(below) < distance(above) { below } else { above };
+            return (g, m);
+        }
+        m -= 1;
+    }
+    (0, 0)
 }
 
 impl ArmReplication<'_> {
@@ -48,6 +78,23 @@ impl ArmReplication<'_> {
             self.tally.excluded_slot_cycles += excluded;
             self.tally.waiting_slot_cycles += waiting;
             self.tally.empty_slot_cycles += empty;
+            // outreach: each borrower counted once over the counted cycles, and slots emptied by
+            // removal (only permanent exclusion removes anybody)
+            let reached = &mut self.pool.reached;
+            let mut new_clients = 0u64;
+            for &i in &self.groups.members[self.groups.member_range(first, last)] {
+                new_clients += u64::from(!reached[i as usize]);
+                reached[i as usize] = true;
+            }
+            self.tally.clients_reached += new_clients;
+            if self.policy.exclusion_cycles == Exclusion::Permanent {
+                let removed = self.pool.occupied[range.clone()]
+                    .iter()
+                    .zip(&self.pool.removed[range.clone()])
+                    .filter(|&(&occ, &rem)| !occ & rem)
+                    .count();
+                self.tally.removed_slot_cycles += removed as u64;
+            }
             record.excluded += excluded as u32;
             record.served += served as u32;
             record.groups += (last - first) as u32;
@@ -74,12 +121,15 @@ impl ArmReplication<'_> {
         }
     }
 
-    /// Orders the village's unassigned eligible members and cuts them into groups of k.
+    /// Orders the village's unassigned eligible members and cuts them into groups (of k, or by
+    /// [`cut`] when sizes may vary).
     fn form_village(&mut self, v: usize, cycle: u32) {
         let k = self.policy.group_size as usize;
+        let (min, max) = (self.policy.min_group_size() as usize, self.policy.max_group_size() as usize);
+        let varying = min != max;
         let (start, end) = (self.layout.village_start[v], self.layout.village_start[v + 1]);
         let size = end - start;
-        let needs_keys = k > 1;
+        let needs_keys = max > 1;
         if needs_keys {
             let id = cycle_stream_id(Purpose::Formation, cycle, 0, v as u32);
             self.dense.fill(&self.key, id, size, 2);
@@ -121,16 +171,21 @@ impl ArmReplication<'_> {
                         &mut scratch.sort_counts,
                     );
                 }
-                let full = len / k * k;
                 let assigned = &mut self.pool.assigned;
-                self.groups.push_equal_groups(
-                    k,
-                    scratch.candidates[..full].iter().map(|&c| {
-                        let i = start + (c & index_mask) as usize;
-                        assigned[i] = true;
-                        i as u32
-                    }),
-                );
+                let mut take = |c: &u64| {
+                    let i = start + (c & index_mask) as usize;
+                    assigned[i] = true;
+                    i as u32
+                };
+                if varying {
+                    let (groups, full) = cut(len, k, min, max);
+                    self.groups
+                        .push_even_groups(groups, scratch.candidates[..full].iter().map(take));
+                } else {
+                    let full = len / k * k;
+                    self.groups
+                        .push_equal_groups(k, scratch.candidates[..full].iter().map(&mut take));
+                }
             }
             Matching::Assortative => {
                 scratch.assortative.clear();
@@ -144,15 +199,21 @@ impl ArmReplication<'_> {
                 scratch
                     .assortative
                     .sort_unstable_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)).then(a.2.cmp(&b.2)));
-                let full = scratch.assortative.len() / k * k;
                 let assigned = &mut self.pool.assigned;
-                self.groups.push_equal_groups(
-                    k,
-                    scratch.assortative[..full].iter().map(|&(_, _, i)| {
-                        assigned[i as usize] = true;
-                        i
-                    }),
-                );
+                let mut take = |&(_, _, i): &(f64, u64, u32)| {
+                    assigned[i as usize] = true;
+                    i
+                };
+                let len = scratch.assortative.len();
+                if varying {
+                    let (groups, full) = cut(len, k, min, max);
+                    self.groups
+                        .push_even_groups(groups, scratch.assortative[..full].iter().map(take));
+                } else {
+                    let full = len / k * k;
+                    self.groups
+                        .push_equal_groups(k, scratch.assortative[..full].iter().map(&mut take));
+                }
             }
         }
     }

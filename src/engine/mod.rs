@@ -119,7 +119,12 @@ impl<'a> ArmReplication<'a> {
             formation_scratch: FormationScratch::default(),
             shocks,
             dense: DenseBlocks::default(),
-            tally: ReplicationTally::new(replication, policy.group_size, scenario.cycles),
+            tally: ReplicationTally::with_group_sizes(
+                replication,
+                policy.min_group_size(),
+                policy.max_group_size(),
+                scenario.cycles,
+            ),
             book: None,
         }
     }

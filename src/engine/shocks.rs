@@ -7,7 +7,7 @@
 use super::ArmReplication;
 use super::streams::{DenseBlocks, Purpose, SlotDraws, cycle_stream_id, unit_f64};
 use crate::analytic::normal;
-use crate::scenario::{Arm, ShockScope};
+use crate::scenario::{Arm, ShockProbability, ShockScope};
 use rand_distr::{Distribution as _, StandardNormal};
 
 /// A shock's portfolio-wide state in one cycle.
@@ -39,6 +39,9 @@ pub(super) struct ShockState {
     dense_reach: DenseBlocks,
     /// Members hit by the shock being applied.
     hits: Vec<u32>,
+    /// Per shock, whether its probability is a group-size curve read at each group's own size
+    /// (a member-scope curve in an arm whose group sizes vary).
+    size_dependent: Vec<bool>,
 }
 
 impl ShockState {
@@ -59,6 +62,15 @@ impl ShockState {
             village_draws: vec![DenseBlocks::default(); arm.shocks.len()],
             dense_reach: DenseBlocks::default(),
             hits: Vec::new(),
+            size_dependent: arm
+                .shocks
+                .iter()
+                .map(|s| {
+                    s.scope == ShockScope::Member
+                        && matches!(s.probability, ShockProbability::Curve(_))
+                        && arm.policy.sizes_vary()
+                })
+                .collect(),
         }
     }
 }
@@ -102,14 +114,16 @@ impl ArmReplication<'_> {
             let row = threshold_row;
             threshold_row += usize::from(is_member);
             let p = shock.probability_in_cycle(cycle, self.policy.group_size);
-            let portfolio_factor = if is_member && shock.portfolio_correlation > 0.0 && p > 0.0 {
+            // a curve read at each group's size may be positive where it is 0 at k
+            let possible = p > 0.0 || state.size_dependent[si];
+            let portfolio_factor = if is_member && shock.portfolio_correlation > 0.0 && possible {
                 let mut d = SlotDraws::<2>::seek(&self.key, cycle_stream_id(Purpose::PortfolioFactor, cycle, si, 0), 0);
                 StandardNormal.sample(&mut d)
             } else {
                 0.0
             };
             // p = 0: nobody is hit (no unit is struck and min(1, u * 0) = 0 for every member)
-            let mut active = p > 0.0;
+            let mut active = possible;
             if active && shock.scope == ShockScope::Portfolio {
                 let mut d = SlotDraws::<2>::seek(&self.key, cycle_stream_id(Purpose::PortfolioStrike, cycle, si, 0), 0);
                 active = unit_f64(rand::RngCore::next_u64(&mut d)) < p;
@@ -195,7 +209,35 @@ impl ArmReplication<'_> {
                 let thresholds = &self.pool.threshold[row];
                 let dense = &self.dense;
                 let draw = |i: u32| unit_f64(dense.u64_at(i - start as u32));
-                if rv == 0.0 && rp == 0.0 {
+                if state.size_dependent[si] {
+                    // The curve at each group's own size: the cached values hold at k, so members
+                    // of other sizes get theirs computed here, by the same per-member test.
+                    let cached = state.cached_probability[threshold_row];
+                    let risk = &self.pool.risk;
+                    let hits = &mut state.hits;
+                    for group in groups.iter_from(g_start).take(g_end - g_start) {
+                        let p_size = shock.probability_in_cycle(cycle, group.len() as u32);
+                        let at_k = p_size.to_bits() == cached.to_bits();
+                        for &i in group {
+                            let m = i as usize;
+                            let (pi, t) = if at_k {
+                                (hit_probability[m], thresholds[m])
+                            } else {
+                                let pi = (risk[m] * p_size).min(1.0);
+                                (pi, normal::inv_cdf(pi))
+                            };
+                            let u = draw(i);
+                            let is_hit = if rv == 0.0 && rp == 0.0 {
+                                u < pi
+                            } else {
+                                u < normal::cdf((t - common) / idiosyncratic)
+                            };
+                            if is_hit {
+                                hits.push(i);
+                            }
+                        }
+                    }
+                } else if rv == 0.0 && rp == 0.0 {
                     for &i in members {
                         if draw(i) < hit_probability[i as usize] {
                             hit(i);
