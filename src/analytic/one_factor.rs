@@ -150,6 +150,19 @@ pub fn class_check(scenario: &Scenario) -> Result<OneFactorModel, OutOfClass> {
             shock.name, w.from, w.to
         )));
     }
+    // With sizes in a range, how many groups of each size form depends on how many members are
+    // eligible each cycle (exclusion, dropout): no closed form gives the weights, so such arms are
+    // outside the class rather than given a value weighted by simulated shares.
+    if let Some(arm) = scenario.arms().iter().find(|a| a.policy().sizes_vary()) {
+        let p = arm.policy();
+        return Err(OutOfClass::new(format!(
+            "arm {} forms groups of {} to {} members (policy.min_group_size, max_group_size); exact values \
+             assume every group has policy.group_size members",
+            arm.label(),
+            p.min_group_size(),
+            p.max_group_size()
+        )));
+    }
     Ok(OneFactorModel {
         shock_name: shock.name.clone(),
         amount_due: scenario.amount_due(),

@@ -23,8 +23,8 @@ pub const BYTES_PER_GIB: f64 = 1_073_741_824.0;
 const BASE_BYTES: u64 = 16 << 20;
 
 /// Per slot and worker: occupied, entrants, income, risk, excluded-through, assigned, multiplier,
-/// short (35 bytes), group members and offsets (about 5), padding of the allocator.
-const SLOT_BYTES: u64 = 40;
+/// short, removed, reached (37 bytes), group members and offsets (about 5), padding of the allocator.
+const SLOT_BYTES: u64 = 42;
 /// Per slot, worker and member-scope shock: the cached hit probability and threshold.
 const SLOT_SHOCK_BYTES: u64 = 16;
 /// Per slot and worker under persistent formation: last cycle's members, offsets and entrant numbers.
@@ -77,18 +77,22 @@ pub fn estimate(scenario: &Scenario, threads: usize) -> MemoryEstimate {
         .arms
         .iter()
         .any(|a| a.policy.formation == Formation::Persistent);
-    let largest_group = scenario
+    // the histogram has a row of (largest + 1) cells per group size the arm may form
+    let histogram_cells = scenario
         .arms
         .iter()
-        .map(|a| u64::from(a.policy.group_size))
+        .map(|a| {
+            let (min, max) = (a.policy.min_group_size(), a.policy.max_group_size());
+            u64::from(max - min + 1) * (u64::from(max) + 1)
+        })
         .max()
-        .unwrap_or(1);
+        .unwrap_or(2);
     let cycles = u64::from(scenario.cycles);
     let record_bytes = std::mem::size_of::<CycleRecord>() as u64;
     let tally_bytes = std::mem::size_of::<ReplicationTally>() as u64;
     // One replication's tally: the struct (twice: the arm's list grows by doubling), its per-cycle
     // records and its histogram, each heap block with the allocator's share.
-    let one_tally = 2 * tally_bytes + cycles * record_bytes + (largest_group + 1) * 8 + 2 * ALLOCATION_BYTES;
+    let one_tally = 2 * tally_bytes + cycles * record_bytes + histogram_cells * 8 + 2 * ALLOCATION_BYTES;
 
     let per_slot = SLOT_BYTES + member_shocks * SLOT_SHOCK_BYTES + if persistent { SLOT_PERSISTENT_BYTES } else { 0 };
     let worker_bytes =

@@ -14,7 +14,7 @@
 
 pub mod book;
 mod exclusion;
-mod formation;
+pub mod formation;
 pub mod memory;
 mod pool;
 pub mod settlement;
