@@ -860,7 +860,10 @@ fn summary_rows_keep_their_column_names_and_value_spellings() {
         (1.0 - q).powi(6) <= iid && iid <= (1.0 - q).powi(4),
         "(1 - q)^size averaged over groups of 4 to 6 by definition"
     );
-    assert_eq!((row[col("min_group_size")].as_str(), row[col("max_group_size")].as_str()), ("4", "6"));
+    assert_eq!(
+        (row[col("min_group_size")].as_str(), row[col("max_group_size")].as_str()),
+        ("4", "6")
+    );
 
     let dir = tmp.path().join("exclusion");
     loancycle([

@@ -53,9 +53,7 @@ fn the_cut_matches_a_brute_force_search() {
                     let expected = (0..=n)
                         .rev()
                         .find_map(|m: usize| {
-                            let fits: Vec<usize> = (1..=m)
-                                .filter(|&g| m / g >= min && m.div_ceil(g) <= max)
-                                .collect();
+                            let fits: Vec<usize> = (1..=m).filter(|&g| m / g >= min && m.div_ceil(g) <= max).collect();
                             fits.into_iter()
                                 .min_by_key(|&g| ((g * k).abs_diff(m), std::cmp::Reverse(g)))
                                 .map(|g| (g, m))
@@ -98,9 +96,8 @@ fn the_engine_forms_the_cut_groups_and_serves_everybody() {
     assert_eq!(groups_per_size(&t), [(4, 2 * 3), (5, 3 * 3), (6, 0)]);
     assert_eq!((t.served_slot_cycles, t.waiting_slot_cycles), (23 * 3, 0));
     // today's rule would leave 3 of the 23 waiting every cycle
-    let fixed = scenario(
-        "replications = 1\ncycles = 3\n[portfolio]\nborrowers = 23\nvillages = 1\n[loan]\nprincipal = 100\n",
-    );
+    let fixed =
+        scenario("replications = 1\ncycles = 3\n[portfolio]\nborrowers = 23\nvillages = 1\n[loan]\nprincipal = 100\n");
     let t = simulate_replication(&fixed, 0, 0);
     assert_eq!((t.served_slot_cycles, t.waiting_slot_cycles), (20 * 3, 3 * 3));
 }
@@ -149,13 +146,7 @@ fn shortfalls_follow_the_binomial_law_at_each_group_size() {
                 let c = row(t);
                 (c[n] as f64, c.iter().sum::<u64>() as f64)
             });
-            assert_within(
-                &format!("size {size}, {n} short"),
-                rate,
-                se,
-                bin.pmf(n as u64),
-                0.003,
-            );
+            assert_within(&format!("size {size}, {n} short"), rate, se, bin.pmf(n as u64), 0.003);
         }
     }
     let summary = arm_summary(&s, &results, 0);
@@ -264,4 +255,34 @@ fn term_exclusion_counts_events_without_removals() {
     assert!(term.exclusion_events.unwrap() > 0.0);
     assert_eq!(term.removal_rate, Some(0.0));
     assert_eq!(term.entrant_rate, Some(0.0));
+}
+
+/// The defaults give today's rule (min = max = k); the slack widens the range, at least 1 below; a
+/// written bound wins over the slack; all three sweep like any policy field.
+#[test]
+fn size_bounds_default_to_k_and_follow_the_slack() {
+    let s = scenario(
+        r#"
+        replications = 1
+        cycles = 1
+        [portfolio]
+        borrowers = 100
+        [loan]
+        principal = 100
+        [policy]
+        group_size = 2
+        [sweep]
+        size_slack = [0, 3]
+        max_group_size = [4, 6]
+        "#,
+    );
+    let bounds: Vec<(u32, u32)> = s
+        .arms()
+        .iter()
+        .map(|a| (a.policy().min_group_size(), a.policy().max_group_size()))
+        .collect();
+    assert_eq!(bounds, [(2, 4), (2, 6), (1, 4), (1, 6)]);
+    let plain = scenario("replications = 1\ncycles = 1\n[portfolio]\nborrowers = 100\n[loan]\nprincipal = 100\n");
+    let p = plain.arms()[0].policy();
+    assert_eq!((p.min_group_size(), p.max_group_size(), p.sizes_vary()), (5, 5, false));
 }

@@ -40,7 +40,11 @@ pub fn cut(n: usize, k: usize, min: usize, max: usize) -> (usize, usize) {
             let distance = |g: usize| (g * k).abs_diff(m);
             let below = (m / k).clamp(low, high);
             let above = m.div_ceil(k).clamp(low, high);
-            let g = if distance(below) < distance(above) { below } else { above };
+            let g = if distance(below) < distance(above) {
+                below
+            } else {
+                above
+            };
             return (g, m);
         }
         m -= 1;
@@ -125,7 +129,10 @@ impl ArmReplication<'_> {
     /// [`cut`] when sizes may vary).
     fn form_village(&mut self, v: usize, cycle: u32) {
         let k = self.policy.group_size as usize;
-        let (min, max) = (self.policy.min_group_size() as usize, self.policy.max_group_size() as usize);
+        let (min, max) = (
+            self.policy.min_group_size() as usize,
+            self.policy.max_group_size() as usize,
+        );
         let varying = min != max;
         let (start, end) = (self.layout.village_start[v], self.layout.village_start[v + 1]);
         let size = end - start;
@@ -254,4 +261,22 @@ pub(super) fn sort_uniform_keys(keys: &mut Vec<u64>, scratch: &mut Vec<u64>, cou
         scratch[j] = key;
     }
     std::mem::swap(keys, scratch);
+}
+
+#[cfg(test)]
+mod tests {
+    use super::cut;
+
+    /// n = 30, k = 8, sizes 7 to 9: g in [ceil(30 / 9), floor(30 / 7)] = [4, 4], so 4 groups (8, 8,
+    /// 7, 7); n = 13, k = 5, sizes 5 to 6: no g fits 13
+    /// (ceil(13 / 6) = 3 > floor(13 / 5) = 2), 12 fits as 6 + 6, the last member waits.
+    #[test]
+    fn the_cut_takes_the_largest_cuttable_number() {
+        assert_eq!(cut(30, 8, 7, 9), (4, 30));
+        assert_eq!(cut(13, 5, 5, 6), (2, 12));
+        // 10 / 4 = 2.5 ties g = 2 and g = 3 (|8 - 10| = |12 - 10| = 2): the larger, 4 + 3 + 3
+        assert_eq!(cut(10, 4, 3, 5), (3, 10));
+        // 18 / 4 = 4.5: g = 5, sizes 4, 4, 4, 3, 3
+        assert_eq!(cut(18, 4, 3, 9), (5, 18));
+    }
 }

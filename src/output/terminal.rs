@@ -259,7 +259,10 @@ fn outreach_table(out: &mut String, report: &RunReport, width: usize) {
     if varying {
         let _ = write!(header, "  {:>9}", "mean size");
     }
-    let _ = writeln!(out, "outreach (per member loan; removed: share of slots left empty by removals):");
+    let _ = writeln!(
+        out,
+        "outreach (per member loan; removed: share of slots left empty by removals):"
+    );
     let _ = writeln!(out, "{header}");
     for a in &report.arms {
         let s = &a.summary;

@@ -608,18 +608,29 @@ impl Checker<'_> {
         let smallest_village = common.borrowers / common.villages;
         // The written field that sets a bound: the bound itself, else the slack, else the group size.
         let blame = |lower: bool, own_path: &'static str, value: u32, derived: &str| {
-            let own = if lower { p.min_group_size.as_ref() } else { p.max_group_size.as_ref() };
+            let own = if lower {
+                p.min_group_size.as_ref()
+            } else {
+                p.max_group_size.as_ref()
+            };
             if let Some(w) = own {
                 (own_path, Some(&w.origin), self.written(w, || value.to_string()))
             } else if let Some(w) = p.size_slack.as_ref() {
                 (
                     "policy.size_slack",
                     Some(&w.origin),
-                    format!("{} (giving {own_path} = {derived})", self.written(w, || policy.size_slack.to_string())),
+                    format!(
+                        "{} (giving {own_path} = {derived})",
+                        self.written(w, || policy.size_slack.to_string())
+                    ),
                 )
             } else {
                 let origin = p.group_size.as_ref().map(|w| &w.origin);
-                ("policy.group_size", origin, format!("{k} (giving {own_path} = {derived})"))
+                (
+                    "policy.group_size",
+                    origin,
+                    format!("{k} (giving {own_path} = {derived})"),
+                )
             }
         };
         if min > k {

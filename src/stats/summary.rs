@@ -163,7 +163,11 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
     };
     let mean_group_size = share(member_loans, group_cycles);
     // the naive inversion reads group repayment at the size groups actually had
-    let inversion_size = if by_size.is_some() { mean_group_size.unwrap_or(k) } else { k };
+    let inversion_size = if by_size.is_some() {
+        mean_group_size.unwrap_or(k)
+    } else {
+        k
+    };
     let dependence_ratio = match (shortfall_free_group_rate, iid_shortfall_free) {
         (Some(free), Some(iid)) if iid > 0.0 => Some(free / iid),
         _ => None,
@@ -356,4 +360,46 @@ pub fn time_series(tally: &ArmTally, scenario: &Scenario) -> Vec<CyclePoint> {
             }
         })
         .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::stats::ReplicationTally;
+
+    /// With one group size the per-size estimator is the beta-binomial one: the same data, two
+    /// formulas (deviations about the pooled mean, and Var(n) = k q (1 - q) (1 + (k - 1) icc)).
+    #[test]
+    fn the_mixed_size_icc_reduces_to_the_single_size_estimator() {
+        let mut t = ReplicationTally::new(0, 4, 0);
+        for (short, groups) in [(0, 50), (1, 30), (2, 12), (3, 5), (4, 3)] {
+            for _ in 0..groups {
+                t.count_group_shortfalls(4, short);
+            }
+        }
+        let mut tally = ArmTally::default();
+        tally.push(t);
+        let single = shortfall_icc(&tally, 4).unwrap();
+        let rows = vec![(4, tally.replications[0].shortfall_histogram.clone())];
+        let mixed = mixed_size_icc(&rows).unwrap();
+        assert!((single - mixed).abs() < 1e-12, "{single} vs {mixed}");
+        assert!(single > 0.0);
+    }
+
+    /// Groups of several sizes land in their own rows, and the pooled rows add replications.
+    #[test]
+    fn shortfalls_are_kept_per_group_size() {
+        let mut tally = ArmTally::default();
+        for r in 0..2 {
+            let mut t = ReplicationTally::with_group_sizes(r, 4, 6, 0);
+            t.count_group_shortfalls(4, 1);
+            t.count_group_shortfalls(6, 6);
+            t.count_group_shortfalls(6, 0);
+            tally.push(t);
+        }
+        let rows = pooled_by_size(&tally);
+        assert_eq!(rows[0], (4, vec![0, 2, 0, 0, 0]));
+        assert_eq!(rows[1], (5, vec![0; 6]));
+        assert_eq!(rows[2], (6, vec![2, 0, 0, 0, 0, 0, 2]));
+    }
 }
