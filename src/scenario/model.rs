@@ -488,7 +488,7 @@ impl Policy {
     /// Whether groups may differ in size (min < max): then the curve is read at each group's size
     /// and the exact one-factor values are not offered.
     pub fn sizes_vary(&self) -> bool {
-        self.min_group_size() != self.max_group_size()
+        self.min_group_size() < self.max_group_size()
     }
 }
 

@@ -607,7 +607,7 @@ impl Checker<'_> {
         let (min, max) = (policy.min_group_size(), policy.max_group_size());
         let smallest_village = common.borrowers / common.villages;
         // The written field that sets a bound: the bound itself, else the slack, else the group size.
-        let blame = |lower: bool, own_path: &'static str, value: u32, derived: &str| {
+        let blame = |lower: bool, own_path: &'static str, value: u32| {
             let own = if lower {
                 p.min_group_size.as_ref()
             } else {
@@ -620,7 +620,7 @@ impl Checker<'_> {
                     "policy.size_slack",
                     Some(&w.origin),
                     format!(
-                        "{} (giving {own_path} = {derived})",
+                        "{} (giving {own_path} = {value})",
                         self.written(w, || policy.size_slack.to_string())
                     ),
                 )
@@ -629,12 +629,12 @@ impl Checker<'_> {
                 (
                     "policy.group_size",
                     origin,
-                    format!("{k} (giving {own_path} = {derived})"),
+                    format!("{k} (giving {own_path} = {value})"),
                 )
             }
         };
         if min > k {
-            let (field, origin, text) = blame(true, "policy.min_group_size", min, &min.to_string());
+            let (field, origin, text) = blame(true, "policy.min_group_size", min);
             return Err(self.invalid(
                 field,
                 origin,
@@ -643,7 +643,7 @@ impl Checker<'_> {
             ));
         }
         if max < k {
-            let (field, origin, text) = blame(false, "policy.max_group_size", max, &max.to_string());
+            let (field, origin, text) = blame(false, "policy.max_group_size", max);
             return Err(self.invalid(
                 field,
                 origin,
@@ -652,7 +652,7 @@ impl Checker<'_> {
             ));
         }
         if max > smallest_village {
-            let (field, origin, text) = blame(false, "policy.max_group_size", max, &max.to_string());
+            let (field, origin, text) = blame(false, "policy.max_group_size", max);
             return Err(self.invalid(
                 field,
                 origin,
@@ -669,9 +669,9 @@ impl Checker<'_> {
             };
             for size in min..=max {
                 let (field, origin, text) = if size < k {
-                    blame(true, "policy.min_group_size", min, &min.to_string())
+                    blame(true, "policy.min_group_size", min)
                 } else {
-                    blame(false, "policy.max_group_size", max, &max.to_string())
+                    blame(false, "policy.max_group_size", max)
                 };
                 match curve.at(size) {
                     None => {
