@@ -17,7 +17,7 @@ const BAD_INPUT: i32 = 2;
 
 /// The columns of summary.csv as users' scripts know them, spelled out here rather than taken from
 /// the writer, so a renamed or reordered column fails this file.
-const SUMMARY_COLUMNS: [&str; 46] = [
+const SUMMARY_COLUMNS: [&str; 55] = [
     "arm",
     "group_size",
     "liability",
@@ -64,6 +64,15 @@ const SUMMARY_COLUMNS: [&str; 46] = [
     "group_repayment_se",
     "loss_rate_se",
     "on_frontier",
+    "min_group_size",
+    "max_group_size",
+    "size_slack",
+    "mean_group_size",
+    "exclusion_events",
+    "removal_rate",
+    "entrant_rate",
+    "clients_reached",
+    "removed_share",
 ];
 
 const OUTPUTS: [&str; 6] = [
@@ -844,11 +853,16 @@ fn summary_rows_keep_their_column_names_and_value_spellings() {
         assert!(number(low) <= number(rate) && number(rate) <= number(high), "{rate}");
         assert!(number(se) >= 0.0, "{se}");
     }
-    let k = 5.0f64;
-    let iid = (1.0 - number("member_shortfall_rate")).powf(k);
+    // groups of 4 to 6 (size_slack 1): the mean over groups of (1 - q)^(own size) lies between
+    let q = number("member_shortfall_rate");
+    let iid = number("iid_shortfall_free");
     assert!(
-        (number("iid_shortfall_free") - iid).abs() < 1e-12,
-        "(1 - q)^k by definition"
+        (1.0 - q).powi(6) <= iid && iid <= (1.0 - q).powi(4),
+        "(1 - q)^size averaged over groups of 4 to 6 by definition"
+    );
+    assert_eq!(
+        (row[col("min_group_size")].as_str(), row[col("max_group_size")].as_str()),
+        ("4", "6")
     );
 
     let dir = tmp.path().join("exclusion");
@@ -872,6 +886,14 @@ fn summary_rows_keep_their_column_names_and_value_spellings() {
         .collect();
     assert_eq!(values[8], ("permanent", "group"));
     assert_eq!(values[9], ("permanent", "defaulters"));
+    // every group has k = 5 members here: (1 - q)^k by definition
+    let col = |name: &str| header.iter().position(|c| c == name).expect("column");
+    let number = |name: &str| -> f64 { rows[0][col(name)].parse().unwrap_or_else(|e| panic!("{name}: {e}")) };
+    let iid = (1.0 - number("member_shortfall_rate")).powf(5.0);
+    assert!(
+        (number("iid_shortfall_free") - iid).abs() < 1e-12,
+        "(1 - q)^k by definition"
+    );
 }
 
 /// With one arm there is nothing to choose: no best-arm line, `best: null`, and differences.csv

@@ -152,6 +152,18 @@ pub fn class_check(arm: &Arm) -> Result<OneFactorModel, OutOfClass> {
             w.to()
         )));
     }
+    // With sizes in a range, how many groups of each size form depends on how many members are
+    // eligible each cycle (exclusion, dropout): no closed form gives the weights, so such arms are
+    // outside the class rather than given a value weighted by simulated shares.
+    if arm.policy().sizes_vary() {
+        let p = arm.policy();
+        return Err(OutOfClass::new(format!(
+            "groups of {} to {} members (policy.min_group_size, max_group_size); exact values \
+             assume every group has policy.group_size members",
+            p.min_group_size(),
+            p.max_group_size()
+        )));
+    }
     Ok(OneFactorModel {
         shock_name: shock.name().to_owned(),
         amount_due: arm.amount_due(),

@@ -251,6 +251,16 @@ pub fn class_check(scenario: &Scenario, arm: usize) -> Result<(), OutOfClass> {
             scenario.arms()[arm].dropout()
         ));
     }
+    if arm_def.policy().sizes_vary() {
+        let p = arm_def.policy();
+        return out(format!(
+            "arm '{}' forms groups of {} to {} members (policy.min_group_size, max_group_size); the exact law \
+             assumes every group has policy.group_size members",
+            arm_def.label(),
+            p.min_group_size(),
+            p.max_group_size()
+        ));
+    }
     Ok(())
 }
 

@@ -9,13 +9,15 @@ impl ArmReplication<'_> {
     /// defaulting group (defaulters scope), or each defaulting member (individual liability) sits
     /// out cycles t+1 ..= t+E, or leaves for good (`permanent`).
     pub(super) fn exclusion(&mut self, v: usize, cycle: u32) {
-        let exclusion = self.policy.exclusion_cycles();
+        let exclusion = self.policy.exclusion_cycles;
         if exclusion == Exclusion::Cycles(0) {
             return;
         }
-        let joint = self.policy.liability() == Liability::Joint;
-        let whole_group = self.policy.exclusion_scope() == ExclusionScope::Group;
+        let joint = self.policy.liability == Liability::Joint;
+        let whole_group = self.policy.exclusion_scope == ExclusionScope::Group;
+        let counted = cycle > self.scenario.warmup_cycles;
         let first = self.groups.village_first[v];
+        let mut events = 0u64;
         for (group, &repaid) in self.groups.iter_from(first).zip(&self.group_repaid[first..]) {
             if joint && repaid {
                 continue;
@@ -23,18 +25,28 @@ impl ArmReplication<'_> {
             for &i in group {
                 let i = i as usize;
                 if (joint && whole_group) || self.pool.short[i] {
+                    events += 1;
                     match exclusion {
                         Exclusion::Cycles(e) => self.pool.excluded_through[i] = cycle + e,
-                        Exclusion::Permanent => self.pool.occupied[i] = false,
+                        Exclusion::Permanent => {
+                            self.pool.occupied[i] = false;
+                            self.pool.removed[i] = true;
+                        }
                     }
                 }
+            }
+        }
+        if counted {
+            self.tally.exclusion_events += events;
+            if exclusion == Exclusion::Permanent {
+                self.tally.removals += events;
             }
         }
     }
 
     /// Step 7: each present member, excluded ones included, leaves with probability `dropout`.
     pub(super) fn dropout(&mut self, v: usize, cycle: u32) {
-        let q = self.arm.dropout();
+        let q = self.arm.dropout;
         if q <= 0.0 {
             return;
         }

@@ -2,11 +2,13 @@
 //!
 //! Within each village, persistent groups whose members are all still there and eligible are
 //! kept; the remaining eligible members are ordered (a random shuffle, or ascending risk) and cut
-//! into groups of k. The fewer-than-k left over wait.
+//! into groups. With every group of size k the fewer-than-k left over wait; with sizes allowed in
+//! [min, max] the cut ([`cut`]) makes groups as even as possible around k, so that whether a
+//! village divides by k no longer decides how many of its members borrow.
 
 use super::ArmReplication;
 use super::streams::{Purpose, cycle_stream_id};
-use crate::scenario::{Formation, Matching};
+use crate::scenario::{Exclusion, Formation, Matching};
 use crate::stats::CycleRecord;
 
 /// Scratch buffers of formation, reused across villages and cycles.
@@ -18,13 +20,45 @@ pub(super) struct FormationScratch {
     assortative: Vec<(f64, u64, u32)>,
 }
 
+/// How `n` members in formation order are cut into groups of sizes in [min, max] around the
+/// nominal size k: `(groups, members)`, the first `members` of them forming `groups` groups as even
+/// as possible (the larger first), the rest waiting.
+///
+/// The number of groups g is the value in [ceil(m / max), floor(m / min)] closest to m / k, a tie
+/// going to the larger g, with m = n when that range is not empty and otherwise the largest m < n
+/// for which it is not. Fewer than `min` members all wait. With min = max = k this is n / k groups
+/// of k.
+pub fn cut(n: usize, k: usize, min: usize, max: usize) -> (usize, usize) {
+    if min == max {
+        return (n / min, n / min * min);
+    }
+    let mut m = n;
+    while m >= min {
+        let (low, high) = (m.div_ceil(max), m / min);
+        if low <= high {
+            // |g - m/k| compares as |g k - m|: integers, no rounding
+            let distance = |g: usize| (g * k).abs_diff(m);
+            let below = (m / k).clamp(low, high);
+            let above = m.div_ceil(k).clamp(low, high);
+            let g = if distance(below) < distance(above) {
+                below
+            } else {
+                above
+            };
+            return (g, m);
+        }
+        m -= 1;
+    }
+    (0, 0)
+}
+
 impl ArmReplication<'_> {
     /// Step 2: forms the village's groups and counts its shares of the pool.
     pub(super) fn formation(&mut self, v: usize, cycle: u32, counted: bool, record: &mut CycleRecord) {
         let range = self.layout.range(v);
         self.pool.assigned[range.clone()].fill(false);
         self.groups.village_first[v] = self.groups.len();
-        if self.policy.formation() == Formation::Persistent && !self.previous.is_empty() {
+        if self.policy.formation == Formation::Persistent && !self.previous.is_empty() {
             self.keep_persistent_groups(v, cycle);
         }
         self.form_village(v, cycle);
@@ -48,6 +82,23 @@ impl ArmReplication<'_> {
             self.tally.excluded_slot_cycles += excluded;
             self.tally.waiting_slot_cycles += waiting;
             self.tally.empty_slot_cycles += empty;
+            // outreach: each borrower counted once over the counted cycles, and slots emptied by
+            // removal (only permanent exclusion removes anybody)
+            let reached = &mut self.pool.reached;
+            let mut new_clients = 0u64;
+            for &i in &self.groups.members[self.groups.member_range(first, last)] {
+                new_clients += u64::from(!reached[i as usize]);
+                reached[i as usize] = true;
+            }
+            self.tally.clients_reached += new_clients;
+            if self.policy.exclusion_cycles == Exclusion::Permanent {
+                let removed = self.pool.occupied[range.clone()]
+                    .iter()
+                    .zip(&self.pool.removed[range.clone()])
+                    .filter(|&(&occ, &rem)| !occ & rem)
+                    .count();
+                self.tally.removed_slot_cycles += removed as u64;
+            }
             record.excluded += excluded as u32;
             record.served += served as u32;
             record.groups += (last - first) as u32;
@@ -74,18 +125,24 @@ impl ArmReplication<'_> {
         }
     }
 
-    /// Orders the village's unassigned eligible members and cuts them into groups of k.
+    /// Orders the village's unassigned eligible members and cuts them into groups (of k, or by
+    /// [`cut`] when sizes may vary).
     fn form_village(&mut self, v: usize, cycle: u32) {
-        let k = self.policy.group_size() as usize;
+        let k = self.policy.group_size as usize;
+        let (min, max) = (
+            self.policy.min_group_size() as usize,
+            self.policy.max_group_size() as usize,
+        );
+        let varying = min != max;
         let (start, end) = (self.layout.village_start[v], self.layout.village_start[v + 1]);
         let size = end - start;
-        let needs_keys = k > 1;
+        let needs_keys = max > 1;
         if needs_keys {
             let id = cycle_stream_id(Purpose::Formation, cycle, 0, v as u32);
             self.dense.fill(&self.key, id, size, 2);
         }
         let scratch = &mut self.formation_scratch;
-        match self.policy.matching() {
+        match self.policy.matching {
             Matching::Random => {
                 // Sort keys pack the slot's random word above its index in the village, so one
                 // integer comparison orders by the random word and breaks ties by position.
@@ -121,16 +178,21 @@ impl ArmReplication<'_> {
                         &mut scratch.sort_counts,
                     );
                 }
-                let full = len / k * k;
                 let assigned = &mut self.pool.assigned;
-                self.groups.push_equal_groups(
-                    k,
-                    scratch.candidates[..full].iter().map(|&c| {
-                        let i = start + (c & index_mask) as usize;
-                        assigned[i] = true;
-                        i as u32
-                    }),
-                );
+                let mut take = |c: &u64| {
+                    let i = start + (c & index_mask) as usize;
+                    assigned[i] = true;
+                    i as u32
+                };
+                if varying {
+                    let (groups, full) = cut(len, k, min, max);
+                    self.groups
+                        .push_even_groups(groups, scratch.candidates[..full].iter().map(take));
+                } else {
+                    let full = len / k * k;
+                    self.groups
+                        .push_equal_groups(k, scratch.candidates[..full].iter().map(&mut take));
+                }
             }
             Matching::Assortative => {
                 scratch.assortative.clear();
@@ -144,15 +206,21 @@ impl ArmReplication<'_> {
                 scratch
                     .assortative
                     .sort_unstable_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)).then(a.2.cmp(&b.2)));
-                let full = scratch.assortative.len() / k * k;
                 let assigned = &mut self.pool.assigned;
-                self.groups.push_equal_groups(
-                    k,
-                    scratch.assortative[..full].iter().map(|&(_, _, i)| {
-                        assigned[i as usize] = true;
-                        i
-                    }),
-                );
+                let mut take = |&(_, _, i): &(f64, u64, u32)| {
+                    assigned[i as usize] = true;
+                    i
+                };
+                let len = scratch.assortative.len();
+                if varying {
+                    let (groups, full) = cut(len, k, min, max);
+                    self.groups
+                        .push_even_groups(groups, scratch.assortative[..full].iter().map(take));
+                } else {
+                    let full = len / k * k;
+                    self.groups
+                        .push_equal_groups(k, scratch.assortative[..full].iter().map(&mut take));
+                }
             }
         }
     }
@@ -193,4 +261,22 @@ pub(super) fn sort_uniform_keys(keys: &mut Vec<u64>, scratch: &mut Vec<u64>, cou
         scratch[j] = key;
     }
     std::mem::swap(keys, scratch);
+}
+
+#[cfg(test)]
+mod tests {
+    use super::cut;
+
+    /// n = 30, k = 8, sizes 7 to 9: g in [ceil(30 / 9), floor(30 / 7)] = [4, 4], so 4 groups (8, 8,
+    /// 7, 7); n = 13, k = 5, sizes 5 to 6: no g fits 13
+    /// (ceil(13 / 6) = 3 > floor(13 / 5) = 2), 12 fits as 6 + 6, the last member waits.
+    #[test]
+    fn the_cut_takes_the_largest_cuttable_number() {
+        assert_eq!(cut(30, 8, 7, 9), (4, 30));
+        assert_eq!(cut(13, 5, 5, 6), (2, 12));
+        // 10 / 4 = 2.5 ties g = 2 and g = 3 (|8 - 10| = |12 - 10| = 2): the larger, 4 + 3 + 3
+        assert_eq!(cut(10, 4, 3, 5), (3, 10));
+        // 18 / 4 = 4.5: g = 5, sizes 4, 4, 4, 3, 3
+        assert_eq!(cut(18, 4, 3, 9), (5, 18));
+    }
 }

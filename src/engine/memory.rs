@@ -23,8 +23,8 @@ pub const BYTES_PER_GIB: f64 = 1_073_741_824.0;
 const BASE_BYTES: u64 = 16 << 20;
 
 /// Per slot and worker: occupied, entrants, income, risk, excluded-through, assigned, multiplier,
-/// short (35 bytes), group members and offsets (about 5), padding of the allocator.
-const SLOT_BYTES: u64 = 40;
+/// short, removed, reached (37 bytes), group members and offsets (about 5), padding of the allocator.
+const SLOT_BYTES: u64 = 42;
 /// Per slot, worker and member-scope shock: the cached hit probability and threshold.
 const SLOT_SHOCK_BYTES: u64 = 16;
 /// Per slot and worker under persistent formation: last cycle's members, offsets and entrant numbers.
@@ -68,41 +68,41 @@ impl MemoryEstimate {
 
 /// Estimates the peak memory of simulating and reporting `scenario` on `threads` worker threads.
 pub fn estimate(scenario: &Scenario, threads: usize) -> MemoryEstimate {
-    let slots = u64::from(scenario.borrowers());
-    let villages = u64::from(scenario.villages().max(1));
+    let slots = u64::from(scenario.borrowers);
+    let villages = u64::from(scenario.villages.max(1));
     let largest_village = slots.div_ceil(villages);
-    let member_shocks = scenario.arms()[0]
-        .shocks()
-        .iter()
-        .filter(|s| s.scope() == ShockScope::Member)
-        .count() as u64;
-    let shocks = scenario.arms()[0].shocks().len() as u64;
+    let member_shocks = scenario.shocks.iter().filter(|s| s.scope == ShockScope::Member).count() as u64;
+    let shocks = scenario.shocks.len() as u64;
     let persistent = scenario
-        .arms()
+        .arms
         .iter()
-        .any(|a| a.policy().formation() == Formation::Persistent);
-    let largest_group = scenario
-        .arms()
+        .any(|a| a.policy.formation == Formation::Persistent);
+    // the histogram has a row of (largest + 1) cells per group size the arm may form
+    let histogram_cells = scenario
+        .arms
         .iter()
-        .map(|a| u64::from(a.policy().group_size()))
+        .map(|a| {
+            let (min, max) = (a.policy.min_group_size(), a.policy.max_group_size());
+            u64::from(max - min + 1) * (u64::from(max) + 1)
+        })
         .max()
-        .unwrap_or(1);
-    let cycles = u64::from(scenario.cycles());
+        .unwrap_or(2);
+    let cycles = u64::from(scenario.cycles);
     let record_bytes = std::mem::size_of::<CycleRecord>() as u64;
     let tally_bytes = std::mem::size_of::<ReplicationTally>() as u64;
     // One replication's tally: the struct (twice: the arm's list grows by doubling), its per-cycle
     // records and its histogram, each heap block with the allocator's share.
-    let one_tally = 2 * tally_bytes + cycles * record_bytes + (largest_group + 1) * 8 + 2 * ALLOCATION_BYTES;
+    let one_tally = 2 * tally_bytes + cycles * record_bytes + histogram_cells * 8 + 2 * ALLOCATION_BYTES;
 
     let per_slot = SLOT_BYTES + member_shocks * SLOT_SHOCK_BYTES + if persistent { SLOT_PERSISTENT_BYTES } else { 0 };
     let worker_bytes =
         slots * per_slot + largest_village * VILLAGE_SLOT_BYTES + villages * shocks * VILLAGE_SHOCK_BYTES + one_tally;
-    let tasks = u64::from(scenario.replications()) * scenario.arms().len() as u64;
+    let tasks = u64::from(scenario.replications) * scenario.arms.len() as u64;
     MemoryEstimate {
         workers: (threads.max(1) as u64).min(tasks.max(1)),
         worker_bytes,
         tally_bytes: tasks * one_tally,
-        summary_bytes: u64::from(scenario.replications()) * cycles * SUMMARY_RECORD_BYTES,
+        summary_bytes: u64::from(scenario.replications) * cycles * SUMMARY_RECORD_BYTES,
         base_bytes: BASE_BYTES,
     }
 }

@@ -14,7 +14,7 @@
 
 pub mod book;
 mod exclusion;
-mod formation;
+pub mod formation;
 pub mod memory;
 mod pool;
 pub mod settlement;
@@ -33,7 +33,7 @@ use streams::DenseBlocks;
 ///
 /// The scenario is validated, so every index and probability used here is in range.
 pub fn simulate_replication(scenario: &Scenario, arm: usize, replication: u32) -> ReplicationTally {
-    let mut sim = ArmReplication::new(scenario, &scenario.arms()[arm], replication);
+    let mut sim = ArmReplication::new(scenario, &scenario.arms[arm], replication);
     for cycle in 1..=scenario.total_cycles() {
         sim.run_cycle(cycle);
     }
@@ -100,8 +100,8 @@ impl<'a> ArmReplication<'a> {
 
     /// A replication drawing from the streams of `key` (a replication's or a loan book's).
     fn with_key(scenario: &'a Scenario, arm: &'a Arm, replication: u32, key: [u8; 32]) -> Self {
-        let policy = &arm.policy();
-        let layout = Layout::new(scenario.borrowers(), scenario.villages(), |v| scenario.village_size(v));
+        let policy = &arm.policy;
+        let layout = Layout::new(scenario.borrowers, scenario.villages, |v| scenario.village_size(v));
         let shocks = ShockState::new(arm);
         let (n, villages) = (layout.n, layout.villages);
         ArmReplication {
@@ -119,7 +119,12 @@ impl<'a> ArmReplication<'a> {
             formation_scratch: FormationScratch::default(),
             shocks,
             dense: DenseBlocks::default(),
-            tally: ReplicationTally::new(replication, policy.group_size(), scenario.cycles()),
+            tally: ReplicationTally::with_group_sizes(
+                replication,
+                policy.min_group_size(),
+                policy.max_group_size(),
+                scenario.cycles,
+            ),
             book: None,
         }
     }
@@ -129,7 +134,7 @@ impl<'a> ArmReplication<'a> {
     /// in cache from entry to dropout instead of the whole pool being streamed through memory once
     /// per step.
     fn run_cycle(&mut self, cycle: u32) {
-        let counted = cycle > self.scenario.warmup_cycles();
+        let counted = cycle > self.scenario.warmup_cycles;
         self.refresh_thresholds(cycle);
         self.prepare_shocks(cycle);
         let mut record = CycleRecord::default();
@@ -146,7 +151,7 @@ impl<'a> ArmReplication<'a> {
             self.dropout(v, cycle); // 7. dropout
         }
         self.groups.village_first[self.layout.villages] = self.groups.len();
-        if self.policy.formation() == Formation::Persistent {
+        if self.policy.formation == Formation::Persistent {
             self.remember_groups();
         }
         if counted {

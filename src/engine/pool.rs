@@ -29,6 +29,10 @@ pub(super) struct Pool {
     pub multiplier: Vec<f64>,
     /// Whether the member fell short of the amount due this cycle (S > 0).
     pub short: Vec<bool>,
+    /// Whether the slot is empty because its occupant was removed for good, until it is refilled.
+    pub removed: Vec<bool>,
+    /// Whether the current member has borrowed in a counted cycle (clients reached).
+    pub reached: Vec<bool>,
 }
 
 impl Pool {
@@ -45,6 +49,8 @@ impl Pool {
             assigned: vec![false; n],
             multiplier: vec![1.0; n],
             short: vec![false; n],
+            removed: vec![false; n],
+            reached: vec![false; n],
         }
     }
 
@@ -156,6 +162,24 @@ impl Groups {
         self.offsets.push(self.members.len() as u32);
     }
 
+    /// Appends members cut into `groups` consecutive groups as even as possible, the larger ones
+    /// first (sizes differ by at most one).
+    #[inline]
+    pub fn push_even_groups(&mut self, groups: usize, members: impl ExactSizeIterator<Item = u32>) {
+        let base = self.members.len() as u32;
+        let m = members.len();
+        self.members.extend(members);
+        if groups == 0 {
+            return;
+        }
+        let (q, larger) = (m / groups, m % groups);
+        let mut at = base;
+        for j in 0..groups {
+            at += (q + usize::from(j < larger)) as u32;
+            self.offsets.push(at);
+        }
+    }
+
     /// Appends members cut into consecutive groups of `size`; their number is a multiple of `size`.
     #[inline]
     pub fn push_equal_groups(&mut self, size: usize, members: impl ExactSizeIterator<Item = u32>) {
@@ -188,6 +212,11 @@ impl ArmReplication<'_> {
             self.pool.income[i] = income;
             self.pool.risk[i] = risk;
             self.pool.excluded_through[i] = 0;
+            self.pool.removed[i] = false;
+            self.pool.reached[i] = false;
+            if cycle > self.scenario.warmup_cycles && cycle > 1 {
+                self.tally.entrants += 1;
+            }
             for row in 0..self.shocks.member_shocks.len() {
                 let p = self.shocks.cached_probability[row];
                 self.set_threshold(row, i, p);

@@ -168,7 +168,7 @@ impl ArmReplication<'_> {
                 t.member_shortfalls += u64::from(n_short);
                 t.member_defaults += u64::from(defaulting_members);
                 t.shortfall_free_groups += u64::from(n_short == 0);
-                t.shortfall_histogram[n_short as usize] += 1;
+                t.count_group_shortfalls(k, n_short as usize);
                 t.due += group_due;
                 t.collected += settlement.collected;
                 t.disbursed += group_principal;

@@ -7,7 +7,7 @@
 use super::ArmReplication;
 use super::streams::{DenseBlocks, Purpose, SlotDraws, cycle_stream_id, unit_f64};
 use crate::analytic::normal;
-use crate::scenario::{Arm, ShockScope};
+use crate::scenario::{Arm, ShockProbability, ShockScope};
 use rand_distr::{Distribution as _, StandardNormal};
 
 /// A shock's portfolio-wide state in one cycle.
@@ -39,26 +39,38 @@ pub(super) struct ShockState {
     dense_reach: DenseBlocks,
     /// Members hit by the shock being applied.
     hits: Vec<u32>,
+    /// Per shock, whether its probability is a group-size curve read at each group's own size
+    /// (a member-scope curve in an arm whose group sizes vary).
+    size_dependent: Vec<bool>,
 }
 
 impl ShockState {
     /// The state for a scenario's shocks, before the first cycle.
     pub fn new(arm: &Arm) -> Self {
         let member_shocks: Vec<usize> = arm
-            .shocks()
+            .shocks
             .iter()
             .enumerate()
-            .filter(|(_, s)| s.scope() == ShockScope::Member)
+            .filter(|(_, s)| s.scope == ShockScope::Member)
             .map(|(i, _)| i)
             .collect();
         ShockState {
             cached_probability: vec![f64::NAN; member_shocks.len()],
             member_shocks,
-            shared_risk: arm.risk().fixed_value().is_some(),
+            shared_risk: arm.risk.fixed_value().is_some(),
             cycle: Vec::new(),
-            village_draws: vec![DenseBlocks::default(); arm.shocks().len()],
+            village_draws: vec![DenseBlocks::default(); arm.shocks.len()],
             dense_reach: DenseBlocks::default(),
             hits: Vec::new(),
+            size_dependent: arm
+                .shocks
+                .iter()
+                .map(|s| {
+                    s.scope == ShockScope::Member
+                        && matches!(s.probability, ShockProbability::Curve(_))
+                        && arm.policy.sizes_vary()
+                })
+                .collect(),
         }
     }
 }
@@ -77,8 +89,8 @@ impl ArmReplication<'_> {
     /// window starting or ending).
     pub(super) fn refresh_thresholds(&mut self, cycle: u32) {
         for row in 0..self.shocks.member_shocks.len() {
-            let shock = &self.arm.shocks()[self.shocks.member_shocks[row]];
-            let p = shock.probability_in_cycle(cycle, self.policy.group_size());
+            let shock = &self.arm.shocks[self.shocks.member_shocks[row]];
+            let p = shock.probability_in_cycle(cycle, self.policy.group_size);
             if p.to_bits() == self.shocks.cached_probability[row].to_bits() {
                 continue;
             }
@@ -97,26 +109,28 @@ impl ArmReplication<'_> {
         let state = &mut self.shocks;
         state.cycle.clear();
         let mut threshold_row = 0usize;
-        for (si, shock) in self.arm.shocks().iter().enumerate() {
-            let is_member = shock.scope() == ShockScope::Member;
+        for (si, shock) in self.arm.shocks.iter().enumerate() {
+            let is_member = shock.scope == ShockScope::Member;
             let row = threshold_row;
             threshold_row += usize::from(is_member);
-            let p = shock.probability_in_cycle(cycle, self.policy.group_size());
-            let portfolio_factor = if is_member && shock.portfolio_correlation() > 0.0 && p > 0.0 {
+            let p = shock.probability_in_cycle(cycle, self.policy.group_size);
+            // a curve read at each group's size may be positive where it is 0 at k
+            let possible = p > 0.0 || state.size_dependent[si];
+            let portfolio_factor = if is_member && shock.portfolio_correlation > 0.0 && possible {
                 let mut d = SlotDraws::<2>::seek(&self.key, cycle_stream_id(Purpose::PortfolioFactor, cycle, si, 0), 0);
                 StandardNormal.sample(&mut d)
             } else {
                 0.0
             };
             // p = 0: nobody is hit (no unit is struck and min(1, u * 0) = 0 for every member)
-            let mut active = p > 0.0;
-            if active && shock.scope() == ShockScope::Portfolio {
+            let mut active = possible;
+            if active && shock.scope == ShockScope::Portfolio {
                 let mut d = SlotDraws::<2>::seek(&self.key, cycle_stream_id(Purpose::PortfolioStrike, cycle, si, 0), 0);
                 active = unit_f64(rand::RngCore::next_u64(&mut d)) < p;
             }
             // Village factors and strikes: one stream per (cycle, shock), one block per village.
-            let village_purpose = match shock.scope() {
-                ShockScope::Member if shock.village_correlation() > 0.0 => Some(Purpose::VillageFactor),
+            let village_purpose = match shock.scope {
+                ShockScope::Member if shock.village_correlation > 0.0 => Some(Purpose::VillageFactor),
                 ShockScope::Village => Some(Purpose::VillageStrike),
                 _ => None,
             };
@@ -160,7 +174,7 @@ impl ArmReplication<'_> {
             ..
         } = sc;
         let arm = self.arm;
-        let shock = &arm.shocks()[si];
+        let shock = &arm.shocks[si];
         let start = self.layout.village_start[v];
         let size = self.layout.village_start[v + 1] - start;
         let n = self.layout.n;
@@ -171,10 +185,10 @@ impl ArmReplication<'_> {
         let hits = &mut state.hits;
         hits.clear();
         let mut hit = |i: u32| hits.push(i);
-        match shock.scope() {
+        match shock.scope {
             ShockScope::Member => {
-                let rv = shock.village_correlation();
-                let rp = shock.portfolio_correlation();
+                let rv = shock.village_correlation;
+                let rp = shock.portfolio_correlation;
                 let village_factor = if rv > 0.0 {
                     let id = cycle_stream_id(Purpose::VillageFactor, cycle, si, 0);
                     let mut d = SlotDraws::<2>::from_dense(key, id, &state.village_draws[si], v as u32);
@@ -195,7 +209,35 @@ impl ArmReplication<'_> {
                 let thresholds = &self.pool.threshold[row];
                 let dense = &self.dense;
                 let draw = |i: u32| unit_f64(dense.u64_at(i - start as u32));
-                if rv == 0.0 && rp == 0.0 {
+                if state.size_dependent[si] {
+                    // The curve at each group's own size: the cached values hold at k, so members
+                    // of other sizes get theirs computed here, by the same per-member test.
+                    let cached = state.cached_probability[threshold_row];
+                    let risk = &self.pool.risk;
+                    let hits = &mut state.hits;
+                    for group in groups.iter_from(g_start).take(g_end - g_start) {
+                        let p_size = shock.probability_in_cycle(cycle, group.len() as u32);
+                        let at_k = p_size.to_bits() == cached.to_bits();
+                        for &i in group {
+                            let m = i as usize;
+                            let (pi, t) = if at_k {
+                                (hit_probability[m], thresholds[m])
+                            } else {
+                                let pi = (risk[m] * p_size).min(1.0);
+                                (pi, normal::inv_cdf(pi))
+                            };
+                            let u = draw(i);
+                            let is_hit = if rv == 0.0 && rp == 0.0 {
+                                u < pi
+                            } else {
+                                u < normal::cdf((t - common) / idiosyncratic)
+                            };
+                            if is_hit {
+                                hits.push(i);
+                            }
+                        }
+                    }
+                } else if rv == 0.0 && rp == 0.0 {
                     for &i in members {
                         if draw(i) < hit_probability[i as usize] {
                             hit(i);
@@ -226,20 +268,20 @@ impl ArmReplication<'_> {
                 }
             }
             ShockScope::Group | ShockScope::Village | ShockScope::Portfolio => {
-                if shock.scope() == ShockScope::Village && unit_f64(state.village_draws[si].u64_at(v as u32)) >= p {
+                if shock.scope == ShockScope::Village && unit_f64(state.village_draws[si].u64_at(v as u32)) >= p {
                     return;
                 }
-                let reach = shock.reach();
+                let reach = shock.reach;
                 if reach < 1.0 {
                     let id = cycle_stream_id(Purpose::Reach, cycle, si, v as u32);
                     state.dense_reach.fill(key, id, size, 2);
                 }
-                if shock.scope() == ShockScope::Group {
+                if shock.scope == ShockScope::Group {
                     let id = cycle_stream_id(Purpose::GroupStrike, cycle, si, v as u32);
                     self.dense.fill(key, id, size, 2);
                 }
                 for group in groups.iter_from(g_start).take(g_end - g_start) {
-                    if shock.scope() == ShockScope::Group {
+                    if shock.scope == ShockScope::Group {
                         // a group's strike is keyed by its lowest slot, the lowest index in the village
                         let lowest = *group.iter().min().expect("groups are not empty") - start as u32;
                         if unit_f64(self.dense.u64_at(lowest)) >= p {
@@ -261,10 +303,10 @@ impl ArmReplication<'_> {
     /// seeking when hits are few and by one dense fill when they are many: the same words either
     /// way, so the choice changes speed only.
     fn apply_severities(&mut self, cycle: u32, si: usize, v: usize) {
-        let shock = &self.arm.shocks()[si];
+        let shock = &self.arm.shocks[si];
         let start = self.layout.village_start[v] as u32;
         let hits = &self.shocks.hits;
-        if let Some(s) = shock.severity().fixed_value() {
+        if let Some(s) = shock.severity.fixed_value() {
             for &i in hits {
                 self.pool.multiplier[i as usize] *= 1.0 - s;
             }
@@ -280,11 +322,11 @@ impl ArmReplication<'_> {
         for &i in hits {
             let s = if dense {
                 shock
-                    .severity()
+                    .severity
                     .sample(&mut SlotDraws::<4>::from_dense(&self.key, id, &self.dense, i - start))
             } else {
                 shock
-                    .severity()
+                    .severity
                     .sample(&mut SlotDraws::<4>::seek(&self.key, id, i - start))
             };
             self.pool.multiplier[i as usize] *= 1.0 - s;

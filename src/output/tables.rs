@@ -132,6 +132,15 @@ pub struct SummaryRow<'a> {
     group_repayment_se: Cell,
     loss_rate_se: Cell,
     on_frontier: &'static str,
+    min_group_size: u32,
+    max_group_size: u32,
+    size_slack: u32,
+    mean_group_size: Cell,
+    exclusion_events: Cell,
+    removal_rate: Cell,
+    entrant_rate: Cell,
+    clients_reached: Cell,
+    removed_share: Cell,
 }
 
 impl<'a> SummaryRow<'a> {
@@ -193,6 +202,15 @@ impl<'a> SummaryRow<'a> {
                 Some(false) => "false",
                 None => "",
             },
+            min_group_size: p.min_group_size(),
+            max_group_size: p.max_group_size(),
+            size_slack: p.size_slack(),
+            mean_group_size: Cell(s.mean_group_size),
+            exclusion_events: Cell(s.exclusion_events),
+            removal_rate: Cell(s.removal_rate),
+            entrant_rate: Cell(s.entrant_rate),
+            clients_reached: Cell(s.clients_reached),
+            removed_share: Cell(s.removed_share),
         }
     }
 }
@@ -265,6 +283,15 @@ struct ReplicationRow<'a> {
     member_defaults: u64,
     member_loans: u64,
     worst_cycle_loss: Cell,
+    exclusion_events: u64,
+    exclusion_event_rate: Cell,
+    removals: u64,
+    removal_rate: Cell,
+    entrants: u64,
+    entrant_rate: Cell,
+    clients_reached: u64,
+    removed_slot_cycles: u64,
+    removed_share: Cell,
 }
 
 /// replications.csv: one row per arm and replication, in arm order then replication order.
@@ -291,6 +318,15 @@ pub fn replications_csv(report: &RunReport) -> Vec<u8> {
             member_defaults: r.member_defaults,
             member_loans: r.member_loans,
             worst_cycle_loss: Cell(r.worst_cycle_loss),
+            exclusion_events: r.exclusion_events,
+            exclusion_event_rate: Cell(r.exclusion_event_rate()),
+            removals: r.removals,
+            removal_rate: Cell(r.removal_rate()),
+            entrants: r.entrants,
+            entrant_rate: Cell(r.entrant_rate()),
+            clients_reached: r.clients_reached,
+            removed_slot_cycles: r.removed_slot_cycles,
+            removed_share: Cell(r.removed_share()),
         })
     }))
 }

@@ -88,6 +88,7 @@ pub fn summary_table(report: &RunReport) -> String {
          (1 for independent members); horizon p99: 99% quantile of each replication's loss rate over its \
          whole horizon (worst_cycle_loss_p95 in summary.csv is the worst single cycle)"
     );
+    outreach_table(&mut out, report, width);
     if let (true, Some(baseline)) = (report.arms.len() > 1, &report.baseline) {
         let _ = writeln!(
             out,
@@ -246,4 +247,57 @@ pub fn arms_listing(scenario: &crate::scenario::Scenario, origin: &str) -> Strin
         );
     }
     out
+}
+
+/// Outreach per arm: exclusion events always; removals, entrants and removed slots when an arm
+/// removes borrowers for good (with replacement the removed slots refill at once, so the served
+/// share alone hides them); the mean group size when an arm's sizes vary.
+fn outreach_table(out: &mut String, report: &RunReport, width: usize) {
+    use crate::scenario::Exclusion;
+    let permanent = report
+        .arms
+        .iter()
+        .any(|a| a.arm.policy().exclusion_cycles() == Exclusion::Permanent);
+    let varying = report.arms.iter().any(|a| a.arm.policy().sizes_vary());
+    let mut header = format!("{:<width$}  {:>12}", "arm", "excl. events");
+    if permanent {
+        let _ = write!(header, "  {:>9}  {:>9}  {:>9}", "removals", "entrants", "removed");
+    }
+    let _ = write!(header, "  {:>14}", "clients reached");
+    if varying {
+        let _ = write!(header, "  {:>9}", "mean size");
+    }
+    let _ = writeln!(
+        out,
+        "outreach (per member loan; removed: share of slots left empty by removals):"
+    );
+    let _ = writeln!(out, "{header}");
+    for a in &report.arms {
+        let s = &a.summary;
+        let mut line = format!("{:<width$}  {:>12}", a.arm.label, pct(s.exclusion_events));
+        if permanent {
+            let own = a.arm.policy().exclusion_cycles() == Exclusion::Permanent;
+            let show = |x: Option<f64>| if own { pct(x) } else { "-".into() };
+            let _ = write!(
+                line,
+                "  {:>9}  {:>9}  {:>9}",
+                show(s.removal_rate),
+                pct(s.entrant_rate),
+                show(s.removed_share)
+            );
+        }
+        let _ = write!(
+            line,
+            "  {:>14}",
+            s.clients_reached.map_or_else(|| "-".into(), |c| format!("{c:.1}"))
+        );
+        if varying {
+            let _ = write!(
+                line,
+                "  {:>9}",
+                s.mean_group_size.map_or_else(|| "-".into(), |m| format!("{m:.3}"))
+            );
+        }
+        let _ = writeln!(out, "{line}");
+    }
 }

@@ -161,6 +161,9 @@ pub const FIELDS: &[Field] = &[
     line("policy.exclusion_scope", Bound::Typed("group or defaulters"), Some(|r, _, v| put(&mut r.policy.exclusion_scope, v))),
     line("policy.formation", Bound::Typed("reshuffle or persistent"), Some(|r, _, v| put(&mut r.policy.formation, v))),
     line("policy.matching", Bound::Typed("random or assortative"), Some(|r, _, v| put(&mut r.policy.matching, v))),
+    line("policy.min_group_size", Bound::Count(1, u32::MAX), Some(|r, _, v| put(&mut r.policy.min_group_size, v))),
+    line("policy.max_group_size", Bound::Count(1, u32::MAX), Some(|r, _, v| put(&mut r.policy.max_group_size, v))),
+    line("policy.size_slack", Bound::Count(0, u32::MAX), Some(|r, _, v| put(&mut r.policy.size_slack, v))),
     line("pool.dropout", Bound::ProbabilityBelowOne, Some(|r, _, v| put(&mut r.pool.dropout, v))),
     line("pool.replace_departures", Bound::Typed("true or false"), Some(|r, _, v| put(&mut r.pool.replace_departures, v))),
 ];

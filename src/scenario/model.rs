@@ -175,6 +175,12 @@ pub struct Policy {
     pub(crate) formation: Formation,
     /// Random or assortative matching.
     pub(crate) matching: Matching,
+    /// Smallest group formation may make, when written (otherwise k - `size_slack`, at least 1).
+    pub(crate) min_group_size: Option<u32>,
+    /// Largest group formation may make, when written (otherwise k + `size_slack`).
+    pub(crate) max_group_size: Option<u32>,
+    /// How far group sizes may stray from k when the bounds are not written (0: every group has k).
+    pub(crate) size_slack: u32,
 }
 
 impl Policy {
@@ -188,6 +194,9 @@ impl Policy {
             exclusion_scope: ExclusionScope::Group,
             formation: Formation::Reshuffle,
             matching: Matching::Random,
+            min_group_size: None,
+            max_group_size: None,
+            size_slack: 0,
         }
     }
 }
@@ -456,6 +465,25 @@ impl Policy {
     /// Random or assortative matching.
     pub fn matching(&self) -> Matching {
         self.matching
+    }
+    /// Smallest group formation makes: as written, or max(1, k - `size_slack`).
+    pub fn min_group_size(&self) -> u32 {
+        self.min_group_size
+            .unwrap_or_else(|| self.group_size.saturating_sub(self.size_slack).max(1))
+    }
+    /// Largest group formation makes: as written, or k + `size_slack`.
+    pub fn max_group_size(&self) -> u32 {
+        self.max_group_size
+            .unwrap_or_else(|| self.group_size.saturating_add(self.size_slack))
+    }
+    /// How far sizes may stray from k when the bounds are not written.
+    pub fn size_slack(&self) -> u32 {
+        self.size_slack
+    }
+    /// Whether groups may differ in size (min < max): then the curve is read at each group's size
+    /// and the exact one-factor values are not offered.
+    pub fn sizes_vary(&self) -> bool {
+        self.min_group_size() < self.max_group_size()
     }
 }
 

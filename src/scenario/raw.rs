@@ -381,6 +381,12 @@ pub struct RawPolicy {
     pub formation: Option<W<Formation>>,
     /// random or assortative.
     pub matching: Option<W<Matching>>,
+    /// Smallest group size formation may make.
+    pub min_group_size: Option<W<Int>>,
+    /// Largest group size formation may make.
+    pub max_group_size: Option<W<Int>>,
+    /// How far sizes may stray from group_size when the bounds are not written.
+    pub size_slack: Option<W<Int>>,
 }
 
 /// The `[pool]` table.

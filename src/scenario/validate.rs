@@ -481,11 +481,21 @@ impl Checker<'_> {
         if let Some(w) = &p.matching {
             policy.matching = w.value;
         }
+        if let Some(w) = &p.size_slack {
+            policy.size_slack = self.count("policy.size_slack", "policy.size_slack", w, None)?;
+        }
+        if let Some(w) = &p.min_group_size {
+            policy.min_group_size = Some(self.count("policy.min_group_size", "policy.min_group_size", w, None)?);
+        }
+        if let Some(w) = &p.max_group_size {
+            policy.max_group_size = Some(self.count("policy.max_group_size", "policy.max_group_size", w, None)?);
+        }
 
         let dropout = self.real_or("pool.dropout", "pool.dropout", raw.pool.dropout.as_ref(), 0.0)?;
         let replace_departures = raw.pool.replace_departures.as_ref().is_none_or(|w| w.value);
 
         self.group_size_fits(raw, common, policy.group_size, &shocks)?;
+        self.size_range_fits(raw, common, &policy, &shocks)?;
 
         Ok(Arm {
             label: String::new(),
@@ -583,6 +593,114 @@ impl Checker<'_> {
                     ));
                 }
                 Some(_) => {}
+            }
+        }
+        Ok(())
+    }
+
+    /// The arm's range of group sizes: min <= k <= max <= the smallest village, and every member-scope
+    /// curve defined and a probability at every size in the range (the engine reads it at each
+    /// group's own size). The field blamed is the one written that sets the offending bound.
+    fn size_range_fits(&self, raw: &RawScenario, common: &Common, policy: &Policy, shocks: &[Shock]) -> Result<()> {
+        let p = &raw.policy;
+        let k = policy.group_size;
+        let (min, max) = (policy.min_group_size(), policy.max_group_size());
+        let smallest_village = common.borrowers / common.villages;
+        // The written field that sets a bound: the bound itself, else the slack, else the group size.
+        let blame = |lower: bool, own_path: &'static str, value: u32| {
+            let own = if lower {
+                p.min_group_size.as_ref()
+            } else {
+                p.max_group_size.as_ref()
+            };
+            if let Some(w) = own {
+                (own_path, Some(&w.origin), self.written(w, || value.to_string()))
+            } else if let Some(w) = p.size_slack.as_ref() {
+                (
+                    "policy.size_slack",
+                    Some(&w.origin),
+                    format!(
+                        "{} (giving {own_path} = {value})",
+                        self.written(w, || policy.size_slack.to_string())
+                    ),
+                )
+            } else {
+                let origin = p.group_size.as_ref().map(|w| &w.origin);
+                (
+                    "policy.group_size",
+                    origin,
+                    format!("{k} (giving {own_path} = {value})"),
+                )
+            }
+        };
+        if min > k {
+            let (field, origin, text) = blame(true, "policy.min_group_size", min);
+            return Err(self.invalid(
+                field,
+                origin,
+                text,
+                format!("a smallest group size in [1, {k}] (at most policy.group_size = {k})"),
+            ));
+        }
+        if max < k {
+            let (field, origin, text) = blame(false, "policy.max_group_size", max);
+            return Err(self.invalid(
+                field,
+                origin,
+                text,
+                format!("a largest group size >= {k} (at least policy.group_size = {k})"),
+            ));
+        }
+        if max > smallest_village {
+            let (field, origin, text) = blame(false, "policy.max_group_size", max);
+            return Err(self.invalid(
+                field,
+                origin,
+                text,
+                format!(
+                    "a largest group size <= {smallest_village}, the smallest village's size ({} borrowers in {} villages)",
+                    common.borrowers, common.villages
+                ),
+            ));
+        }
+        for (i, shock) in shocks.iter().enumerate() {
+            let ShockProbability::Curve(curve) = &shock.probability else {
+                continue;
+            };
+            for size in min..=max {
+                let (field, origin, text) = if size < k {
+                    blame(true, "policy.min_group_size", min)
+                } else {
+                    blame(false, "policy.max_group_size", max)
+                };
+                match curve.at(size) {
+                    None => {
+                        return Err(self.invalid(
+                            field,
+                            origin,
+                            text,
+                            format!(
+                                "group sizes in the domain of shock[{i}].probability ({} curve: {}); size {size} is not",
+                                curve.kind_name(),
+                                curve.domain_text()
+                            ),
+                        ));
+                    }
+                    Some(q) if !(0.0..=1.0).contains(&q) => {
+                        let w = raw.shock[i].probability.as_ref().expect("a curve was written");
+                        return Err(self.invalid(
+                            format!("shock[{i}].probability"),
+                            Some(&w.origin),
+                            format!(
+                                "a {} curve worth {} at group size {size}",
+                                curve.kind_name(),
+                                float_text(q)
+                            ),
+                            "a probability in [0, 1] at every group size an arm may form",
+                        ));
+                    }
+                    Some(_) => {}
+                }
             }
         }
         Ok(())

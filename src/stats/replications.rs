@@ -38,6 +38,21 @@ pub struct ReplicationFigures {
     pub slot_cycles: u64,
     /// The largest single-cycle loss rate among the counted cycles that lent, `None` when none did.
     pub worst_cycle_loss: Option<f64>,
+    /// Members excluded for a term or for good (numerator of `exclusion_events`; over member loans).
+    #[serde(default)]
+    pub exclusion_events: u64,
+    /// Members removed for good by permanent exclusion (numerator of the removal rate).
+    #[serde(default)]
+    pub removals: u64,
+    /// New entrants after the first cycle (numerator of the entrant rate).
+    #[serde(default)]
+    pub entrants: u64,
+    /// Distinct borrowers who took at least one loan in the counted cycles.
+    #[serde(default)]
+    pub clients_reached: u64,
+    /// Slot-cycles empty after a removal, not yet refilled (numerator of the removed share).
+    #[serde(default)]
+    pub removed_slot_cycles: u64,
 }
 
 fn ratio(num: f64, den: f64) -> Option<f64> {
@@ -61,6 +76,11 @@ impl ReplicationFigures {
             excluded_slot_cycles: t.excluded_slot_cycles,
             slot_cycles: t.slot_cycles(),
             worst_cycle_loss: worst_cycle_loss(t),
+            exclusion_events: t.exclusion_events,
+            removals: t.removals,
+            entrants: t.entrants,
+            clients_reached: t.clients_reached,
+            removed_slot_cycles: t.removed_slot_cycles,
         }
     }
 
@@ -88,6 +108,22 @@ impl ReplicationFigures {
     pub fn member_default_rate(&self) -> Option<f64> {
         ratio(self.member_defaults as f64, self.member_loans as f64)
     }
+    /// Exclusion events / member loans.
+    pub fn exclusion_event_rate(&self) -> Option<f64> {
+        ratio(self.exclusion_events as f64, self.member_loans as f64)
+    }
+    /// Removals / member loans.
+    pub fn removal_rate(&self) -> Option<f64> {
+        ratio(self.removals as f64, self.member_loans as f64)
+    }
+    /// Entrants after the first cycle / member loans.
+    pub fn entrant_rate(&self) -> Option<f64> {
+        ratio(self.entrants as f64, self.member_loans as f64)
+    }
+    /// Removed slot-cycles / slot-cycles.
+    pub fn removed_share(&self) -> Option<f64> {
+        ratio(self.removed_slot_cycles as f64, self.slot_cycles as f64)
+    }
 
     /// A tally holding what these figures hold (0-based replication), for the comparisons; the
     /// served share's denominator is kept as served plus excluded plus waiting slot-cycles.
@@ -107,6 +143,11 @@ impl ReplicationFigures {
             waiting_slot_cycles: self
                 .slot_cycles
                 .saturating_sub(self.served_slot_cycles + self.excluded_slot_cycles),
+            exclusion_events: self.exclusion_events,
+            removals: self.removals,
+            entrants: self.entrants,
+            clients_reached: self.clients_reached,
+            removed_slot_cycles: self.removed_slot_cycles,
             ..Default::default()
         }
     }

@@ -69,8 +69,22 @@ pub struct ArmSummary {
     pub worst_cycle_loss_p95: Option<f64>,
     /// See `worst_cycle_loss_p95`.
     pub worst_cycle_loss_p99: Option<f64>,
-    /// Intra-group correlation of member shortfalls (beta-binomial moment estimator).
+    /// Intra-group correlation of member shortfalls (beta-binomial moment estimator, each group at
+    /// its own size).
     pub shortfall_icc: Option<f64>,
+    /// Member loans / group-cycles: the size groups actually had (the nominal k when every group has k).
+    pub mean_group_size: Option<f64>,
+    /// Members excluded (for a term or for good) / member loans.
+    pub exclusion_events: Option<f64>,
+    /// Members removed for good by permanent exclusion / member loans.
+    pub removal_rate: Option<f64>,
+    /// New entrants after the first cycle / member loans.
+    pub entrant_rate: Option<f64>,
+    /// Distinct borrowers who took at least one loan in the counted cycles, mean per replication.
+    pub clients_reached: Option<f64>,
+    /// Mean share of slots whose occupant was removed and that are not yet refilled (part of
+    /// `empty_share`).
+    pub removed_share: Option<f64>,
 }
 
 /// A rate with its 95% interval (empty ends with fewer than 2 replications).
@@ -134,7 +148,26 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
     let loss_rate = estimate::ratio(reps.iter().map(|r| (r.loss, r.disbursed))).map(Interval::from);
     let member_shortfall_rate = share(sum_u(|r| r.member_shortfalls), member_loans);
     let shortfall_free_group_rate = share(sum_u(|r| r.shortfall_free_groups), group_cycles);
-    let iid_shortfall_free = member_shortfall_rate.map(|q| (1.0 - q).powf(k));
+    let by_size = sizes_vary(tally).then(|| pooled_by_size(tally));
+    let iid_shortfall_free = match &by_size {
+        // the mean over groups of (1 - q)^(own size)
+        Some(rows) => member_shortfall_rate.and_then(|q| {
+            let groups: u64 = rows.iter().map(|(_, c)| c.iter().sum::<u64>()).sum();
+            let weighted: f64 = rows
+                .iter()
+                .map(|(size, c)| c.iter().sum::<u64>() as f64 * (1.0 - q).powf(f64::from(*size)))
+                .sum();
+            (groups > 0).then(|| weighted / groups as f64)
+        }),
+        None => member_shortfall_rate.map(|q| (1.0 - q).powf(k)),
+    };
+    let mean_group_size = share(member_loans, group_cycles);
+    // the naive inversion reads group repayment at the size groups actually had
+    let inversion_size = if by_size.is_some() {
+        mean_group_size.unwrap_or(k)
+    } else {
+        k
+    };
     let dependence_ratio = match (shortfall_free_group_rate, iid_shortfall_free) {
         (Some(free), Some(iid)) if iid > 0.0 => Some(free / iid),
         _ => None,
@@ -172,7 +205,7 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
         shortfall_free_group_rate,
         iid_shortfall_free,
         dependence_ratio,
-        implied_member_failure: group_repayment.map(|g| 1.0 - g.rate.max(0.0).powf(1.0 / k)),
+        implied_member_failure: group_repayment.map(|g| 1.0 - g.rate.max(0.0).powf(1.0 / inversion_size)),
         rescued_rate: share(sum_u(|r| r.groups_rescued), group_cycles),
         value_repayment_rate: fraction(collected, due),
         loss_rate,
@@ -191,8 +224,75 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
         worst_cycle_loss_p50: estimate::quantile_sorted(&worst, 0.5),
         worst_cycle_loss_p95: estimate::quantile_sorted(&worst, 0.95),
         worst_cycle_loss_p99: estimate::quantile_sorted(&worst, 0.99),
-        shortfall_icc: shortfall_icc(tally, group_size),
+        shortfall_icc: match &by_size {
+            Some(rows) => mixed_size_icc(rows),
+            None => shortfall_icc(tally, group_size),
+        },
+        mean_group_size,
+        exclusion_events: share(sum_u(|r| r.exclusion_events), member_loans),
+        removal_rate: share(sum_u(|r| r.removals), member_loans),
+        entrant_rate: share(sum_u(|r| r.entrants), member_loans),
+        clients_reached: (!reps.is_empty()).then(|| sum_u(|r| r.clients_reached) as f64 / reps.len() as f64),
+        removed_share: share(sum_u(|r| r.removed_slot_cycles), slot_cycles),
     }
+}
+
+/// Whether the arm's groups may differ in size (its tallies' histograms have several size rows).
+fn sizes_vary(tally: &ArmTally) -> bool {
+    tally
+        .replications
+        .first()
+        .is_some_and(|r| r.smallest_group_size != r.largest_group_size)
+}
+
+/// Groups by (size, members short), summed over replications: (size, counts by the number short).
+pub fn pooled_by_size(tally: &ArmTally) -> Vec<(u32, Vec<u64>)> {
+    let mut rows: Vec<(u32, Vec<u64>)> = Vec::new();
+    for r in &tally.replications {
+        for (size, cells) in r.shortfalls_by_size() {
+            match rows.iter_mut().find(|(s, _)| *s == size) {
+                Some((_, sum)) => sum.iter_mut().zip(cells).for_each(|(a, b)| *a += b),
+                None => rows.push((size, cells.to_vec())),
+            }
+        }
+    }
+    rows
+}
+
+/// The moment estimator of the intra-group correlation with each group at its own size s: with q
+/// the pooled shortfall rate, E[(n - s q)^2] = s q (1 - q) (1 + (s - 1) icc), summed over groups and
+/// solved for icc. With a single size it is the estimator of [`shortfall_icc`]. `None` when no group
+/// has two members, or q is 0 or 1.
+pub fn mixed_size_icc(rows: &[(u32, Vec<u64>)]) -> Option<f64> {
+    let (mut members, mut short, mut pairs) = (0.0, 0.0, 0.0);
+    for (size, counts) in rows {
+        let s = f64::from(*size);
+        for (n, &c) in counts.iter().enumerate() {
+            let c = c as f64;
+            members += c * s;
+            short += c * n as f64;
+            pairs += c * s * (s - 1.0);
+        }
+    }
+    if members == 0.0 || pairs == 0.0 {
+        return None;
+    }
+    let q = short / members;
+    let spread = q * (1.0 - q);
+    if spread <= 0.0 {
+        return None;
+    }
+    let squares: f64 = rows
+        .iter()
+        .flat_map(|(size, counts)| {
+            let s = f64::from(*size);
+            counts
+                .iter()
+                .enumerate()
+                .map(move |(n, &c)| c as f64 * (n as f64 - s * q).powi(2))
+        })
+        .sum();
+    Some((squares / spread - members) / pairs)
 }
 
 /// Beta-binomial moment estimator of the intra-group correlation of member shortfalls: with n the
@@ -260,4 +360,46 @@ pub fn time_series(tally: &ArmTally, scenario: &Scenario) -> Vec<CyclePoint> {
             }
         })
         .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::stats::ReplicationTally;
+
+    /// With one group size the per-size estimator is the beta-binomial one: the same data, two
+    /// formulas (deviations about the pooled mean, and Var(n) = k q (1 - q) (1 + (k - 1) icc)).
+    #[test]
+    fn the_mixed_size_icc_reduces_to_the_single_size_estimator() {
+        let mut t = ReplicationTally::new(0, 4, 0);
+        for (short, groups) in [(0, 50), (1, 30), (2, 12), (3, 5), (4, 3)] {
+            for _ in 0..groups {
+                t.count_group_shortfalls(4, short);
+            }
+        }
+        let mut tally = ArmTally::default();
+        tally.push(t);
+        let single = shortfall_icc(&tally, 4).unwrap();
+        let rows = vec![(4, tally.replications[0].shortfall_histogram.clone())];
+        let mixed = mixed_size_icc(&rows).unwrap();
+        assert!((single - mixed).abs() < 1e-12, "{single} vs {mixed}");
+        assert!(single > 0.0);
+    }
+
+    /// Groups of several sizes land in their own rows, and the pooled rows add replications.
+    #[test]
+    fn shortfalls_are_kept_per_group_size() {
+        let mut tally = ArmTally::default();
+        for r in 0..2 {
+            let mut t = ReplicationTally::with_group_sizes(r, 4, 6, 0);
+            t.count_group_shortfalls(4, 1);
+            t.count_group_shortfalls(6, 6);
+            t.count_group_shortfalls(6, 0);
+            tally.push(t);
+        }
+        let rows = pooled_by_size(&tally);
+        assert_eq!(rows[0], (4, vec![0, 2, 0, 0, 0]));
+        assert_eq!(rows[1], (5, vec![0; 6]));
+        assert_eq!(rows[2], (6, vec![2, 0, 0, 0, 0, 0, 2]));
+    }
 }

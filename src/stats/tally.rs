@@ -65,8 +65,32 @@ pub struct ReplicationTally {
     pub waiting_slot_cycles: u64,
     /// Slot-cycles with no member.
     pub empty_slot_cycles: u64,
-    /// Groups by the number of their members with a shortfall (index 0..=k).
+    /// Groups by their size and the number of their members with a shortfall: cell
+    /// (size - `smallest_group_size`) x (largest size + 1) + short. With one group size k it is
+    /// indexed by the number short alone (0..=k).
     pub shortfall_histogram: Vec<u64>,
+    /// The smallest group size the histogram has a row for (0 in a tally rebuilt from a file).
+    #[serde(default)]
+    pub smallest_group_size: u32,
+    /// The largest group size the histogram has a cell for.
+    #[serde(default)]
+    pub largest_group_size: u32,
+    /// Members excluded, for a term or for good (exclusion events).
+    #[serde(default)]
+    pub exclusion_events: u64,
+    /// Members removed for good by permanent exclusion (dropouts are not removals).
+    #[serde(default)]
+    pub removals: u64,
+    /// New entrants after the first cycle (refills of emptied slots).
+    #[serde(default)]
+    pub entrants: u64,
+    /// Distinct borrowers who took at least one loan in the counted cycles.
+    #[serde(default)]
+    pub clients_reached: u64,
+    /// Slot-cycles empty because their occupant was removed and the slot is not yet refilled (part
+    /// of `empty_slot_cycles`).
+    #[serde(default)]
+    pub removed_slot_cycles: u64,
     /// Per counted cycle, in order.
     pub cycles: Vec<CycleRecord>,
 }
@@ -74,12 +98,47 @@ pub struct ReplicationTally {
 impl ReplicationTally {
     /// An empty tally for replication `replication` of an arm with groups of `group_size`.
     pub fn new(replication: u32, group_size: u32, counted_cycles: u32) -> Self {
+        Self::with_group_sizes(replication, group_size, group_size, counted_cycles)
+    }
+
+    /// An empty tally for an arm whose groups have sizes in [`smallest`, `largest`].
+    pub fn with_group_sizes(replication: u32, smallest: u32, largest: u32, counted_cycles: u32) -> Self {
+        let rows = (largest - smallest) as usize + 1;
         ReplicationTally {
             replication,
-            shortfall_histogram: vec![0; group_size as usize + 1],
+            shortfall_histogram: vec![0; rows * (largest as usize + 1)],
+            smallest_group_size: smallest,
+            largest_group_size: largest,
             cycles: Vec::with_capacity(counted_cycles as usize),
             ..Default::default()
         }
+    }
+
+    /// Counts one group of `size` members, `short` of them with a shortfall, in the histogram.
+    #[inline]
+    pub fn count_group_shortfalls(&mut self, size: usize, short: usize) {
+        let width = self.row_width();
+        self.shortfall_histogram[(size - self.smallest_group_size as usize) * width + short] += 1;
+    }
+
+    /// Cells per histogram row: the largest group size + 1.
+    #[inline]
+    fn row_width(&self) -> usize {
+        self.largest_group_size as usize + 1
+    }
+
+    /// Groups per (size, members short), for each size with at least one cell: (size, counts by
+    /// the number short, 0..=size).
+    pub fn shortfalls_by_size(&self) -> Vec<(u32, &[u64])> {
+        let width = self.row_width();
+        self.shortfall_histogram
+            .chunks(width)
+            .enumerate()
+            .map(|(row, cells)| {
+                let size = self.smallest_group_size + row as u32;
+                (size, &cells[..=(size as usize).min(width - 1)])
+            })
+            .collect()
     }
 
     /// The replication's loss rate over its counted cycles, `None` if it lent nothing.
