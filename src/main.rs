@@ -66,6 +66,10 @@ enum Command {
         /// Rewrite DIR/differences.csv against this arm: a label or a number from 1, as `check` lists them.
         #[arg(long, value_name = "ARM")]
         baseline: Option<String>,
+        /// Write DIR/contrasts.csv: every pair of arms that differ only in this swept key, paired by
+        /// replication, at each level of the other keys.
+        #[arg(long, value_name = "KEY")]
+        along: Option<String>,
         /// Choose the arm with the highest FIGURE among those meeting every --subject-to.
         #[arg(long, value_name = "FIGURE", conflicts_with = "minimize")]
         maximize: Option<String>,
@@ -303,6 +307,7 @@ fn board_report(dir: &std::path::Path, quiet: bool) -> Result<(), Failure> {
 fn compare_command(
     dir: &std::path::Path,
     baseline: Option<&str>,
+    along: Option<&str>,
     objective: Option<(String, loancycle::stats::compare::Direction)>,
     subject_to: &[String],
     json: bool,
@@ -334,9 +339,9 @@ fn compare_command(
     };
     let stored = loancycle::stored::StoredRun::read(dir).map_err(|e| Failure::BadInput(e.to_string()))?;
     if let Some((metric, direction, constraints)) = selection_request {
-        if baseline.is_some() {
+        if baseline.is_some() || along.is_some() {
             return Err(Failure::BadInput(
-                "--baseline writes differences.csv; ask for it apart from --maximize/--minimize".to_string(),
+                "--baseline and --along write files; ask for them apart from --maximize/--minimize".to_string(),
             ));
         }
         let selection = select::select(&stored.compared(), metric, direction, &constraints);
@@ -350,17 +355,33 @@ fn compare_command(
         );
         return Ok(());
     }
-    let Some(given) = baseline else {
+    if baseline.is_none() && along.is_none() {
         return Err(Failure::BadInput(
-            "compare: nothing asked; give --baseline ARM, or --maximize/--minimize FIGURE".to_string(),
+            "compare: nothing asked; give --baseline ARM, --along KEY, or --maximize/--minimize FIGURE".to_string(),
         ));
-    };
-    let index =
-        compare::resolve_arm(&stored.labels(), given).map_err(|e| Failure::BadInput(format!("--baseline: {e}")))?;
-    let rows = compare::differences(&stored.compared(), index);
-    let path = output::replace_file(dir, "differences.csv", &output::tables::difference_rows_csv(&rows))
-        .map_err(|e| Failure::Running(e.to_string()))?;
-    println!("wrote {}", path.display());
+    }
+    // Both requests are checked before either file is written.
+    let differences = baseline
+        .map(|given| {
+            compare::resolve_arm(&stored.labels(), given)
+                .map(|index| compare::differences(&stored.compared(), index))
+                .map_err(|e| Failure::BadInput(format!("--baseline: {e}")))
+        })
+        .transpose()?;
+    let contrasts = along
+        .map(|key| {
+            let swept: Vec<Vec<(String, String)>> = stored.arms.iter().map(|a| a.swept.clone()).collect();
+            compare::contrasts(&stored.compared(), &swept, key).map_err(|e| Failure::BadInput(format!("--along: {e}")))
+        })
+        .transpose()?;
+    let files = [
+        differences.map(|rows| ("differences.csv", output::tables::difference_rows_csv(&rows))),
+        contrasts.map(|rows| ("contrasts.csv", output::tables::contrasts_csv(&rows))),
+    ];
+    for (name, bytes) in files.into_iter().flatten() {
+        let path = output::replace_file(dir, name, &bytes).map_err(|e| Failure::Running(e.to_string()))?;
+        println!("wrote {}", path.display());
+    }
     Ok(())
 }
 
@@ -420,6 +441,7 @@ fn execute(command: Command) -> Result<(), Failure> {
         Command::Compare {
             dir,
             baseline,
+            along,
             maximize,
             minimize,
             subject_to,
@@ -430,7 +452,7 @@ fn execute(command: Command) -> Result<(), Failure> {
                 (None, Some(f)) => Some((f, loancycle::stats::compare::Direction::Minimize)),
                 (None, None) => None,
             };
-            compare_command(&dir, baseline.as_deref(), objective, &subject_to, json)
+            compare_command(&dir, baseline.as_deref(), along.as_deref(), objective, &subject_to, json)
         }
         Command::DemoScenario => {
             print!("{}", demo::BASELINE);

@@ -451,3 +451,84 @@ fn the_group_size_table_answers_from_the_summary_and_the_closed_form() {
         assert!(row["best_exact"].is_empty() || row["best_exact"].parse::<u32>().is_ok());
     }
 }
+
+/// Paired difference of two arms' pooled group repayment with its delta-method standard error,
+/// recomputed from replications.csv (Cochran, Sampling Techniques, ch. 6: each replication
+/// contributes (x_a - R_a y_a) / mean(y_a) - (x_b - R_b y_b) / mean(y_b)).
+fn paired_repayment(out: &Path, arm: &str, baseline: &str) -> (f64, f64) {
+    let reps = read_csv(&out.join("replications.csv"));
+    let pairs = |label: &str| -> Vec<(f64, f64)> {
+        reps.iter()
+            .filter(|r| r["arm"] == label)
+            .map(|r| (num(r, "groups_repaid"), num(r, "group_cycles")))
+            .collect()
+    };
+    let (a, b) = (pairs(arm), pairs(baseline));
+    let n = a.len() as f64;
+    let pooled = |v: &[(f64, f64)]| {
+        let (x, y) = v.iter().fold((0.0, 0.0), |s, p| (s.0 + p.0, s.1 + p.1));
+        (x / y, y / n)
+    };
+    let ((ra, ya), (rb, yb)) = (pooled(&a), pooled(&b));
+    let z: Vec<f64> = a
+        .iter()
+        .zip(&b)
+        .map(|(p, q)| (p.0 - ra * p.1) / ya - (q.0 - rb * q.1) / yb)
+        .collect();
+    let mean = z.iter().sum::<f64>() / n;
+    let var = z.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n - 1.0);
+    (ra - rb, (var / n).sqrt())
+}
+
+#[test]
+fn contrasts_pair_the_arms_that_differ_only_in_one_key() {
+    let tmp = tempfile::tempdir().unwrap();
+    let out = run_scenario(tmp.path(), SWEPT, &[]);
+    let dir = out.to_str().unwrap();
+    let o = loancycle(&["compare", dir, "--along", "shock.illness.village_correlation"]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let rows = read_csv(&out.join("contrasts.csv"));
+    // Two group sizes, one pair of correlations each, five figures per pair.
+    assert_eq!(rows.len(), 2 * 5);
+    let contexts: Vec<&str> = rows.iter().map(|r| r["context"].as_str()).collect();
+    assert_eq!(contexts[..5], ["group_size=3"; 5]);
+    assert_eq!(contexts[5..], ["group_size=5"; 5]);
+    for r in rows.iter().filter(|r| r["metric"] == "group_repayment_rate") {
+        let k = r["context"].trim_start_matches("group_size=");
+        assert_eq!(r["baseline"], format!("group_size={k},shock.illness.village_correlation=0"));
+        assert_eq!(r["arm"], format!("group_size={k},shock.illness.village_correlation=0.3"));
+        assert_eq!((r["baseline_value"].as_str(), r["value"].as_str()), ("0", "0.3"));
+        let (d, se) = paired_repayment(&out, &r["arm"], &r["baseline"]);
+        assert!((num(r, "difference") - d).abs() <= 1e-12, "{r:?}");
+        assert!((num(r, "se") - se).abs() <= 1e-12 * se.max(1e-3), "{r:?}");
+        // 1.959964: the standard normal 97.5% quantile (scipy.stats.norm.ppf(0.975)).
+        assert!((num(r, "ci_low") - (d - 1.959964 * se)).abs() <= 1e-9);
+        let significant = r["significant"] == "true";
+        assert_eq!(significant, num(r, "ci_low") > 0.0 || num(r, "ci_high") < 0.0);
+        assert!(num(r, "se_ratio") > 0.0);
+    }
+    // A key that is not swept exits 2 in one line naming the swept keys, and writes nothing new.
+    std::fs::remove_file(out.join("contrasts.csv")).unwrap();
+    let o = loancycle(&["compare", dir, "--along", "peer_cover"]);
+    assert_eq!(o.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(err.lines().count(), 1, "{err}");
+    assert!(
+        err.contains("--along") && err.contains("peer_cover") && err.contains("group_size, shock.illness.village_correlation"),
+        "{err}"
+    );
+    assert!(!out.join("contrasts.csv").exists());
+    // `policy.group_size` names the policy field as in a scenario file.
+    let o = loancycle(&["compare", dir, "--along", "policy.group_size"]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let rows = read_csv(&out.join("contrasts.csv"));
+    assert_eq!(rows.len(), 2 * 5);
+    assert_eq!(rows[0]["context"], "shock.illness.village_correlation=0");
+    // No temporary file is left beside the results.
+    let leftovers: Vec<_> = std::fs::read_dir(&out)
+        .unwrap()
+        .filter_map(|e| e.ok())
+        .filter(|e| e.file_name().to_string_lossy().contains("partial"))
+        .collect();
+    assert!(leftovers.is_empty());
+}

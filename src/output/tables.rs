@@ -364,6 +364,48 @@ pub fn difference_rows_csv(differences: &[crate::stats::compare::ArmDifference])
     }))
 }
 
+/// One row of contrasts.csv: a pair of arms differing only in the contrasted key.
+#[derive(Debug, Default, Serialize)]
+struct ContrastRow<'a> {
+    context: &'a str,
+    arm: &'a str,
+    baseline: &'a str,
+    value: &'a str,
+    baseline_value: &'a str,
+    metric: &'a str,
+    difference: Cell,
+    se: Cell,
+    ci_low: Cell,
+    ci_high: Cell,
+    significant: &'static str,
+    se_ratio: Cell,
+}
+
+/// contrasts.csv (what `compare --along KEY` writes): every pair of arms differing only in KEY.
+pub fn contrasts_csv(contrasts: &[crate::stats::compare::Contrast]) -> Vec<u8> {
+    csv_bytes(contrasts.iter().map(|c| {
+        let d = &c.difference;
+        ContrastRow {
+            context: &c.context,
+            arm: &d.arm,
+            baseline: &d.baseline,
+            value: &c.value,
+            baseline_value: &c.baseline_value,
+            metric: d.metric,
+            difference: Cell(Some(d.difference)),
+            se: Cell(d.standard_error),
+            ci_low: Cell(d.ci_low),
+            ci_high: Cell(d.ci_high),
+            significant: match d.significant {
+                Some(true) => "true",
+                Some(false) => "false",
+                None => "",
+            },
+            se_ratio: Cell(d.se_ratio),
+        }
+    }))
+}
+
 /// summary.json: the whole report, pretty-printed, non-finite numbers as null.
 pub fn summary_json(report: &RunReport) -> Vec<u8> {
     let mut bytes = serde_json::to_vec_pretty(report).expect("report serialises: no maps with non-string keys");
