@@ -58,7 +58,7 @@ pub fn table(
             None => contexts.push((c, vec![i])),
         }
     }
-    let size = |i: usize| scenario.arms()[i].policy().group_size;
+    let size = |i: usize| scenario.arms()[i].policy().group_size();
     let mut rows = Vec::new();
     for (context, members) in contexts {
         let sub: Vec<ComparedArm> = members.iter().map(|&i| arms[i]).collect();
@@ -95,24 +95,27 @@ pub fn table(
         } else {
             format!("at {context}, ")
         };
+        let (in_class, out_of_class) = departures(arm);
         if let (Some(c), Some(e)) = (best_closed_form, best_exact)
             && c != e
         {
             sentences.push(format!(
-                "{at}correlation and peer cover move the best size from {c} (closed form) to {e} (exact)"
+                "{at}{} the best size from {c} (closed form) to {e} (exact)",
+                moves(&in_class)
             ));
         }
         if let (Some(from), Some(s)) = (best_exact.or(best_closed_form), best_simulated)
             && from != s
             && !not_worse.contains(&from)
         {
-            let what = if best_exact.is_some() {
-                "exact value"
+            let (what, factors) = if best_exact.is_some() {
+                ("exact value", vec!["the finite pool and the simulation's noise"])
             } else {
-                "closed form"
+                ("closed form", [in_class, out_of_class].concat())
             };
             sentences.push(format!(
-                "{at}the rest of the model moves the best size from {from} ({what}) to {s} (simulated)"
+                "{at}{} the best size from {from} ({what}) to {s} (simulated)",
+                moves(&factors)
             ));
         }
         if let (Some(s), Some(l)) = (best_simulated, best_by_loss)
@@ -133,4 +136,73 @@ pub fn table(
         });
     }
     Some(rows)
+}
+
+/// What separates an arm from the closed form's assumptions (independent, identical members, one
+/// shock whose hit is a default, no cover), in two parts: what the exact one-factor value still
+/// covers (correlation, peer cover) and what only the simulation does. These are the factors that
+/// can move the best size, named in the order they usually matter most.
+fn departures(arm: &crate::scenario::Arm) -> (Vec<&'static str>, Vec<&'static str>) {
+    use crate::scenario::{Exclusion, Formation, Liability, Matching};
+    let curve_shock = arm
+        .shocks()
+        .iter()
+        .find(|s| s.scope() == ShockScope::Member && matches!(s.probability(), ShockProbability::Curve(_)));
+    let mut in_class = Vec::new();
+    let policy = arm.policy();
+    if policy.liability() == Liability::Joint && policy.peer_cover() > 0.0 {
+        in_class.push("peer cover");
+    }
+    if curve_shock.is_some_and(|s| s.village_correlation() > 0.0 || s.portfolio_correlation() > 0.0) {
+        in_class.push("correlation");
+    }
+    let mut out = Vec::new();
+    if arm.shocks().len() > 1 {
+        out.push("the other shocks");
+    }
+    if arm.risk().fixed_value().is_none() {
+        out.push("the spread of risk");
+    }
+    if arm.income().fixed_value().is_none() {
+        out.push("random incomes");
+    }
+    if curve_shock.is_some_and(|s| s.severity().fixed_value().is_none()) {
+        out.push("random severities");
+    }
+    if policy.exclusion_cycles() != Exclusion::Cycles(0) {
+        out.push("exclusion");
+    }
+    if arm.dropout() > 0.0 {
+        out.push("dropout");
+    }
+    if policy.matching() == Matching::Assortative {
+        out.push("assortative matching");
+    }
+    if policy.formation() == Formation::Persistent {
+        out.push("persistent groups");
+    }
+    (in_class, out)
+}
+
+/// "correlation moves", "peer cover and correlation move", "a, b and c move"; with no factor
+/// named, "the rest of the model moves".
+fn moves(factors: &[&str]) -> String {
+    match factors {
+        [] => "the rest of the model moves".to_string(),
+        [one] => format!("{one} moves"),
+        [rest @ .., last] => format!("{} and {last} move", rest.join(", ")),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn factors_are_named_in_plain_english() {
+        assert_eq!(moves(&["correlation"]), "correlation moves");
+        assert_eq!(moves(&["peer cover", "correlation"]), "peer cover and correlation move");
+        assert_eq!(moves(&["a", "b", "c"]), "a, b and c move");
+        assert_eq!(moves(&[]), "the rest of the model moves");
+    }
 }
