@@ -104,8 +104,8 @@ enum Command {
         #[arg(long, allow_negative_numbers = true)]
         p: Option<String>,
         /// Value of a constant curve.
-        #[arg(long)]
-        value: Option<f64>,
+        #[arg(long, allow_negative_numbers = true)]
+        value: Option<String>,
         /// Values of a table curve, e.g. `2=0.08,3=0.06,4=0.05`.
         #[arg(long)]
         values: Option<String>,
@@ -115,6 +115,10 @@ enum Command {
         /// Integer group sizes to tabulate, both ends included.
         #[arg(long, default_value = "2..12")]
         range: String,
+        /// Mean risk multiplier u: every phi(k) becomes min(1, u phi(k)), as `run` applies an arm's
+        /// mean risk in group_size.csv's best_closed_form.
+        #[arg(long, value_name = "U", default_value_t = 1.0, allow_negative_numbers = true)]
+        risk: f64,
         /// Print JSON instead of a table.
         #[arg(long, conflicts_with = "csv")]
         json: bool,
@@ -262,7 +266,7 @@ fn load_with(file: Option<&PathBuf>, overrides: &Overrides) -> Result<(Scenario,
 fn optimum_request(
     curve: &str,
     p: Option<&str>,
-    value: Option<f64>,
+    value: Option<&str>,
     values: Option<&str>,
     steps: u32,
     range: &str,
@@ -271,19 +275,27 @@ fn optimum_request(
     let (parameter, band) = match p {
         Some(text) if text.contains("..") => {
             let (from, to) = optimum::parse_band(text).map_err(|e| format!("--p: {e}"))?;
-            (Some(from), Some((from, to, steps as usize - 1)))
+            // The curve is checked at the band's start, so the band's ends get the curve's bounds.
+            let start: &str = text.split("..").next().unwrap_or(text);
+            (Some(("--p", start)), Some((from, to, steps as usize - 1)))
         }
-        Some(text) => {
-            let x = text
-                .trim()
-                .parse::<f64>()
-                .map_err(|_| format!("--p = \"{text}\" is not allowed: a number, or a band such as 0.5..1"))?;
-            (Some(x), None)
-        }
-        None => (value, None),
+        Some(text) => (Some(("--p", text)), None),
+        None => (value.map(|v| ("--value", v)), None),
     };
-    let curve = optimum::curve_from_parts(curve, parameter, values).map_err(|e| format!("--curve: {e}"))?;
+    let curve = optimum::curve_from_parts(curve, parameter, values).map_err(|e| e.to_string())?;
     Ok(optimum::OptimumRequest { curve, band, range })
+}
+
+/// A refusal of `optimum`'s solver, prefixed with the flag that gave the value.
+fn optimum_flag_error(e: &analytic::AnalyticError) -> String {
+    let flag = match e {
+        analytic::AnalyticError::BadInput { name, .. } if name == "risk" => "--risk",
+        analytic::AnalyticError::BadInput { name, .. } if name.starts_with("range") => "--range",
+        analytic::AnalyticError::BadInput { name, .. } if name == "steps" => "--steps",
+        analytic::AnalyticError::BadInput { name, .. } if name.starts_with("band") => "--p",
+        _ => "--curve",
+    };
+    format!("{flag}: {e}")
 }
 
 /// Writes the board report of the run in `dir`.
@@ -406,11 +418,12 @@ fn execute(command: Command) -> Result<(), Failure> {
             values,
             steps,
             range,
+            risk,
             json,
             csv,
         } => {
-            let report = optimum_request(&curve, p.as_deref(), value, values.as_deref(), steps, &range)
-                .and_then(|req| optimum::solve(&req).map_err(|e| e.to_string()))
+            let report = optimum_request(&curve, p.as_deref(), value.as_deref(), values.as_deref(), steps, &range)
+                .and_then(|req| optimum::solve_with_risk(&req, risk).map_err(|e| optimum_flag_error(&e)))
                 .map_err(Failure::BadInput)?;
             print!(
                 "{}",
@@ -452,7 +465,14 @@ fn execute(command: Command) -> Result<(), Failure> {
                 (None, Some(f)) => Some((f, loancycle::stats::compare::Direction::Minimize)),
                 (None, None) => None,
             };
-            compare_command(&dir, baseline.as_deref(), along.as_deref(), objective, &subject_to, json)
+            compare_command(
+                &dir,
+                baseline.as_deref(),
+                along.as_deref(),
+                objective,
+                &subject_to,
+                json,
+            )
         }
         Command::DemoScenario => {
             print!("{}", demo::BASELINE);

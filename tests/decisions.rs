@@ -495,8 +495,14 @@ fn contrasts_pair_the_arms_that_differ_only_in_one_key() {
     assert_eq!(contexts[5..], ["group_size=5"; 5]);
     for r in rows.iter().filter(|r| r["metric"] == "group_repayment_rate") {
         let k = r["context"].trim_start_matches("group_size=");
-        assert_eq!(r["baseline"], format!("group_size={k},shock.illness.village_correlation=0"));
-        assert_eq!(r["arm"], format!("group_size={k},shock.illness.village_correlation=0.3"));
+        assert_eq!(
+            r["baseline"],
+            format!("group_size={k},shock.illness.village_correlation=0")
+        );
+        assert_eq!(
+            r["arm"],
+            format!("group_size={k},shock.illness.village_correlation=0.3")
+        );
         assert_eq!((r["baseline_value"].as_str(), r["value"].as_str()), ("0", "0.3"));
         let (d, se) = paired_repayment(&out, &r["arm"], &r["baseline"]);
         assert!((num(r, "difference") - d).abs() <= 1e-12, "{r:?}");
@@ -514,7 +520,9 @@ fn contrasts_pair_the_arms_that_differ_only_in_one_key() {
     let err = String::from_utf8_lossy(&o.stderr);
     assert_eq!(err.lines().count(), 1, "{err}");
     assert!(
-        err.contains("--along") && err.contains("peer_cover") && err.contains("group_size, shock.illness.village_correlation"),
+        err.contains("--along")
+            && err.contains("peer_cover")
+            && err.contains("group_size, shock.illness.village_correlation"),
         "{err}"
     );
     assert!(!out.join("contrasts.csv").exists());
@@ -560,21 +568,43 @@ fn order_statistic_ranks_match_scipy_and_cover_by_the_exact_binomial_law() {
     use statrs::distribution::{Binomial, DiscreteCDF};
     for (n, q, low, high) in SCIPY_RANKS {
         let expected = (high <= n).then_some((low, high));
-        assert_eq!(estimate::quantile_interval_ranks(n, q, 0.95), expected, "n = {n}, q = {q}");
+        assert_eq!(
+            estimate::quantile_interval_ranks(n, q, 0.95),
+            expected,
+            "n = {n}, q = {q}"
+        );
     }
     for (n, q, alpha, upper, lower) in SCIPY_ONE_SIDED {
-        assert_eq!(estimate::quantile_upper_rank(n, q, alpha), Some(upper), "n = {n}, q = {q}");
-        assert_eq!(estimate::quantile_lower_rank(n, q, alpha), Some(lower), "n = {n}, q = {q}");
+        assert_eq!(
+            estimate::quantile_upper_rank(n, q, alpha),
+            Some(upper),
+            "n = {n}, q = {q}"
+        );
+        assert_eq!(
+            estimate::quantile_lower_rank(n, q, alpha),
+            Some(lower),
+            "n = {n}, q = {q}"
+        );
     }
     // Exact coverage P(l <= B <= u - 1), B ~ binomial(n, q), from statrs 0.18: at least 95%, and
     // each end as tight as it can be (moving it inward would leave more than 2.5% on its side).
-    for (n, q) in [(40, 0.5), (60, 0.5), (200, 0.95), (400, 0.99), (1000, 0.95), (5000, 0.999)] {
+    for (n, q) in [
+        (40, 0.5),
+        (60, 0.5),
+        (200, 0.95),
+        (400, 0.99),
+        (1000, 0.95),
+        (5000, 0.999),
+    ] {
         let (l, u) = estimate::quantile_interval_ranks(n, q, 0.95).unwrap();
         let law = Binomial::new(q, n as u64).unwrap();
         let cdf = |k: usize| law.cdf(k as u64);
         let below = if l >= 2 { cdf(l - 2) } else { 0.0 };
         assert!(cdf(u - 1) - cdf(l - 1) >= 0.95, "n = {n}, q = {q}: ranks {l}, {u}");
-        assert!(cdf(l - 1) < 0.025 && cdf(l) >= 0.025 && below < 0.025, "n = {n}, q = {q}: low {l}");
+        assert!(
+            cdf(l - 1) < 0.025 && cdf(l) >= 0.025 && below < 0.025,
+            "n = {n}, q = {q}: low {l}"
+        );
         assert!(cdf(u - 1) >= 0.975 && cdf(u - 2) < 0.975, "n = {n}, q = {q}: high {u}");
     }
 }
@@ -694,7 +724,12 @@ fn a_quantile_constraint_uses_the_order_statistic_bound() {
         .filter(|(_, b)| **b <= limit)
         .map(|(a, _)| a["arm"].as_str())
         .collect();
-    let feasible: Vec<&str> = v["feasible"].as_array().unwrap().iter().map(|x| x.as_str().unwrap()).collect();
+    let feasible: Vec<&str> = v["feasible"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|x| x.as_str().unwrap())
+        .collect();
     assert_eq!(feasible, expected);
     assert!(feasible.len() < 3, "the limit should split the arms: {bounds:?}");
     // The per-cycle quantiles need cycle records, which a stored run lacks: refused in one line.
@@ -708,5 +743,93 @@ fn a_quantile_constraint_uses_the_order_statistic_bound() {
     ]);
     assert_eq!(o.status.code(), Some(2));
     let err = String::from_utf8_lossy(&o.stderr);
-    assert!(err.contains("worst_cycle_loss_p95") && err.lines().count() == 1, "{err}");
+    assert!(
+        err.contains("worst_cycle_loss_p95") && err.lines().count() == 1,
+        "{err}"
+    );
+}
+
+/// An invented lender, "Saltmarsh Weavers' Union": a sales shock whose failure probability falls
+/// too slowly with group size for groups to pay off without cover, in the one-factor class (fixed
+/// income 1.5, a hit takes the whole income), swept over 7 group sizes and 3 levels of cover: 21
+/// arms.
+const COVERED: &str = r#"
+name = "Saltmarsh Weavers' Union: cover and group size"
+seed = 4242
+replications = 10
+cycles = 4
+[portfolio]
+borrowers = 126
+villages = 3
+[loan]
+principal = 80.0
+[borrowers]
+income = 1.5
+[[shock]]
+name = "sales"
+scope = "member"
+probability = { curve = "table", values = { "1" = 0.04, "2" = 0.03, "3" = 0.024, "4" = 0.021, "5" = 0.02, "6" = 0.021, "7" = 0.024 } }
+severity = 1.0
+[policy]
+group_size = 3
+[sweep]
+group_size = [1, 2, 3, 4, 5, 6, 7]
+peer_cover = [0, 0.5, 1]
+"#;
+
+#[test]
+fn a_long_table_shows_the_leaders_and_the_sentences_name_peer_cover() {
+    let tmp = tempfile::tempdir().unwrap();
+    let file = tmp.path().join("covered.toml");
+    std::fs::write(&file, COVERED).unwrap();
+    let out = tmp.path().join("out");
+    let o = loancycle(&["run", file.to_str().unwrap(), "--out", out.to_str().unwrap()]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let stdout = String::from_utf8_lossy(&o.stdout);
+    let summary = read_csv(&out.join("summary.csv"));
+    assert_eq!(summary.len(), 21);
+    // The ten arms with the highest group repayment, best first (earlier arm on ties), and only them.
+    let mut ranked: Vec<&BTreeMap<String, String>> = summary.iter().collect();
+    ranked.sort_by(|a, b| num(b, "group_repayment_rate").total_cmp(&num(a, "group_repayment_rate")));
+    let leaders: Vec<&str> = ranked[..10].iter().map(|r| r["arm"].as_str()).collect();
+    let listed: Vec<&str> = stdout
+        .lines()
+        .filter_map(|l| l.split_whitespace().next())
+        .filter(|w| summary.iter().any(|r| r["arm"] == *w))
+        .take(10)
+        .collect();
+    assert_eq!(listed, leaders);
+    assert!(
+        stdout.contains("the 10 arms with the highest group repayment of 21"),
+        "{stdout}"
+    );
+    assert!(stdout.contains("summary.csv"));
+    // Without cover the closed form (1 - phi(k))^k is best at k = 1: k ln(1 - phi(k)) is -0.0408,
+    // -0.0609, -0.0729, ... by hand. With cover c, a group of k with income 1.5 repays while
+    // hits <= c 0.5 (k - hits): by the binomial law (by hand) the best exact size is 5 at c = 0.5
+    // (0.9961) and 6 at c = 1 (0.9998), so peer cover is what moves it.
+    let table = read_csv(&out.join("group_size.csv"));
+    let best: Vec<(&str, &str, &str)> = table
+        .iter()
+        .map(|r| {
+            (
+                r["context"].as_str(),
+                r["best_closed_form"].as_str(),
+                r["best_exact"].as_str(),
+            )
+        })
+        .collect();
+    assert_eq!(
+        best,
+        [
+            ("peer_cover=0", "1", "1"),
+            ("peer_cover=0.5", "1", "5"),
+            ("peer_cover=1", "1", "6")
+        ]
+    );
+    assert!(
+        stdout.contains("at peer_cover=0.5, peer cover moves the best size from 1 (closed form) to 5 (exact)"),
+        "{stdout}"
+    );
+    assert!(stdout.contains("at peer_cover=1, peer cover moves the best size from 1 (closed form) to 6 (exact)"));
 }

@@ -186,12 +186,7 @@ pub fn contrasts(arms: &[ComparedArm], swept: &[Vec<(String, String)>], key: &st
             };
             format!("`{key}` is not a swept key of this run; the swept keys are {listed}")
         })?;
-    let value_of = |i: usize| {
-        swept[i]
-            .iter()
-            .find(|(p, _)| p == key)
-            .map_or("", |(_, v)| v.as_str())
-    };
+    let value_of = |i: usize| swept[i].iter().find(|(p, _)| p == key).map_or("", |(_, v)| v.as_str());
     let context_of = |i: usize| {
         swept[i]
             .iter()

@@ -43,13 +43,41 @@ pub struct QuantileFigure {
 /// single-cycle loss. (The per-cycle quantiles need cycle records, which replications.csv does not
 /// hold.)
 pub const QUANTILE_FIGURES: [QuantileFigure; 7] = [
-    QuantileFigure { name: "loss_p50", q: 0.5, value: ReplicationTally::loss_rate },
-    QuantileFigure { name: "loss_p95", q: 0.95, value: ReplicationTally::loss_rate },
-    QuantileFigure { name: "loss_p99", q: 0.99, value: ReplicationTally::loss_rate },
-    QuantileFigure { name: "loss_p999", q: 0.999, value: ReplicationTally::loss_rate },
-    QuantileFigure { name: "worst_cycle_loss_p50", q: 0.5, value: worst_cycle_loss },
-    QuantileFigure { name: "worst_cycle_loss_p95", q: 0.95, value: worst_cycle_loss },
-    QuantileFigure { name: "worst_cycle_loss_p99", q: 0.99, value: worst_cycle_loss },
+    QuantileFigure {
+        name: "loss_p50",
+        q: 0.5,
+        value: ReplicationTally::loss_rate,
+    },
+    QuantileFigure {
+        name: "loss_p95",
+        q: 0.95,
+        value: ReplicationTally::loss_rate,
+    },
+    QuantileFigure {
+        name: "loss_p99",
+        q: 0.99,
+        value: ReplicationTally::loss_rate,
+    },
+    QuantileFigure {
+        name: "loss_p999",
+        q: 0.999,
+        value: ReplicationTally::loss_rate,
+    },
+    QuantileFigure {
+        name: "worst_cycle_loss_p50",
+        q: 0.5,
+        value: worst_cycle_loss,
+    },
+    QuantileFigure {
+        name: "worst_cycle_loss_p95",
+        q: 0.95,
+        value: worst_cycle_loss,
+    },
+    QuantileFigure {
+        name: "worst_cycle_loss_p99",
+        q: 0.99,
+        value: worst_cycle_loss,
+    },
 ];
 
 /// What a constraint bounds: a pooled rate (normal bound on the ratio estimator) or a quantile
@@ -92,10 +120,12 @@ impl ConstrainedFigure {
                 let values: Vec<f64> = tally.replications.iter().filter_map(f.value).collect();
                 let values = estimate::sorted(&values);
                 match bound {
-                    Bound::AtMost => estimate::quantile_upper_rank(values.len(), f.q, alpha)
-                        .is_some_and(|u| values[u - 1] <= limit),
-                    Bound::AtLeast => estimate::quantile_lower_rank(values.len(), f.q, alpha)
-                        .is_some_and(|l| values[l - 1] >= limit),
+                    Bound::AtMost => {
+                        estimate::quantile_upper_rank(values.len(), f.q, alpha).is_some_and(|u| values[u - 1] <= limit)
+                    }
+                    Bound::AtLeast => {
+                        estimate::quantile_lower_rank(values.len(), f.q, alpha).is_some_and(|l| values[l - 1] >= limit)
+                    }
                 }
             }
         }
@@ -297,6 +327,30 @@ pub fn select(
     selection
 }
 
+/// Most arms a terminal table lists in full; above it, only the leaders are shown.
+pub const FULL_TABLE_ARMS: usize = 20;
+/// How many leaders a long table shows.
+pub const LEADERS_SHOWN: usize = 10;
+
+/// The indices of the arms a terminal table shows: all of them up to [`FULL_TABLE_ARMS`], in arm
+/// order; beyond it the [`LEADERS_SHOWN`] highest values (the earlier arm on ties, arms without a
+/// value last), best first.
+pub fn arms_shown(values: &[Option<f64>]) -> Vec<usize> {
+    if values.len() <= FULL_TABLE_ARMS {
+        return (0..values.len()).collect();
+    }
+    let mut order: Vec<usize> = (0..values.len()).collect();
+    // A stable sort keeps arm order among equal values.
+    order.sort_by(|&a, &b| match (values[a], values[b]) {
+        (Some(x), Some(y)) => y.total_cmp(&x),
+        (Some(_), None) => std::cmp::Ordering::Less,
+        (None, Some(_)) => std::cmp::Ordering::Greater,
+        (None, None) => std::cmp::Ordering::Equal,
+    });
+    order.truncate(LEADERS_SHOWN);
+    order
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -324,6 +378,16 @@ mod tests {
                 tally,
             })
             .collect()
+    }
+
+    #[test]
+    fn long_tables_show_the_leaders_best_first() {
+        let few: Vec<Option<f64>> = vec![Some(0.1), Some(0.9), None];
+        assert_eq!(arms_shown(&few), [0, 1, 2]);
+        let mut many: Vec<Option<f64>> = (0..25).map(|i| Some(f64::from(i % 7))).collect();
+        many[3] = None;
+        // Values 6 at arms 6, 13, 20; 5 at 5, 12, 19; 4 at 4, 11, 18; then 3 at 10 (arm 3 has none).
+        assert_eq!(arms_shown(&many), [6, 13, 20, 5, 12, 19, 4, 11, 18, 10]);
     }
 
     #[test]
