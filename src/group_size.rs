@@ -96,12 +96,14 @@ pub fn table(
             format!("at {context}, ")
         };
         let (in_class, out_of_class) = departures(arm);
+        let sizes: Vec<u32> = members.iter().map(|&i| size(i)).collect();
         if let (Some(c), Some(e)) = (best_closed_form, best_exact)
             && c != e
         {
+            let factors = attribute(arm, &sizes, &in_class, c, &|b| b == e).unwrap_or_else(|| in_class.clone());
             sentences.push(format!(
                 "{at}{} the best size from {c} (closed form) to {e} (exact)",
-                moves(&in_class)
+                moves(&factors)
             ));
         }
         if let (Some(from), Some(s)) = (best_exact.or(best_closed_form), best_simulated)
@@ -111,7 +113,10 @@ pub fn table(
             let (what, factors) = if best_exact.is_some() {
                 ("exact value", vec!["the finite pool and the simulation's noise"])
             } else {
-                ("closed form", [in_class, out_of_class].concat())
+                let explained = |b: u32| b == s || not_worse.contains(&b);
+                let factors = attribute(arm, &sizes, &in_class, from, &explained)
+                    .unwrap_or_else(|| [in_class.clone(), out_of_class].concat());
+                ("closed form", factors)
             };
             sentences.push(format!(
                 "{at}{} the best size from {from} ({what}) to {s} (simulated)",
@@ -182,6 +187,71 @@ fn departures(arm: &crate::scenario::Arm) -> (Vec<&'static str>, Vec<&'static st
         out.push("persistent groups");
     }
     (in_class, out)
+}
+
+/// Which of peer cover and correlation alone explains a move of the best size away from `from`:
+/// the exact one-factor value of the curve's shock alone, with the arm's mean income, risk and
+/// severity, is computed over `sizes` with only peer cover added to the closed form's assumptions,
+/// then only correlation, then both; the first whose best size is not `from` and passes `explained`
+/// names the factors. `None` when none does (or the arm has neither).
+fn attribute(
+    arm: &crate::scenario::Arm,
+    sizes: &[u32],
+    in_class: &[&'static str],
+    from: u32,
+    explained: &dyn Fn(u32) -> bool,
+) -> Option<Vec<&'static str>> {
+    use crate::analytic::one_factor::{OneFactorModel, group_repayment};
+    let shock = arm
+        .shocks()
+        .iter()
+        .find(|s| s.scope() == ShockScope::Member && matches!(s.probability(), ShockProbability::Curve(_)))?;
+    let best_with = |cover: bool, correlation: bool| -> Option<u32> {
+        let model = OneFactorModel {
+            shock_name: shock.name().to_string(),
+            amount_due: arm.amount_due(),
+            income_ratio: arm.income().mean(),
+            risk: arm.risk().mean(),
+            severity: shock.severity().mean(),
+            probability: shock.probability().clone(),
+            village_correlation: if correlation { shock.village_correlation() } else { 0.0 },
+            portfolio_correlation: if correlation {
+                shock.portfolio_correlation()
+            } else {
+                0.0
+            },
+        };
+        let peer_cover = if cover { arm.policy().peer_cover() } else { 0.0 };
+        let liability = arm.policy().liability();
+        sizes
+            .iter()
+            .filter_map(|&k| {
+                group_repayment(&model, k, liability, peer_cover)
+                    .ok()
+                    .map(|r| (k, r.group_repayment))
+            })
+            .fold(None, |acc: Option<(u32, f64)>, (k, v)| match acc {
+                Some((_, b)) if b >= v => acc,
+                _ => Some((k, v)),
+            })
+            .map(|(k, _)| k)
+    };
+    let cover = in_class.contains(&"peer cover");
+    let correlation = in_class.contains(&"correlation");
+    let trials: [(bool, bool, &[&'static str]); 3] = [
+        (cover, false, &["peer cover"]),
+        (false, correlation, &["correlation"]),
+        (
+            cover && correlation,
+            cover && correlation,
+            &["peer cover", "correlation"],
+        ),
+    ];
+    trials
+        .into_iter()
+        .filter(|(a, b, _)| *a || *b)
+        .find(|(a, b, _)| best_with(*a, *b).is_some_and(|k| k != from && explained(k)))
+        .map(|(_, _, names)| names.to_vec())
 }
 
 /// "correlation moves", "peer cover and correlation move", "a, b and c move"; with no factor
