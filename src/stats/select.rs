@@ -263,6 +263,29 @@ pub fn select(
         replications_to_separate: None,
         notes: Vec::new(),
     };
+    // A quantile bound needs enough replications at the Bonferroni level; say so rather than let
+    // "no arm meets" hide the reason.
+    for (text, c) in constraints {
+        if let ConstrainedFigure::Quantile(f) = c.figure {
+            let short: Vec<&str> = arms
+                .iter()
+                .filter(|a| {
+                    let n = a.tally.replications.iter().filter_map(f.value).count();
+                    match c.bound {
+                        Bound::AtMost => estimate::quantile_upper_rank(n, f.q, alpha).is_none(),
+                        Bound::AtLeast => estimate::quantile_lower_rank(n, f.q, alpha).is_none(),
+                    }
+                })
+                .map(|a| a.label)
+                .collect();
+            if !short.is_empty() {
+                selection.notes.push(format!(
+                    "{text}: too few replications for a one-sided order-statistic bound at level {alpha:.4} in {}; more replications would allow one",
+                    short.join(", ")
+                ));
+            }
+        }
+    }
     let Some(best) = best else {
         selection.notes.push(if feasible.is_empty() && !constraints.is_empty() {
             format!(
@@ -422,6 +445,27 @@ mod tests {
         assert_eq!(s.best.as_deref(), Some("mild"));
         assert_eq!(s.not_worse, ["mild"]);
         assert!(s.notes.is_empty());
+    }
+
+    #[test]
+    fn a_quantile_constraint_without_enough_replications_says_why() {
+        // Four replications cannot bound a 95% quantile: 0.95^4 = 0.81, far above any error level.
+        let a = arm(&[10.0, 12.0, 11.0, 9.0], &[90, 91, 92, 90]);
+        let list = [("a", a.clone()), ("b", a)];
+        let c = parse_constraint("loss_p95<=0.5").unwrap();
+        let s = select(
+            &compared(&list),
+            compare::GROUP_REPAYMENT,
+            Direction::Maximize,
+            &[("loss_p95<=0.5".into(), c)],
+        );
+        assert!(s.feasible.is_empty());
+        assert!(
+            s.notes[0].starts_with("loss_p95<=0.5: too few replications"),
+            "{:?}",
+            s.notes
+        );
+        assert_eq!(s.notes[1], "no arm meets loss_p95<=0.5 with 95% confidence");
     }
 
     #[test]
