@@ -44,3 +44,10 @@ for j in [0, 5, 10, 20, 33]:
     f = lambda m: stats.binom.cdf(j, 100, cond(m, 0.05, 0.15)) * stats.norm.pdf(m)
     v, err = integrate.quad(f, -40, 40, epsabs=1e-14, epsrel=1e-13, limit=400)
     print(f"({j}, {float(v)!r}),  // quad error estimate {err:.1e}")
+
+print("\n# order-statistic interval ranks for the q-quantile of n values: (n, q, binom.ppf(0.025, n, q), binom.ppf(0.975, n, q) + 1)")
+for n, q in [(40, 0.5), (40, 0.95), (200, 0.95), (200, 0.99), (400, 0.99), (1000, 0.999), (20000, 0.999), (5000000, 0.99)]:
+    print(f"({n}, {q!r}, {int(stats.binom.ppf(0.025, n, q))}, {int(stats.binom.ppf(0.975, n, q)) + 1}),")
+print("\n# one-sided ranks: (n, q, alpha, binom.ppf(1 - alpha, n, q) + 1, binom.ppf(alpha, n, q))")
+for n, q, a in [(200, 0.95, 0.05 / 6), (1000, 0.99, 0.01), (60, 0.5, 0.05)]:
+    print(f"({n}, {q!r}, {a!r}, {int(stats.binom.ppf(1 - a, n, q)) + 1}, {int(stats.binom.ppf(a, n, q))}),")

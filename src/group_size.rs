@@ -95,24 +95,32 @@ pub fn table(
         } else {
             format!("at {context}, ")
         };
+        let (in_class, out_of_class) = departures(arm);
+        let sizes: Vec<u32> = members.iter().map(|&i| size(i)).collect();
         if let (Some(c), Some(e)) = (best_closed_form, best_exact)
             && c != e
         {
+            let factors = attribute(arm, &sizes, &in_class, c, &|b| b == e).unwrap_or_else(|| in_class.clone());
             sentences.push(format!(
-                "{at}correlation and peer cover move the best size from {c} (closed form) to {e} (exact)"
+                "{at}{} the best size from {c} (closed form) to {e} (exact)",
+                moves(&factors)
             ));
         }
         if let (Some(from), Some(s)) = (best_exact.or(best_closed_form), best_simulated)
             && from != s
             && !not_worse.contains(&from)
         {
-            let what = if best_exact.is_some() {
-                "exact value"
+            let (what, factors) = if best_exact.is_some() {
+                ("exact value", vec!["the finite pool and the simulation's noise"])
             } else {
-                "closed form"
+                let explained = |b: u32| b == s || not_worse.contains(&b);
+                let factors = attribute(arm, &sizes, &in_class, from, &explained)
+                    .unwrap_or_else(|| [in_class.clone(), out_of_class].concat());
+                ("closed form", factors)
             };
             sentences.push(format!(
-                "{at}the rest of the model moves the best size from {from} ({what}) to {s} (simulated)"
+                "{at}{} the best size from {from} ({what}) to {s} (simulated)",
+                moves(&factors)
             ));
         }
         if let (Some(s), Some(l)) = (best_simulated, best_by_loss)
@@ -133,4 +141,138 @@ pub fn table(
         });
     }
     Some(rows)
+}
+
+/// What separates an arm from the closed form's assumptions (independent, identical members, one
+/// shock whose hit is a default, no cover), in two parts: what the exact one-factor value still
+/// covers (correlation, peer cover) and what only the simulation does. These are the factors that
+/// can move the best size, named in the order they usually matter most.
+fn departures(arm: &crate::scenario::Arm) -> (Vec<&'static str>, Vec<&'static str>) {
+    use crate::scenario::{Exclusion, Formation, Liability, Matching};
+    let curve_shock = arm
+        .shocks()
+        .iter()
+        .find(|s| s.scope() == ShockScope::Member && matches!(s.probability(), ShockProbability::Curve(_)));
+    let mut in_class = Vec::new();
+    let policy = arm.policy();
+    if policy.liability() == Liability::Joint && policy.peer_cover() > 0.0 {
+        in_class.push("peer cover");
+    }
+    if curve_shock.is_some_and(|s| s.village_correlation() > 0.0 || s.portfolio_correlation() > 0.0) {
+        in_class.push("correlation");
+    }
+    let mut out = Vec::new();
+    if arm.shocks().len() > 1 {
+        out.push("the other shocks");
+    }
+    if arm.risk().fixed_value().is_none() {
+        out.push("the spread of risk");
+    }
+    if arm.income().fixed_value().is_none() {
+        out.push("random incomes");
+    }
+    if curve_shock.is_some_and(|s| s.severity().fixed_value().is_none()) {
+        out.push("random severities");
+    }
+    if policy.exclusion_cycles() != Exclusion::Cycles(0) {
+        out.push("exclusion");
+    }
+    if arm.dropout() > 0.0 {
+        out.push("dropout");
+    }
+    if policy.matching() == Matching::Assortative {
+        out.push("assortative matching");
+    }
+    if policy.formation() == Formation::Persistent {
+        out.push("persistent groups");
+    }
+    (in_class, out)
+}
+
+/// Which of peer cover and correlation alone explains a move of the best size away from `from`:
+/// the exact one-factor value of the curve's shock alone, with the arm's mean income, risk and
+/// severity, is computed over `sizes` with only peer cover added to the closed form's assumptions,
+/// then only correlation, then both; the first whose best size is not `from` and passes `explained`
+/// names the factors. `None` when none does (or the arm has neither).
+fn attribute(
+    arm: &crate::scenario::Arm,
+    sizes: &[u32],
+    in_class: &[&'static str],
+    from: u32,
+    explained: &dyn Fn(u32) -> bool,
+) -> Option<Vec<&'static str>> {
+    use crate::analytic::one_factor::{OneFactorModel, group_repayment};
+    let shock = arm
+        .shocks()
+        .iter()
+        .find(|s| s.scope() == ShockScope::Member && matches!(s.probability(), ShockProbability::Curve(_)))?;
+    let best_with = |cover: bool, correlation: bool| -> Option<u32> {
+        let model = OneFactorModel {
+            shock_name: shock.name().to_string(),
+            amount_due: arm.amount_due(),
+            income_ratio: arm.income().mean(),
+            risk: arm.risk().mean(),
+            severity: shock.severity().mean(),
+            probability: shock.probability().clone(),
+            village_correlation: if correlation { shock.village_correlation() } else { 0.0 },
+            portfolio_correlation: if correlation {
+                shock.portfolio_correlation()
+            } else {
+                0.0
+            },
+        };
+        let peer_cover = if cover { arm.policy().peer_cover() } else { 0.0 };
+        let liability = arm.policy().liability();
+        sizes
+            .iter()
+            .filter_map(|&k| {
+                group_repayment(&model, k, liability, peer_cover)
+                    .ok()
+                    .map(|r| (k, r.group_repayment))
+            })
+            .fold(None, |acc: Option<(u32, f64)>, (k, v)| match acc {
+                Some((_, b)) if b >= v => acc,
+                _ => Some((k, v)),
+            })
+            .map(|(k, _)| k)
+    };
+    let cover = in_class.contains(&"peer cover");
+    let correlation = in_class.contains(&"correlation");
+    let trials: [(bool, bool, &[&'static str]); 3] = [
+        (cover, false, &["peer cover"]),
+        (false, correlation, &["correlation"]),
+        (
+            cover && correlation,
+            cover && correlation,
+            &["peer cover", "correlation"],
+        ),
+    ];
+    trials
+        .into_iter()
+        .filter(|(a, b, _)| *a || *b)
+        .find(|(a, b, _)| best_with(*a, *b).is_some_and(|k| k != from && explained(k)))
+        .map(|(_, _, names)| names.to_vec())
+}
+
+/// "correlation moves", "peer cover and correlation move", "a, b and c move"; with no factor
+/// named, "the rest of the model moves".
+fn moves(factors: &[&str]) -> String {
+    match factors {
+        [] => "the rest of the model moves".to_string(),
+        [one] => format!("{one} moves"),
+        [rest @ .., last] => format!("{} and {last} move", rest.join(", ")),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn factors_are_named_in_plain_english() {
+        assert_eq!(moves(&["correlation"]), "correlation moves");
+        assert_eq!(moves(&["peer cover", "correlation"]), "peer cover and correlation move");
+        assert_eq!(moves(&["a", "b", "c"]), "a, b and c move");
+        assert_eq!(moves(&[]), "the rest of the model moves");
+    }
 }

@@ -66,6 +66,10 @@ enum Command {
         /// Rewrite DIR/differences.csv against this arm: a label or a number from 1, as `check` lists them.
         #[arg(long, value_name = "ARM")]
         baseline: Option<String>,
+        /// Write DIR/contrasts.csv: every pair of arms that differ only in this swept key, paired by
+        /// replication, at each level of the other keys.
+        #[arg(long, value_name = "KEY")]
+        along: Option<String>,
         /// Choose the arm with the highest FIGURE among those meeting every --subject-to.
         #[arg(long, value_name = "FIGURE", conflicts_with = "minimize")]
         maximize: Option<String>,
@@ -100,8 +104,8 @@ enum Command {
         #[arg(long, allow_negative_numbers = true)]
         p: Option<String>,
         /// Value of a constant curve.
-        #[arg(long)]
-        value: Option<f64>,
+        #[arg(long, allow_negative_numbers = true)]
+        value: Option<String>,
         /// Values of a table curve, e.g. `2=0.08,3=0.06,4=0.05`.
         #[arg(long)]
         values: Option<String>,
@@ -111,6 +115,10 @@ enum Command {
         /// Integer group sizes to tabulate, both ends included.
         #[arg(long, default_value = "2..12")]
         range: String,
+        /// Mean risk multiplier u: every phi(k) becomes min(1, u phi(k)), as `run` applies an arm's
+        /// mean risk in group_size.csv's best_closed_form.
+        #[arg(long, value_name = "U", default_value_t = 1.0, allow_negative_numbers = true)]
+        risk: f64,
         /// Print JSON instead of a table.
         #[arg(long, conflicts_with = "csv")]
         json: bool,
@@ -258,7 +266,7 @@ fn load_with(file: Option<&PathBuf>, overrides: &Overrides) -> Result<(Scenario,
 fn optimum_request(
     curve: &str,
     p: Option<&str>,
-    value: Option<f64>,
+    value: Option<&str>,
     values: Option<&str>,
     steps: u32,
     range: &str,
@@ -267,19 +275,27 @@ fn optimum_request(
     let (parameter, band) = match p {
         Some(text) if text.contains("..") => {
             let (from, to) = optimum::parse_band(text).map_err(|e| format!("--p: {e}"))?;
-            (Some(from), Some((from, to, steps as usize - 1)))
+            // The curve is checked at the band's start, so the band's ends get the curve's bounds.
+            let start: &str = text.split("..").next().unwrap_or(text);
+            (Some(("--p", start)), Some((from, to, steps as usize - 1)))
         }
-        Some(text) => {
-            let x = text
-                .trim()
-                .parse::<f64>()
-                .map_err(|_| format!("--p = \"{text}\" is not allowed: a number, or a band such as 0.5..1"))?;
-            (Some(x), None)
-        }
-        None => (value, None),
+        Some(text) => (Some(("--p", text)), None),
+        None => (value.map(|v| ("--value", v)), None),
     };
-    let curve = optimum::curve_from_parts(curve, parameter, values).map_err(|e| format!("--curve: {e}"))?;
+    let curve = optimum::curve_from_parts(curve, parameter, values).map_err(|e| e.to_string())?;
     Ok(optimum::OptimumRequest { curve, band, range })
+}
+
+/// A refusal of `optimum`'s solver, prefixed with the flag that gave the value.
+fn optimum_flag_error(e: &analytic::AnalyticError) -> String {
+    let flag = match e {
+        analytic::AnalyticError::BadInput { name, .. } if name == "risk" => "--risk",
+        analytic::AnalyticError::BadInput { name, .. } if name.starts_with("range") => "--range",
+        analytic::AnalyticError::BadInput { name, .. } if name == "steps" => "--steps",
+        analytic::AnalyticError::BadInput { name, .. } if name.starts_with("band") => "--p",
+        _ => "--curve",
+    };
+    format!("{flag}: {e}")
 }
 
 /// Writes the board report of the run in `dir`.
@@ -303,6 +319,7 @@ fn board_report(dir: &std::path::Path, quiet: bool) -> Result<(), Failure> {
 fn compare_command(
     dir: &std::path::Path,
     baseline: Option<&str>,
+    along: Option<&str>,
     objective: Option<(String, loancycle::stats::compare::Direction)>,
     subject_to: &[String],
     json: bool,
@@ -334,9 +351,9 @@ fn compare_command(
     };
     let stored = loancycle::stored::StoredRun::read(dir).map_err(|e| Failure::BadInput(e.to_string()))?;
     if let Some((metric, direction, constraints)) = selection_request {
-        if baseline.is_some() {
+        if baseline.is_some() || along.is_some() {
             return Err(Failure::BadInput(
-                "--baseline writes differences.csv; ask for it apart from --maximize/--minimize".to_string(),
+                "--baseline and --along write files; ask for them apart from --maximize/--minimize".to_string(),
             ));
         }
         let selection = select::select(&stored.compared(), metric, direction, &constraints);
@@ -350,17 +367,33 @@ fn compare_command(
         );
         return Ok(());
     }
-    let Some(given) = baseline else {
+    if baseline.is_none() && along.is_none() {
         return Err(Failure::BadInput(
-            "compare: nothing asked; give --baseline ARM, or --maximize/--minimize FIGURE".to_string(),
+            "compare: nothing asked; give --baseline ARM, --along KEY, or --maximize/--minimize FIGURE".to_string(),
         ));
-    };
-    let index =
-        compare::resolve_arm(&stored.labels(), given).map_err(|e| Failure::BadInput(format!("--baseline: {e}")))?;
-    let rows = compare::differences(&stored.compared(), index);
-    let path = output::replace_file(dir, "differences.csv", &output::tables::difference_rows_csv(&rows))
-        .map_err(|e| Failure::Running(e.to_string()))?;
-    println!("wrote {}", path.display());
+    }
+    // Both requests are checked before either file is written.
+    let differences = baseline
+        .map(|given| {
+            compare::resolve_arm(&stored.labels(), given)
+                .map(|index| compare::differences(&stored.compared(), index))
+                .map_err(|e| Failure::BadInput(format!("--baseline: {e}")))
+        })
+        .transpose()?;
+    let contrasts = along
+        .map(|key| {
+            let swept: Vec<Vec<(String, String)>> = stored.arms.iter().map(|a| a.swept.clone()).collect();
+            compare::contrasts(&stored.compared(), &swept, key).map_err(|e| Failure::BadInput(format!("--along: {e}")))
+        })
+        .transpose()?;
+    let files = [
+        differences.map(|rows| ("differences.csv", output::tables::difference_rows_csv(&rows))),
+        contrasts.map(|rows| ("contrasts.csv", output::tables::contrasts_csv(&rows))),
+    ];
+    for (name, bytes) in files.into_iter().flatten() {
+        let path = output::replace_file(dir, name, &bytes).map_err(|e| Failure::Running(e.to_string()))?;
+        println!("wrote {}", path.display());
+    }
     Ok(())
 }
 
@@ -385,11 +418,12 @@ fn execute(command: Command) -> Result<(), Failure> {
             values,
             steps,
             range,
+            risk,
             json,
             csv,
         } => {
-            let report = optimum_request(&curve, p.as_deref(), value, values.as_deref(), steps, &range)
-                .and_then(|req| optimum::solve(&req).map_err(|e| e.to_string()))
+            let report = optimum_request(&curve, p.as_deref(), value.as_deref(), values.as_deref(), steps, &range)
+                .and_then(|req| optimum::solve_with_risk(&req, risk).map_err(|e| optimum_flag_error(&e)))
                 .map_err(Failure::BadInput)?;
             print!(
                 "{}",
@@ -420,6 +454,7 @@ fn execute(command: Command) -> Result<(), Failure> {
         Command::Compare {
             dir,
             baseline,
+            along,
             maximize,
             minimize,
             subject_to,
@@ -430,7 +465,14 @@ fn execute(command: Command) -> Result<(), Failure> {
                 (None, Some(f)) => Some((f, loancycle::stats::compare::Direction::Minimize)),
                 (None, None) => None,
             };
-            compare_command(&dir, baseline.as_deref(), objective, &subject_to, json)
+            compare_command(
+                &dir,
+                baseline.as_deref(),
+                along.as_deref(),
+                objective,
+                &subject_to,
+                json,
+            )
         }
         Command::DemoScenario => {
             print!("{}", demo::BASELINE);

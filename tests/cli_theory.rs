@@ -374,3 +374,126 @@ fn analyze_names_the_input_that_puts_the_portfolio_law_out_of_class() {
         "{text}"
     );
 }
+
+/// An invented lender, "Copperhill Savings Circle": a power curve with p = 0.6 for the sales shock
+/// and borrowers whose risk multiplier averages 1.8, swept over group sizes and peer cover.
+const RISKY: &str = r#"
+name = "Copperhill Savings Circle: risk-scaled optimum"
+seed = 77
+replications = 4
+cycles = 3
+[portfolio]
+borrowers = 60
+villages = 2
+[loan]
+principal = 50.0
+[borrowers]
+income = 1.2
+risk = { kind = "gamma", mean = 1.8, cv = 0.3 }
+[[shock]]
+name = "sales"
+scope = "member"
+probability = { curve = "power", p = 0.6 }
+severity = 1.0
+[policy]
+group_size = 3
+[sweep]
+group_size = [2, 3, 4]
+peer_cover = [0, 0.5]
+"#;
+
+#[test]
+fn optimum_with_the_mean_risk_reproduces_the_group_size_table() {
+    let tmp = tempfile::tempdir().unwrap();
+    let file = write(&tmp, "risky.toml", RISKY);
+    let out = tmp.path().join("out");
+    let o = loancycle(&["run", &file, "--out", out.to_str().unwrap(), "--quiet"]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let table = std::fs::read_to_string(out.join("group_size.csv")).unwrap();
+    let mut reader = csv::Reader::from_reader(table.as_bytes());
+    let column = reader
+        .headers()
+        .unwrap()
+        .iter()
+        .position(|h| h == "best_closed_form")
+        .unwrap();
+    let from_run: Vec<String> = reader.records().map(|r| r.unwrap()[column].to_string()).collect();
+    assert_eq!(from_run.len(), 2);
+    // The best k of (1 - min(1, u k^-0.6))^k with u = 1.8, by direct arithmetic over k = 1..1000.
+    let u = 1.8;
+    let log_repayment = |k: f64| k * (1.0 - (u * k.powf(-0.6)).min(1.0)).ln();
+    let by_hand = (1..=1000u32)
+        .map(f64::from)
+        .fold((1.0, f64::NEG_INFINITY), |best, k| {
+            if log_repayment(k) > best.1 {
+                (k, log_repayment(k))
+            } else {
+                best
+            }
+        })
+        .0;
+    let v = json(&loancycle(&[
+        "optimum", "--curve", "power", "--p", "0.6", "--risk", "1.8", "--json",
+    ]));
+    assert_eq!(v["risk_multiplier"], 1.8);
+    assert_eq!(v["best_integer_overall"].as_f64(), Some(by_hand));
+    for cell in &from_run {
+        assert_eq!(cell.parse::<f64>().unwrap(), by_hand);
+    }
+    // Without the risk, the plain curve's answer differs: the multiplier matters here.
+    let plain = json(&loancycle(&["optimum", "--curve", "power", "--p", "0.6", "--json"]));
+    assert_ne!(plain["best_integer_overall"].as_f64(), Some(by_hand));
+    // A bad multiplier is refused naming its flag.
+    let o = loancycle(&["optimum", "--curve", "power", "--p", "0.6", "--risk", "-1"]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("--risk"));
+}
+
+#[test]
+fn a_bad_command_line_curve_gets_the_scenario_files_bounds_and_words() {
+    let tmp = tempfile::tempdir().unwrap();
+    for (curve_in_file, flags, flag) in [
+        (
+            r#"{ curve = "power", p = -2 }"#,
+            &["--curve", "power", "--p", "-2"][..],
+            "--p",
+        ),
+        (
+            r#"{ curve = "constant", value = 1.5 }"#,
+            &["--curve", "constant", "--value", "1.5"][..],
+            "--value",
+        ),
+        (
+            r#"{ curve = "table", values = { "2" = 0.1, "3" = 1.5 } }"#,
+            &["--curve", "table", "--values", "2=0.1,3=1.5"][..],
+            "--values",
+        ),
+        (
+            r#"{ curve = "table", values = { "0" = 0.1 } }"#,
+            &["--curve", "table", "--values", "0=0.1"][..],
+            "--values",
+        ),
+    ] {
+        let text = RISKY.replace(r#"{ curve = "power", p = 0.6 }"#, curve_in_file);
+        let file = write(&tmp, "bad.toml", &text);
+        let from_file = loancycle(&["check", &file]);
+        assert_eq!(from_file.status.code(), Some(2));
+        let file_err = String::from_utf8_lossy(&from_file.stderr).trim().to_string();
+        let mut args = vec!["optimum"];
+        args.extend_from_slice(flags);
+        let from_flags = loancycle(&args);
+        assert_eq!(from_flags.status.code(), Some(2), "{flags:?}");
+        let flag_err = String::from_utf8_lossy(&from_flags.stderr).trim().to_string();
+        assert_eq!(flag_err.lines().count(), 1, "{flag_err}");
+        // The same value and words after the location; the flag named instead of the line.
+        let tail = |e: &str| {
+            e.split(": ")
+                .skip_while(|p| !p.contains(" is not allowed"))
+                .collect::<Vec<_>>()
+                .join(": ")
+        };
+        assert!(!tail(&file_err).is_empty(), "{file_err}");
+        assert_eq!(tail(&flag_err), tail(&file_err), "{flag_err} / {file_err}");
+        assert!(flag_err.contains(&format!("option {flag}: ")), "{flag_err}");
+    }
+}

@@ -9,7 +9,7 @@
 use super::{AnalyticError, bad};
 use crate::curve::{CurveError, GroupSizeCurve};
 use serde::Serialize;
-use std::collections::{BTreeMap, BTreeSet};
+use std::collections::BTreeSet;
 
 /// Right end of the scanned range of real group sizes.
 pub const SCAN_END: f64 = 1e6;
@@ -393,6 +393,11 @@ pub struct OptimumReport {
     pub by_integer: Vec<IntegerRow>,
     /// The band sweep, when one was requested.
     pub band: Option<BandReport>,
+    /// The mean risk multiplier u applied to every phi (capped at 1); 1 for the plain curve.
+    pub risk_multiplier: f64,
+    /// The best integer size over every size from the curve's first up to [`LARGEST_SIZE_SCANNED`]
+    /// (a table's keys), whatever the range: what group_size.csv reports as `best_closed_form`.
+    pub best_integer_overall: Option<u32>,
 }
 
 fn from_curve_error(e: CurveError) -> AnalyticError {
@@ -412,10 +417,10 @@ fn validate_curve(curve: &GroupSizeCurve) -> Result<(), AnalyticError> {
     .map_err(from_curve_error)
 }
 
-fn integer_rows(curve: &GroupSizeCurve, range: (u32, u32)) -> Vec<IntegerRow> {
+fn integer_rows(curve: &GroupSizeCurve, range: (u32, u32), scale: f64) -> Vec<IntegerRow> {
     (range.0..=range.1)
         .map(|k| {
-            let phi = curve.at(k);
+            let phi = curve.at(k).map(|q| if scale == 1.0 { q } else { (scale * q).min(1.0) });
             IntegerRow {
                 group_size: k,
                 phi,
@@ -449,8 +454,8 @@ fn with_exponent(curve: &GroupSizeCurve, p: f64) -> GroupSizeCurve {
 
 /// Golden-section search for an extreme of x*(p) on [lo, hi]; `sign` = 1 finds the minimum, -1 the
 /// maximum. Returns the best point seen, which never loses to the grid point it started from.
-fn refine_extreme(curve: &GroupSizeCurve, lo: f64, hi: f64, sign: f64) -> Option<BandExtreme> {
-    let x_star = |p: f64| scan(&with_exponent(curve, p), 1.0).x_star;
+fn refine_extreme(curve: &GroupSizeCurve, lo: f64, hi: f64, sign: f64, scale: f64) -> Option<BandExtreme> {
+    let x_star = |p: f64| scan(&with_exponent(curve, p), scale).x_star;
     let inv_phi = (5f64.sqrt() - 1.0) / 2.0;
     let (mut a, mut b) = (lo, hi);
     let mut c = b - inv_phi * (b - a);
@@ -485,6 +490,7 @@ fn solve_band(
     curve: &GroupSizeCurve,
     (from, to, steps): (f64, f64, usize),
     range: (u32, u32),
+    scale: f64,
 ) -> Result<BandReport, AnalyticError> {
     if !matches!(
         curve,
@@ -524,8 +530,8 @@ fn solve_band(
     let mut without = Vec::new();
     for &p in &ps {
         let c = with_exponent(curve, p);
-        let opt = scan(&c, 1.0);
-        let best = best_of(&integer_rows(&c, range)).map(|b| b.0);
+        let opt = scan(&c, scale);
+        let best = best_of(&integer_rows(&c, range, scale)).map(|b| b.0);
         best_integers.extend(best);
         if opt.x_star.is_none() {
             without.push(p);
@@ -550,7 +556,7 @@ fn solve_band(
         let mut extreme = BandExtreme { p: ps[i], x_star: x };
         let neighbours_finite = i > 0 && i < steps && points[i - 1].x_star.is_some() && points[i + 1].x_star.is_some();
         if neighbours_finite
-            && let Some(r) = refine_extreme(curve, ps[i - 1], ps[i + 1], sign)
+            && let Some(r) = refine_extreme(curve, ps[i - 1], ps[i + 1], sign, scale)
             && sign * r.x_star < sign * extreme.x_star
         {
             extreme = r;
@@ -559,7 +565,7 @@ fn solve_band(
     }
     let [min_x_star, max_x_star] = extremes;
     for e in [min_x_star, max_x_star].into_iter().flatten() {
-        best_integers.extend(best_of(&integer_rows(&with_exponent(curve, e.p), range)).map(|b| b.0));
+        best_integers.extend(best_of(&integer_rows(&with_exponent(curve, e.p), range, scale)).map(|b| b.0));
     }
     let integers_inside = match (min_x_star, max_x_star) {
         (Some(lo), Some(hi)) => {
@@ -587,6 +593,15 @@ fn solve_band(
 
 /// Solves a request: the continuous optimum, the integer table and, if asked, the band sweep.
 pub fn solve(request: &OptimumRequest) -> Result<OptimumReport, AnalyticError> {
+    solve_with_risk(request, 1.0)
+}
+
+/// As [`solve`] for members whose mean risk multiplier u scales every size's failure probability,
+/// min(1, u phi(k)), as `run` applies an arm's mean risk in group_size.csv's `best_closed_form`.
+pub fn solve_with_risk(request: &OptimumRequest, risk: f64) -> Result<OptimumReport, AnalyticError> {
+    if !(risk.is_finite() && risk >= 0.0) {
+        return Err(bad("risk", risk, "a finite mean risk multiplier >= 0"));
+    }
     validate_curve(&request.curve)?;
     let (first, last) = request.range;
     if first == 0 {
@@ -606,12 +621,12 @@ pub fn solve(request: &OptimumRequest) -> Result<OptimumReport, AnalyticError> {
             format!("at most {MAX_RANGE_ROWS} group sizes"),
         ));
     }
-    let continuous = scan(&request.curve, 1.0);
-    let by_integer = integer_rows(&request.curve, request.range);
+    let continuous = scan(&request.curve, risk);
+    let by_integer = integer_rows(&request.curve, request.range, risk);
     let best = best_of(&by_integer);
     let band = request
         .band
-        .map(|b| solve_band(&request.curve, b, request.range))
+        .map(|b| solve_band(&request.curve, b, request.range, risk))
         .transpose()?;
     Ok(OptimumReport {
         curve: request.curve.clone(),
@@ -623,12 +638,13 @@ pub fn solve(request: &OptimumRequest) -> Result<OptimumReport, AnalyticError> {
         repayment_at_best_integer: best.map(|b| b.1),
         by_integer,
         band,
+        risk_multiplier: risk,
+        best_integer_overall: best_integer_scaled(&request.curve, risk),
     })
 }
 
 // Command-line input of `optimum`. The curve itself is read by `curve_from_parts`, the one place
-// that turns command-line text into a curve; it is to hand over to the scenario's curve parser once
-// that parser can read a curve outside a scenario file.
+// that turns command-line text into a curve, through the scenario's curve parser.
 
 fn split_range(text: &str) -> Option<(&str, &str)> {
     let (a, b) = text.split_once("..")?;
@@ -661,71 +677,17 @@ pub fn parse_range(text: &str) -> Result<(u32, u32), AnalyticError> {
     Ok((a, b))
 }
 
-/// Parses table values such as `2=0.08,3=0.06`: sizes >= 1, each once, probabilities in [0, 1].
-pub fn parse_table_values(text: &str) -> Result<BTreeMap<u32, f64>, AnalyticError> {
-    let mut values = BTreeMap::new();
-    for entry in text.split(',').map(str::trim).filter(|e| !e.is_empty()) {
-        let entry_error = || {
-            bad(
-                "table entry",
-                format!("\"{entry}\""),
-                "size=probability with a whole size >= 1 and a probability in [0, 1], such as 2=0.08",
-            )
-        };
-        let (k, v) = entry.split_once('=').ok_or_else(entry_error)?;
-        let (Ok(k), Ok(v)) = (k.trim().parse::<u32>(), v.trim().parse::<f64>()) else {
-            return Err(entry_error());
-        };
-        if k == 0 || !(0.0..=1.0).contains(&v) {
-            return Err(entry_error());
-        }
-        if values.insert(k, v).is_some() {
-            return Err(bad(
-                "table entry",
-                format!("\"{entry}\""),
-                format!("each group size once, but {k} is repeated"),
-            ));
-        }
-    }
-    if values.is_empty() {
-        return Err(bad(
-            "table",
-            format!("\"{text}\""),
-            "at least one size=probability entry, such as 2=0.08,3=0.06",
-        ));
-    }
-    Ok(values)
-}
-
-/// Builds a curve from command-line parts: the kind name as written in scenario files, the single
-/// parameter (the value of a constant curve, the exponent p of power and power_plus_log) and, for a
-/// table, the text [`parse_table_values`] reads.
+/// Builds a curve from command-line parts through the scenario's own curve checks
+/// ([`crate::scenario::curve_from_flags`]), so a bad curve is refused with the bounds and words a
+/// scenario file gets, naming the flag: the kind name as written in scenario files, the flag and text
+/// of its one number (`--value` of a constant, `--p` of power and power_plus_log) and, for a table,
+/// the text of `--values` (`2=0.08,3=0.06`).
 pub fn curve_from_parts(
     kind: &str,
-    parameter: Option<f64>,
+    parameter: Option<(&'static str, &str)>,
     table: Option<&str>,
-) -> Result<GroupSizeCurve, AnalyticError> {
-    let need = |what: &str| {
-        bad(
-            &format!("{kind} curve {what}"),
-            "missing",
-            format!("a number given for the {what}"),
-        )
-    };
-    match kind {
-        "constant" => GroupSizeCurve::constant(parameter.ok_or_else(|| need("value"))?).map_err(from_curve_error),
-        "power" => GroupSizeCurve::power(parameter.ok_or_else(|| need("exponent p"))?).map_err(from_curve_error),
-        "power_plus_log" => {
-            GroupSizeCurve::power_plus_log(parameter.ok_or_else(|| need("exponent p"))?).map_err(from_curve_error)
-        }
-        "table" => GroupSizeCurve::table(parse_table_values(table.ok_or_else(|| need("list of values"))?)?)
-            .map_err(from_curve_error),
-        other => Err(bad(
-            "curve",
-            format!("\"{other}\""),
-            "one of constant, power, power_plus_log, table",
-        )),
-    }
+) -> Result<GroupSizeCurve, crate::scenario::ScenarioError> {
+    crate::scenario::curve_from_flags("optimum", kind, parameter, table)
 }
 
 #[cfg(test)]
@@ -814,34 +776,33 @@ mod tests {
         assert!(parse_band("a..b").is_err() && parse_band("0.5").is_err() && parse_band("nan..1").is_err());
         assert_eq!(parse_range("2..12").unwrap(), (2, 12));
         assert!(parse_range("0..3").is_err() && parse_range("5..2").is_err() && parse_range("2..x").is_err());
-        let t = parse_table_values("2=0.08, 3=0.06").unwrap();
-        assert_eq!(t.get(&2), Some(&0.08));
-        assert_eq!(t.len(), 2);
-        assert!(
-            parse_table_values("2=0.08,2=0.07")
-                .unwrap_err()
-                .to_string()
-                .contains("repeated")
-        );
-        assert!(
-            parse_table_values("0=0.1").is_err()
-                && parse_table_values("2=1.5").is_err()
-                && parse_table_values("").is_err()
-        );
-        assert!(curve_from_parts("power", Some(0.5), None).is_ok());
+        assert!(curve_from_parts("power", Some(("--p", "0.5")), None).is_ok());
         assert!(
             curve_from_parts("power", None, None)
                 .unwrap_err()
                 .to_string()
-                .contains("missing")
+                .contains("option --p: a power curve needs its exponent p")
         );
         assert!(
-            curve_from_parts("zigzag", Some(1.0), None)
+            curve_from_parts("zigzag", Some(("--p", "1")), None)
                 .unwrap_err()
                 .to_string()
                 .contains("\"zigzag\"")
         );
-        assert!(curve_from_parts("table", None, Some("2=0.1,4=0.05")).is_ok());
+        let t = curve_from_parts("table", None, Some("2=0.08, 3=0.06")).unwrap();
+        assert_eq!(t.at(2), Some(0.08));
+        // The scenario's bounds and words, naming the flag.
+        let e = curve_from_parts("table", None, Some("2=0.08,2=0.07"))
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("option --values") && e.contains("repeats"), "{e}");
+        for bad in ["0=0.1", "2=1.5", "x=0.1", "2"] {
+            assert!(curve_from_parts("table", None, Some(bad)).is_err(), "{bad}");
+        }
+        let e = curve_from_parts("power", Some(("--p", "-2")), None)
+            .unwrap_err()
+            .to_string();
+        assert_eq!(e, "optimum: option --p: -2 is not allowed: a finite number > 0");
     }
 
     #[test]

@@ -40,6 +40,13 @@ pub fn table(report: &OptimumReport) -> String {
         out,
         "  objective: x ln(1 - phi(x)); a group of k repays with probability (1 - phi(k))^k"
     );
+    if report.risk_multiplier != 1.0 {
+        let _ = writeln!(
+            out,
+            "  every phi scaled by the mean risk multiplier u = {} (capped at 1)",
+            report.risk_multiplier
+        );
+    }
     let range_text = format!("[{}, {:e}]", c.scan_start, c.scan_end);
     match c.kind {
         MaximiserKind::Interior | MaximiserKind::DomainStart => {
@@ -94,8 +101,20 @@ pub fn table(report: &OptimumReport) -> String {
             );
         }
     }
+    if let Some(k) = report.best_integer_overall {
+        let _ = writeln!(
+            out,
+            "  best integer over all sizes (from the curve's first, up to {}): k = {k} (group_size.csv's best_closed_form)",
+            crate::analytic::optimum::LARGEST_SIZE_SCANNED
+        );
+    }
     let _ = writeln!(out);
-    let _ = writeln!(out, "  {:>8}  {:>12}  {:>14}", "k", "phi(k)", "P(group repays)");
+    let phi_label = if report.risk_multiplier == 1.0 {
+        "phi(k)"
+    } else {
+        "u phi(k)"
+    };
+    let _ = writeln!(out, "  {:>8}  {:>12}  {:>14}", "k", phi_label, "P(group repays)");
     for row in &report.by_integer {
         let mark = if Some(row.group_size) == report.best_integer {
             "  <- best"

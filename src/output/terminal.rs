@@ -46,7 +46,7 @@ pub fn summary_table(report: &RunReport) -> String {
         .max(3);
     let _ = writeln!(
         out,
-        "{:<width$}  {:>18}  {:>9}  {:>9}  {:>12}  {:>10}  {:>18}  {:>11}  {:>9}  {:>9}",
+        "{:<width$}  {:>18}  {:>9}  {:>9}  {:>12}  {:>10}  {:>18}  {:>11}  {:>16}  {:>9}  {:>9}",
         "arm",
         "group repaid (95%)",
         "exact",
@@ -55,10 +55,18 @@ pub fn summary_table(report: &RunReport) -> String {
         "dep. ratio",
         "loss rate (95%)",
         "horizon p99",
+        "worst cycle p95",
         "served",
         "excluded"
     );
-    for a in &report.arms {
+    let shown = crate::stats::select::arms_shown(
+        &report
+            .arms
+            .iter()
+            .map(|a| a.summary.group_repayment.map(|g| g.rate))
+            .collect::<Vec<_>>(),
+    );
+    for a in shown.iter().map(|&i| &report.arms[i]) {
         let s = &a.summary;
         let g = s
             .group_repayment
@@ -68,7 +76,7 @@ pub fn summary_table(report: &RunReport) -> String {
             .map_or("-".into(), |l| with_interval(l.rate, l.standard_error, 3, "%", false));
         let _ = writeln!(
             out,
-            "{:<width$}  {:>18}  {:>9}  {:>9}  {:>12}  {:>10}  {:>18}  {:>11}  {:>9}  {:>9}",
+            "{:<width$}  {:>18}  {:>9}  {:>9}  {:>12}  {:>10}  {:>18}  {:>11}  {:>16}  {:>9}  {:>9}",
             a.arm.label(),
             g,
             pct(a.analytic_group_repayment),
@@ -77,8 +85,17 @@ pub fn summary_table(report: &RunReport) -> String {
             s.dependence_ratio.map_or_else(|| "-".into(), |r| format!("{r:.3}")),
             l,
             pct(s.loss_p99),
+            pct(s.worst_cycle_loss_p95),
             pct(s.served_share),
             pct(s.excluded_share)
+        );
+    }
+    if shown.len() < report.arms.len() {
+        let _ = writeln!(
+            out,
+            "the {} arms with the highest group repayment of {}, best first; every arm is in summary.csv",
+            shown.len(),
+            report.arms.len()
         );
     }
     let _ = writeln!(
@@ -86,20 +103,30 @@ pub fn summary_table(report: &RunReport) -> String {
         "no-short: groups with no member short; indep. pred.: (1 - member shortfall rate)^k, a \
          prediction under independence, not a forecast that failed; dep. ratio: no-short / indep. pred. \
          (1 for independent members); horizon p99: 99% quantile of each replication's loss rate over its \
-         whole horizon (worst_cycle_loss_p95 in summary.csv is the worst single cycle)"
+         whole horizon; worst cycle p95: 95% quantile over replications of each replication's worst \
+         single-cycle loss (both with order-statistic intervals in summary.csv)"
     );
     outreach_table(&mut out, report, width);
     if let (true, Some(baseline)) = (report.arms.len() > 1, &report.baseline) {
         let _ = writeln!(
             out,
-            "differences from the baseline arm ({baseline}), paired by replication, 95%:"
+            "differences from the baseline arm ({baseline}), paired by replication, 95%{}:",
+            if shown.len() < report.arms.len() {
+                " (the arms above; every arm is in differences.csv)"
+            } else {
+                ""
+            }
         );
         let _ = writeln!(
             out,
             "{:<width$}  {:>22}  {:>22}  {:>22}",
             "arm", "group repaid (pp)", "loss rate (pp)", "served share (pp)"
         );
-        for a in report.arms.iter().filter(|a| a.arm.label() != baseline.as_str()) {
+        for a in shown
+            .iter()
+            .map(|&i| &report.arms[i])
+            .filter(|a| a.arm.label() != baseline.as_str())
+        {
             let show = |metric: &str| {
                 report
                     .differences

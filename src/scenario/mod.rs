@@ -12,6 +12,7 @@ mod sweep;
 mod validate;
 
 pub use model::*;
+pub use validate::curve_from_flags;
 
 use std::path::Path;
 

@@ -8,8 +8,8 @@
 
 use super::bounds::{self, Bound};
 use super::raw::{
-    DistTable, Int, Num, Origin, RawCurve, RawDist, RawExclusion, RawProbability, RawScenario, RawShock, W, float_text,
-    line_of, location, one_line,
+    DistTable, Int, Num, NumTable, Origin, RawCurve, RawDist, RawExclusion, RawProbability, RawScenario, RawShock, W,
+    float_text, line_of, location, one_line,
 };
 use super::sweep::{self, Axis};
 use super::{
@@ -21,6 +21,91 @@ use crate::dist::{Distribution, DistributionError};
 use std::collections::{BTreeMap, HashMap};
 
 type Result<T> = std::result::Result<T, ScenarioError>;
+
+/// A group-size curve given on the command line (as `optimum` takes it), checked by the very code
+/// and bounds that check a curve in a scenario file, so both refuse the same values in the same
+/// words; a refusal names the flag that gave the value (`command: option --p: ...`). `parameter` is
+/// the flag and text of the curve's one number (`--value` for a constant, `--p` for the exponent),
+/// `values` the text of a table, such as `2=0.08,3=0.06`.
+pub fn curve_from_flags(
+    command: &str,
+    kind: &str,
+    parameter: Option<(&'static str, &str)>,
+    values: Option<&str>,
+) -> Result<GroupSizeCurve> {
+    let checker = Checker {
+        file: command,
+        text: "",
+    };
+    let flag_origin = |flag: &'static str, text: &str| Origin::Flag {
+        flag,
+        text: text.to_owned(),
+    };
+    let needs = |flag: &str, what: &str| ScenarioError::Syntax {
+        file: command.to_owned(),
+        location: format!("option {flag}: "),
+        message: format!("a {kind} curve needs {what}"),
+    };
+    let number = |flag: &'static str, text: &str| -> Result<Num> {
+        let t = text.trim();
+        let integer = t.parse::<i64>().ok();
+        match integer.map(|i| i as f64).or_else(|| t.parse::<f64>().ok()) {
+            Some(value) => Ok(Num { value, integer }),
+            None => Err(checker.invalid(flag, Some(&flag_origin(flag, t)), format!("{t:?}"), "a number")),
+        }
+    };
+    let one = |what: &str| -> Result<(&'static str, Num)> {
+        let (flag, text) = parameter.ok_or_else(|| needs(if kind == "constant" { "--value" } else { "--p" }, what))?;
+        Ok((flag, number(flag, text)?))
+    };
+    let (flag, text, raw) = match kind {
+        "constant" => {
+            let (flag, value) = one("its value")?;
+            (flag, value.text(), RawCurve::Constant { value })
+        }
+        "power" | "power_plus_log" => {
+            let (flag, p) = one("its exponent p")?;
+            let text = p.text();
+            let raw = if kind == "power" {
+                RawCurve::Power { p }
+            } else {
+                RawCurve::PowerPlusLog { p }
+            };
+            (flag, text, raw)
+        }
+        "table" => {
+            let text = values.ok_or_else(|| needs("--values", "its values, such as 2=0.08,3=0.06"))?;
+            let mut entries = Vec::new();
+            for entry in text.split(',').map(str::trim).filter(|e| !e.is_empty()) {
+                let (key, value) = entry.split_once('=').ok_or_else(|| {
+                    checker.invalid(
+                        "--values",
+                        Some(&flag_origin("--values", text)),
+                        format!("{entry:?}"),
+                        "size=probability entries joined by commas, such as 2=0.08,3=0.06",
+                    )
+                })?;
+                entries.push((key.trim().to_owned(), number("--values", value)?));
+            }
+            (
+                "--values",
+                text.to_owned(),
+                RawCurve::Table {
+                    values: NumTable(entries),
+                },
+            )
+        }
+        other => {
+            return Err(checker.invalid(
+                "--curve",
+                Some(&flag_origin("--curve", other)),
+                format!("{other:?}"),
+                "one of constant, power, power_plus_log, table",
+            ));
+        }
+    };
+    checker.curve("", &flag_origin(flag, &text), &raw)
+}
 
 /// Checks `raw` and builds the scenario; `origin` names the file and `text` is the file's text (for
 /// line numbers and values quoted as written).

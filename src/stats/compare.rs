@@ -109,31 +109,114 @@ pub fn differences(arms: &[ComparedArm], baseline: usize) -> Vec<ArmDifference> 
         if i == baseline {
             continue;
         }
-        for metric in COMPARED {
-            if let Some(d) = paired(arm.tally, base.tally, metric) {
-                let unpaired = match (own_se(arm.tally, metric), own_se(base.tally, metric)) {
-                    (Some(a), Some(b)) => Some((a * a + b * b).sqrt()),
-                    _ => None,
-                };
-                let (ci_low, ci_high) = (d.ci_low(), d.ci_high());
-                out.push(ArmDifference {
-                    arm: arm.label.to_string(),
-                    baseline: base.label.to_string(),
-                    metric: metric.0,
-                    difference: d.rate,
-                    standard_error: d.standard_error,
-                    ci_low,
-                    ci_high,
-                    significant: ci_low.zip(ci_high).map(|(lo, hi)| lo > 0.0 || hi < 0.0),
-                    se_ratio: d
-                        .standard_error
-                        .zip(unpaired)
-                        .and_then(|(se, u)| (u > 0.0).then(|| se / u)),
+        out.extend(pair_rows(arm, base));
+    }
+    out
+}
+
+/// `arm` against `base` on each figure of [`COMPARED`], paired by replication.
+fn pair_rows(arm: &ComparedArm, base: &ComparedArm) -> Vec<ArmDifference> {
+    let mut out = Vec::new();
+    for metric in COMPARED {
+        if let Some(d) = paired(arm.tally, base.tally, metric) {
+            let unpaired = match (own_se(arm.tally, metric), own_se(base.tally, metric)) {
+                (Some(a), Some(b)) => Some((a * a + b * b).sqrt()),
+                _ => None,
+            };
+            let (ci_low, ci_high) = (d.ci_low(), d.ci_high());
+            out.push(ArmDifference {
+                arm: arm.label.to_string(),
+                baseline: base.label.to_string(),
+                metric: metric.0,
+                difference: d.rate,
+                standard_error: d.standard_error,
+                ci_low,
+                ci_high,
+                significant: ci_low.zip(ci_high).map(|(lo, hi)| lo > 0.0 || hi < 0.0),
+                se_ratio: d
+                    .standard_error
+                    .zip(unpaired)
+                    .and_then(|(se, u)| (u > 0.0).then(|| se / u)),
+            });
+        }
+    }
+    out
+}
+
+/// One pair of arms that differ only in the contrasted key, on one figure.
+#[derive(Debug, Clone, Serialize)]
+pub struct Contrast {
+    /// The other swept keys' values, as in arm labels (`key=value,...`); empty when the contrasted
+    /// key is the only one swept.
+    pub context: String,
+    /// The contrasted key's value in the arm (the later arm of the pair).
+    pub value: String,
+    /// Its value in the baseline (the earlier arm of the pair).
+    pub baseline_value: String,
+    /// The paired difference, arm minus baseline, as in differences.csv.
+    #[serde(flatten)]
+    pub difference: ArmDifference,
+}
+
+/// The swept keys of a run, in `[sweep]` order, from the arms' (path, value) lists.
+fn swept_keys(swept: &[Vec<(String, String)>]) -> Vec<String> {
+    let mut keys: Vec<String> = Vec::new();
+    for (path, _) in swept.iter().flatten() {
+        if !keys.contains(path) {
+            keys.push(path.clone());
+        }
+    }
+    keys
+}
+
+/// Every pair of arms that differ only in `key`, paired by replication, each figure of
+/// [`COMPARED`]: the earlier arm of a pair is its baseline. `swept[i]` is arm i's (path, value)
+/// list. A key that is not swept (`policy.` may prefix a policy field) is refused with a message
+/// naming the swept keys.
+pub fn contrasts(arms: &[ComparedArm], swept: &[Vec<(String, String)>], key: &str) -> Result<Vec<Contrast>, String> {
+    let keys = swept_keys(swept);
+    let key = keys
+        .iter()
+        .find(|k| *k == key || key.strip_prefix("policy.") == Some(k.as_str()))
+        .ok_or_else(|| {
+            let listed = if keys.is_empty() {
+                "none: the run sweeps no key".to_string()
+            } else {
+                keys.join(", ")
+            };
+            format!("`{key}` is not a swept key of this run; the swept keys are {listed}")
+        })?;
+    let value_of = |i: usize| swept[i].iter().find(|(p, _)| p == key).map_or("", |(_, v)| v.as_str());
+    let context_of = |i: usize| {
+        swept[i]
+            .iter()
+            .filter(|(p, _)| p != key)
+            .map(|(p, v)| format!("{p}={v}"))
+            .collect::<Vec<_>>()
+            .join(",")
+    };
+    let mut out = Vec::new();
+    for j in 0..arms.len().min(swept.len()) {
+        for i in 0..j {
+            let context = context_of(i);
+            if context != context_of(j) || value_of(i) == value_of(j) {
+                continue;
+            }
+            for difference in pair_rows(&arms[j], &arms[i]) {
+                out.push(Contrast {
+                    context: context.clone(),
+                    value: value_of(j).to_string(),
+                    baseline_value: value_of(i).to_string(),
+                    difference,
                 });
             }
         }
     }
-    out
+    // Grouped by context, so that each level of the other keys reads as one block.
+    let contexts: Vec<String> = (0..arms.len().min(swept.len())).map(context_of).collect();
+    let first_seen = |c: &str| contexts.iter().position(|x| x == c).unwrap_or(usize::MAX);
+    out.sort_by_key(|c| first_seen(&c.context));
+    Ok(out)
 }
 
 /// The arm a user names, by label or by index counted from 1 (as `check` lists them). The error

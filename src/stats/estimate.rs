@@ -180,3 +180,161 @@ mod paired_tests {
         assert!((se * se / (va + vb) - 1.0).abs() < 0.2, "{} vs {}", se * se, va + vb);
     }
 }
+
+/// The binomial(n, q) law as a cumulative table over the window where its mass lies, for the ranks
+/// of order-statistic intervals. The probabilities are built by the ratio recursion outward from the
+/// mode and normalised by their sum, so no factorial of a large n is ever formed.
+struct BinomialCdf {
+    /// The first count the table covers; counts below carry less than 1e-18 of the mass.
+    first: u64,
+    /// P(B <= first + i).
+    cdf: Vec<f64>,
+}
+
+impl BinomialCdf {
+    fn new(n: u64, q: f64) -> BinomialCdf {
+        let mode = (((n + 1) as f64 * q).floor() as u64).min(n);
+        let odds = q / (1.0 - q);
+        // Relative mass below which the recursion stops: the neglected tails sum to less than 1e-18
+        // of the total, as the terms shrink geometrically there.
+        const TINY: f64 = 1e-21;
+        let mut down = Vec::new();
+        let mut term = 1.0;
+        let mut k = mode;
+        while k > 0 {
+            term *= k as f64 / ((n - k + 1) as f64 * odds);
+            k -= 1;
+            if term < TINY {
+                break;
+            }
+            down.push(term);
+        }
+        let mut up = Vec::new();
+        let mut term = 1.0;
+        let mut k = mode;
+        while k < n {
+            term *= (n - k) as f64 / ((k + 1) as f64) * odds;
+            k += 1;
+            if term < TINY {
+                break;
+            }
+            up.push(term);
+        }
+        let first = mode - down.len() as u64;
+        let pmf: Vec<f64> = down.iter().rev().copied().chain([1.0]).chain(up).collect();
+        let total: f64 = pmf.iter().sum();
+        let mut running = 0.0;
+        let cdf = pmf
+            .iter()
+            .map(|p| {
+                running += p / total;
+                running
+            })
+            .collect();
+        BinomialCdf { first, cdf }
+    }
+
+    /// The smallest k with P(B <= k) >= p (the convention of scipy.stats.binom.ppf).
+    fn quantile(&self, p: f64) -> u64 {
+        let i = self.cdf.partition_point(|&c| c < p);
+        self.first + i.min(self.cdf.len() - 1) as u64
+    }
+}
+
+/// The ranks (counted from 1) of the distribution-free two-sided interval [X_(l), X_(u)] for the
+/// q-quantile of n independent values with confidence at least `level`: l = the binomial(n, q)
+/// quantile at (1 - level)/2 and u = 1 + its quantile at (1 + level)/2, so that the interval covers
+/// the quantile with probability P(l <= B <= u - 1) >= level for any continuous law. `None` when
+/// n is too small for either end (l < 1 or u > n).
+pub fn quantile_interval_ranks(n: usize, q: f64, level: f64) -> Option<(usize, usize)> {
+    if n == 0 || !(q > 0.0 && q < 1.0) {
+        return None;
+    }
+    let law = BinomialCdf::new(n as u64, q);
+    let alpha = 1.0 - level;
+    let low = law.quantile(alpha / 2.0);
+    let high = law.quantile(1.0 - alpha / 2.0) + 1;
+    (low >= 1 && high <= n as u64).then_some((low as usize, high as usize))
+}
+
+/// The rank u of a one-sided upper bound X_(u) for the q-quantile of n independent values, at
+/// error level `alpha`: 1 + the binomial(n, q) quantile at 1 - alpha, so P(X_(u) >= quantile) >=
+/// 1 - alpha. `None` when n is too small (u > n).
+pub fn quantile_upper_rank(n: usize, q: f64, alpha: f64) -> Option<usize> {
+    if n == 0 || !(q > 0.0 && q < 1.0) {
+        return None;
+    }
+    let u = BinomialCdf::new(n as u64, q).quantile(1.0 - alpha) + 1;
+    (u <= n as u64).then_some(u as usize)
+}
+
+/// The rank l of a one-sided lower bound X_(l) for the q-quantile of n independent values, at
+/// error level `alpha`: the binomial(n, q) quantile at alpha, so P(X_(l) <= quantile) >= 1 -
+/// alpha. `None` when n is too small (l < 1).
+pub fn quantile_lower_rank(n: usize, q: f64, alpha: f64) -> Option<usize> {
+    if n == 0 || !(q > 0.0 && q < 1.0) {
+        return None;
+    }
+    let l = BinomialCdf::new(n as u64, q).quantile(alpha);
+    (l >= 1).then_some(l as usize)
+}
+
+/// The distribution-free 95% interval for the q-quantile of independent sorted values (one per
+/// replication): the order statistics at [`quantile_interval_ranks`].
+pub fn quantile_interval_sorted(sorted: &[f64], q: f64) -> Option<(f64, f64)> {
+    let (l, u) = quantile_interval_ranks(sorted.len(), q, 0.95)?;
+    Some((sorted[l - 1], sorted[u - 1]))
+}
+
+/// The 95% interval for the q-quantile of values that come in replications (the cycles of one
+/// replication are not independent: exclusion and the pool carry over), by Woodruff's method
+/// (Woodruff 1952, "Confidence intervals for medians and other position measures"): the share of
+/// values at or below the estimated quantile gets its standard error from the replications (the
+/// ratio estimator), and q -/+ 1.959964 SE is read back through the order statistics of all values.
+/// With independent values it agrees with the binomial ranks to first order. `sorted_all` holds
+/// every value in ascending order; `counts(x)` gives each replication's (values <= x, values).
+/// `None` with fewer than two replications, without a quantile, or when either end falls outside
+/// the values.
+pub fn clustered_quantile_interval(
+    sorted_all: &[f64],
+    q: f64,
+    counts: impl Fn(f64) -> Vec<(f64, f64)>,
+) -> Option<(f64, f64)> {
+    let n = sorted_all.len();
+    let estimate = quantile_sorted(sorted_all, q)?;
+    let se = ratio(counts(estimate))?.standard_error?;
+    let low = (n as f64 * (q - Z_95 * se)).floor();
+    let high = (n as f64 * (q + Z_95 * se)).ceil() + 1.0;
+    (low >= 1.0 && high <= n as f64).then(|| (sorted_all[low as usize - 1], sorted_all[high as usize - 1]))
+}
+
+#[cfg(test)]
+mod order_statistic_tests {
+    use super::*;
+
+    #[test]
+    fn ranks_need_enough_values_on_both_sides() {
+        // The 99% quantile of 100 values: P(B <= 99) = 1 - 0.99^100 = 0.634 < 0.975, no upper rank.
+        assert_eq!(quantile_interval_ranks(100, 0.99, 0.95), None);
+        // A median of 5 values: P(B = 0) = 1/32 >= 0.025, no lower rank.
+        assert_eq!(quantile_interval_ranks(5, 0.5, 0.95), None);
+        // Of 6 values, ranks 1 and 6: 1 - 2/64 = 0.969 >= 0.95 (binomial(6, 1/2) by hand).
+        assert_eq!(quantile_interval_ranks(6, 0.5, 0.95), Some((1, 6)));
+    }
+
+    #[test]
+    fn perfectly_correlated_cycles_widen_the_clustered_interval() {
+        // 40 replications of 25 identical cycles carry the information of 40 values, not 1000: the
+        // clustered interval is wider than the binomial one for 1000 independent values.
+        let reps: Vec<Vec<f64>> = (0..40).map(|r| vec![f64::from((r * 17) % 40); 25]).collect();
+        let all = sorted(&reps.iter().flatten().copied().collect::<Vec<_>>());
+        let counts = |x: f64| {
+            reps.iter()
+                .map(|r| (r.iter().filter(|&&v| v <= x).count() as f64, r.len() as f64))
+                .collect()
+        };
+        let (lo, hi) = clustered_quantile_interval(&all, 0.5, counts).unwrap();
+        let (blo, bhi) = quantile_interval_sorted(&all, 0.5).unwrap();
+        assert!(hi - lo > 2.0 * (bhi - blo), "{lo}..{hi} against {blo}..{bhi}");
+    }
+}

@@ -125,7 +125,8 @@ impl ReplicationFigures {
         ratio(self.removed_slot_cycles as f64, self.slot_cycles as f64)
     }
 
-    /// A tally holding what these figures hold (0-based replication), for the comparisons; the
+    /// A tally holding what these figures hold (0-based replication), for the comparisons and the
+    /// quantile constraints; the
     /// served share's denominator is kept as served plus excluded plus waiting slot-cycles.
     pub fn to_tally(&self) -> ReplicationTally {
         ReplicationTally {
@@ -148,6 +149,18 @@ impl ReplicationFigures {
             entrants: self.entrants,
             clients_reached: self.clients_reached,
             removed_slot_cycles: self.removed_slot_cycles,
+            // The worst cycle is kept as one cycle record of that loss rate (a loss over a
+            // disbursement of 1), so `worst_cycle_loss` reads the same from both.
+            cycles: self
+                .worst_cycle_loss
+                .map(|w| {
+                    vec![crate::stats::CycleRecord {
+                        loss: w,
+                        disbursed: 1.0,
+                        ..Default::default()
+                    }]
+                })
+                .unwrap_or_default(),
             ..Default::default()
         }
     }

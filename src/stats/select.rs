@@ -8,6 +8,7 @@
 use crate::analytic::normal::inv_cdf;
 use crate::stats::compare::{self, ComparedArm, Direction, Metric};
 use crate::stats::estimate;
+use crate::stats::{ArmTally, ReplicationTally};
 use serde::Serialize;
 
 /// Overall one-sided error level of feasibility and of the set not worse.
@@ -24,6 +25,116 @@ pub const FIGURES: [Metric; 6] = [
         (r.member_defaults as f64, r.member_loans as f64)
     }),
 ];
+
+/// A quantile figure a constraint can use: its summary.csv name, its level q and each replication's
+/// value (one value per replication, so the order-statistic bound treats replications as the
+/// independent values).
+#[derive(Debug, Clone, Copy)]
+pub struct QuantileFigure {
+    /// The column name in summary.csv.
+    pub name: &'static str,
+    /// The quantile's level.
+    pub q: f64,
+    /// A replication's value; `None` leaves the replication out (it lent nothing).
+    pub value: fn(&ReplicationTally) -> Option<f64>,
+}
+
+/// The quantile figures over replications a constraint can use: the horizon loss and the worst
+/// single-cycle loss. (The per-cycle quantiles need cycle records, which replications.csv does not
+/// hold.)
+pub const QUANTILE_FIGURES: [QuantileFigure; 7] = [
+    QuantileFigure {
+        name: "loss_p50",
+        q: 0.5,
+        value: ReplicationTally::loss_rate,
+    },
+    QuantileFigure {
+        name: "loss_p95",
+        q: 0.95,
+        value: ReplicationTally::loss_rate,
+    },
+    QuantileFigure {
+        name: "loss_p99",
+        q: 0.99,
+        value: ReplicationTally::loss_rate,
+    },
+    QuantileFigure {
+        name: "loss_p999",
+        q: 0.999,
+        value: ReplicationTally::loss_rate,
+    },
+    QuantileFigure {
+        name: "worst_cycle_loss_p50",
+        q: 0.5,
+        value: worst_cycle_loss,
+    },
+    QuantileFigure {
+        name: "worst_cycle_loss_p95",
+        q: 0.95,
+        value: worst_cycle_loss,
+    },
+    QuantileFigure {
+        name: "worst_cycle_loss_p99",
+        q: 0.99,
+        value: worst_cycle_loss,
+    },
+];
+
+/// What a constraint bounds: a pooled rate (normal bound on the ratio estimator) or a quantile
+/// over replications (distribution-free order-statistic bound).
+#[derive(Debug, Clone, Copy)]
+pub enum ConstrainedFigure {
+    /// A pooled rate.
+    Rate(Metric),
+    /// A quantile over replications.
+    Quantile(QuantileFigure),
+}
+
+impl ConstrainedFigure {
+    /// The figure's name in summary.csv.
+    pub fn name(&self) -> &'static str {
+        match self {
+            ConstrainedFigure::Rate(m) => m.0,
+            ConstrainedFigure::Quantile(f) => f.name,
+        }
+    }
+
+    /// Whether arm `tally` meets `bound limit` with one-sided error `alpha`. A rate uses its own
+    /// bound rate -/+ z SE; a quantile the order statistic at the one-sided binomial rank over the
+    /// replications' values. Too few replications for a bound give no confidence: not met.
+    fn holds(&self, tally: &ArmTally, bound: Bound, limit: f64, alpha: f64) -> bool {
+        match self {
+            ConstrainedFigure::Rate(metric) => {
+                let z = inv_cdf(1.0 - alpha);
+                match estimate::ratio(tally.replications.iter().map(metric.1)) {
+                    Some(r) => match (r.standard_error, bound) {
+                        (Some(se), Bound::AtMost) => r.rate + z * se <= limit,
+                        (Some(se), Bound::AtLeast) => r.rate - z * se >= limit,
+                        // One replication gives no interval: no confidence, so not shown feasible.
+                        (None, _) => false,
+                    },
+                    None => false,
+                }
+            }
+            ConstrainedFigure::Quantile(f) => {
+                let values: Vec<f64> = tally.replications.iter().filter_map(f.value).collect();
+                let values = estimate::sorted(&values);
+                match bound {
+                    Bound::AtMost => {
+                        estimate::quantile_upper_rank(values.len(), f.q, alpha).is_some_and(|u| values[u - 1] <= limit)
+                    }
+                    Bound::AtLeast => {
+                        estimate::quantile_lower_rank(values.len(), f.q, alpha).is_some_and(|l| values[l - 1] >= limit)
+                    }
+                }
+            }
+        }
+    }
+}
+
+fn worst_cycle_loss(t: &ReplicationTally) -> Option<f64> {
+    crate::stats::replications::worst_cycle_loss(t)
+}
 
 /// The figure named `name`, or a message listing the ones allowed.
 pub fn figure(name: &str) -> Result<Metric, String> {
@@ -50,7 +161,7 @@ pub enum Bound {
 #[derive(Debug, Clone, Copy)]
 pub struct Constraint {
     /// The figure.
-    pub metric: Metric,
+    pub figure: ConstrainedFigure,
     /// Which side.
     pub bound: Bound,
     /// The limit.
@@ -68,14 +179,21 @@ pub fn parse_constraint(text: &str) -> Result<Constraint, String> {
             "\"{text}\" is not a constraint: write FIGURE<=X or FIGURE>=X, such as \"loss_rate<=0.02\""
         ));
     };
-    let metric = figure(name.trim()).map_err(|e| format!("\"{text}\": {e}"))?;
+    let name = name.trim();
+    let figure = match QUANTILE_FIGURES.iter().find(|f| f.name == name) {
+        Some(f) => ConstrainedFigure::Quantile(*f),
+        None => ConstrainedFigure::Rate(figure(name).map_err(|e| {
+            let quantiles: Vec<&str> = QUANTILE_FIGURES.iter().map(|f| f.name).collect();
+            format!("\"{text}\": {e}, or a quantile: {}", quantiles.join(", "))
+        })?),
+    };
     let limit: f64 = limit
         .trim()
         .parse()
         .ok()
         .filter(|x: &f64| x.is_finite())
         .ok_or_else(|| format!("\"{text}\": the limit `{}` is not a finite number", limit.trim()))?;
-    Ok(Constraint { metric, bound, limit })
+    Ok(Constraint { figure, bound, limit })
 }
 
 /// The answer of a selection.
@@ -112,21 +230,12 @@ pub fn select(
         Direction::Minimize => -1.0,
     };
     let tests = (arms.len() * constraints.len()).max(1) as f64;
-    let z_feasible = inv_cdf(1.0 - LEVEL / tests);
+    let alpha = LEVEL / tests;
     let feasible: Vec<usize> = (0..arms.len())
         .filter(|&i| {
-            constraints.iter().all(|(_, c)| {
-                let pairs: Vec<(f64, f64)> = arms[i].tally.replications.iter().map(c.metric.1).collect();
-                match estimate::ratio(pairs) {
-                    Some(r) => match (r.standard_error, c.bound) {
-                        (Some(se), Bound::AtMost) => r.rate + z_feasible * se <= c.limit,
-                        (Some(se), Bound::AtLeast) => r.rate - z_feasible * se >= c.limit,
-                        // One replication gives no interval: no confidence, so not shown feasible.
-                        (None, _) => false,
-                    },
-                    None => false,
-                }
-            })
+            constraints
+                .iter()
+                .all(|(_, c)| c.figure.holds(arms[i].tally, c.bound, c.limit, alpha))
         })
         .collect();
     let rate = |i: usize| {
@@ -154,6 +263,29 @@ pub fn select(
         replications_to_separate: None,
         notes: Vec::new(),
     };
+    // A quantile bound needs enough replications at the Bonferroni level; say so rather than let
+    // "no arm meets" hide the reason.
+    for (text, c) in constraints {
+        if let ConstrainedFigure::Quantile(f) = c.figure {
+            let short: Vec<&str> = arms
+                .iter()
+                .filter(|a| {
+                    let n = a.tally.replications.iter().filter_map(f.value).count();
+                    match c.bound {
+                        Bound::AtMost => estimate::quantile_upper_rank(n, f.q, alpha).is_none(),
+                        Bound::AtLeast => estimate::quantile_lower_rank(n, f.q, alpha).is_none(),
+                    }
+                })
+                .map(|a| a.label)
+                .collect();
+            if !short.is_empty() {
+                selection.notes.push(format!(
+                    "{text}: too few replications for a one-sided order-statistic bound at level {alpha:.4} in {}; more replications would allow one",
+                    short.join(", ")
+                ));
+            }
+        }
+    }
     let Some(best) = best else {
         selection.notes.push(if feasible.is_empty() && !constraints.is_empty() {
             format!(
@@ -218,6 +350,30 @@ pub fn select(
     selection
 }
 
+/// Most arms a terminal table lists in full; above it, only the leaders are shown.
+pub const FULL_TABLE_ARMS: usize = 20;
+/// How many leaders a long table shows.
+pub const LEADERS_SHOWN: usize = 10;
+
+/// The indices of the arms a terminal table shows: all of them up to [`FULL_TABLE_ARMS`], in arm
+/// order; beyond it the [`LEADERS_SHOWN`] highest values (the earlier arm on ties, arms without a
+/// value last), best first.
+pub fn arms_shown(values: &[Option<f64>]) -> Vec<usize> {
+    if values.len() <= FULL_TABLE_ARMS {
+        return (0..values.len()).collect();
+    }
+    let mut order: Vec<usize> = (0..values.len()).collect();
+    // A stable sort keeps arm order among equal values.
+    order.sort_by(|&a, &b| match (values[a], values[b]) {
+        (Some(x), Some(y)) => y.total_cmp(&x),
+        (Some(_), None) => std::cmp::Ordering::Less,
+        (None, Some(_)) => std::cmp::Ordering::Greater,
+        (None, None) => std::cmp::Ordering::Equal,
+    });
+    order.truncate(LEADERS_SHOWN);
+    order
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -248,9 +404,19 @@ mod tests {
     }
 
     #[test]
+    fn long_tables_show_the_leaders_best_first() {
+        let few: Vec<Option<f64>> = vec![Some(0.1), Some(0.9), None];
+        assert_eq!(arms_shown(&few), [0, 1, 2]);
+        let mut many: Vec<Option<f64>> = (0..25).map(|i| Some(f64::from(i % 7))).collect();
+        many[3] = None;
+        // Values 6 at arms 6, 13, 20; 5 at 5, 12, 19; 4 at 4, 11, 18; then 3 at 10 (arm 3 has none).
+        assert_eq!(arms_shown(&many), [6, 13, 20, 5, 12, 19, 4, 11, 18, 10]);
+    }
+
+    #[test]
     fn constraints_parse_with_either_bound_and_refuse_the_rest() {
         let c = parse_constraint(" loss_rate <= 0.02").unwrap();
-        assert_eq!((c.metric.0, c.bound, c.limit), ("loss_rate", Bound::AtMost, 0.02));
+        assert_eq!((c.figure.name(), c.bound, c.limit), ("loss_rate", Bound::AtMost, 0.02));
         assert_eq!(parse_constraint("served_share>=0.7").unwrap().bound, Bound::AtLeast);
         assert!(parse_constraint("loss_rate<0.02").unwrap_err().contains("FIGURE<=X"));
         assert!(
@@ -279,6 +445,27 @@ mod tests {
         assert_eq!(s.best.as_deref(), Some("mild"));
         assert_eq!(s.not_worse, ["mild"]);
         assert!(s.notes.is_empty());
+    }
+
+    #[test]
+    fn a_quantile_constraint_without_enough_replications_says_why() {
+        // Four replications cannot bound a 95% quantile: 0.95^4 = 0.81, far above any error level.
+        let a = arm(&[10.0, 12.0, 11.0, 9.0], &[90, 91, 92, 90]);
+        let list = [("a", a.clone()), ("b", a)];
+        let c = parse_constraint("loss_p95<=0.5").unwrap();
+        let s = select(
+            &compared(&list),
+            compare::GROUP_REPAYMENT,
+            Direction::Maximize,
+            &[("loss_p95<=0.5".into(), c)],
+        );
+        assert!(s.feasible.is_empty());
+        assert!(
+            s.notes[0].starts_with("loss_p95<=0.5: too few replications"),
+            "{:?}",
+            s.notes
+        );
+        assert_eq!(s.notes[1], "no arm meets loss_p95<=0.5 with 95% confidence");
     }
 
     #[test]

@@ -85,6 +85,45 @@ pub struct ArmSummary {
     /// Mean share of slots whose occupant was removed and that are not yet refilled (part of
     /// `empty_share`).
     pub removed_share: Option<f64>,
+    // The quantiles' 95% intervals: order statistics at binomial ranks over replications for the
+    // horizon and worst-cycle figures; Woodruff's interval with replications as clusters for the
+    // per-cycle figures, whose cycles are not independent within a replication.
+    /// Lower end of the distribution-free 95% interval for `loss_p50` (empty with too few values).
+    pub loss_p50_ci_low: Option<f64>,
+    /// Upper end of that interval.
+    pub loss_p50_ci_high: Option<f64>,
+    /// Lower end of the distribution-free 95% interval for `loss_p95` (empty with too few values).
+    pub loss_p95_ci_low: Option<f64>,
+    /// Upper end of that interval.
+    pub loss_p95_ci_high: Option<f64>,
+    /// Lower end of the distribution-free 95% interval for `loss_p99` (empty with too few values).
+    pub loss_p99_ci_low: Option<f64>,
+    /// Upper end of that interval.
+    pub loss_p99_ci_high: Option<f64>,
+    /// Lower end of the distribution-free 95% interval for `loss_p999` (empty with too few values).
+    pub loss_p999_ci_low: Option<f64>,
+    /// Upper end of that interval.
+    pub loss_p999_ci_high: Option<f64>,
+    /// Lower end of the distribution-free 95% interval for `loss_cycle_p99` (empty with too few values).
+    pub loss_cycle_p99_ci_low: Option<f64>,
+    /// Upper end of that interval.
+    pub loss_cycle_p99_ci_high: Option<f64>,
+    /// Lower end of the distribution-free 95% interval for `loss_cycle_p999` (empty with too few values).
+    pub loss_cycle_p999_ci_low: Option<f64>,
+    /// Upper end of that interval.
+    pub loss_cycle_p999_ci_high: Option<f64>,
+    /// Lower end of the distribution-free 95% interval for `worst_cycle_loss_p50` (empty with too few values).
+    pub worst_cycle_loss_p50_ci_low: Option<f64>,
+    /// Upper end of that interval.
+    pub worst_cycle_loss_p50_ci_high: Option<f64>,
+    /// Lower end of the distribution-free 95% interval for `worst_cycle_loss_p95` (empty with too few values).
+    pub worst_cycle_loss_p95_ci_low: Option<f64>,
+    /// Upper end of that interval.
+    pub worst_cycle_loss_p95_ci_high: Option<f64>,
+    /// Lower end of the distribution-free 95% interval for `worst_cycle_loss_p99` (empty with too few values).
+    pub worst_cycle_loss_p99_ci_low: Option<f64>,
+    /// Upper end of that interval.
+    pub worst_cycle_loss_p99_ci_high: Option<f64>,
 }
 
 /// A rate with its 95% interval (empty ends with fewer than 2 replications).
@@ -189,11 +228,32 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
         })
         .collect();
     let cycle_losses = estimate::sorted(&cycle_losses);
+    let horizon_ci = |q: f64| estimate::quantile_interval_sorted(&rep_losses, q).unzip();
+    let cycle_counts = |x: f64| {
+        reps.iter()
+            .map(|r| {
+                let lent = r.cycles.iter().filter(|c| c.disbursed > 0.0);
+                let below = lent.clone().filter(|c| c.loss / c.disbursed <= x).count();
+                (below as f64, lent.count() as f64)
+            })
+            .collect()
+    };
+    let cycle_ci = |q: f64| estimate::clustered_quantile_interval(&cycle_losses, q, cycle_counts).unzip();
     let worst: Vec<f64> = reps
         .iter()
         .filter_map(crate::stats::replications::worst_cycle_loss)
         .collect();
     let worst = estimate::sorted(&worst);
+    let worst_ci = |q: f64| estimate::quantile_interval_sorted(&worst, q).unzip();
+    let (loss_p50_ci_low, loss_p50_ci_high) = horizon_ci(0.5);
+    let (loss_p95_ci_low, loss_p95_ci_high) = horizon_ci(0.95);
+    let (loss_p99_ci_low, loss_p99_ci_high) = horizon_ci(0.99);
+    let (loss_p999_ci_low, loss_p999_ci_high) = horizon_ci(0.999);
+    let (loss_cycle_p99_ci_low, loss_cycle_p99_ci_high) = cycle_ci(0.99);
+    let (loss_cycle_p999_ci_low, loss_cycle_p999_ci_high) = cycle_ci(0.999);
+    let (worst_cycle_loss_p50_ci_low, worst_cycle_loss_p50_ci_high) = worst_ci(0.5);
+    let (worst_cycle_loss_p95_ci_low, worst_cycle_loss_p95_ci_high) = worst_ci(0.95);
+    let (worst_cycle_loss_p99_ci_low, worst_cycle_loss_p99_ci_high) = worst_ci(0.99);
     ArmSummary {
         replications: reps.len() as u64,
         replications_without_lending: reps.iter().filter(|r| r.loss_rate().is_none()).count() as u64,
@@ -234,6 +294,24 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
         entrant_rate: share(sum_u(|r| r.entrants), member_loans),
         clients_reached: (!reps.is_empty()).then(|| sum_u(|r| r.clients_reached) as f64 / reps.len() as f64),
         removed_share: share(sum_u(|r| r.removed_slot_cycles), slot_cycles),
+        loss_p50_ci_low,
+        loss_p50_ci_high,
+        loss_p95_ci_low,
+        loss_p95_ci_high,
+        loss_p99_ci_low,
+        loss_p99_ci_high,
+        loss_p999_ci_low,
+        loss_p999_ci_high,
+        loss_cycle_p99_ci_low,
+        loss_cycle_p99_ci_high,
+        loss_cycle_p999_ci_low,
+        loss_cycle_p999_ci_high,
+        worst_cycle_loss_p50_ci_low,
+        worst_cycle_loss_p50_ci_high,
+        worst_cycle_loss_p95_ci_low,
+        worst_cycle_loss_p95_ci_high,
+        worst_cycle_loss_p99_ci_low,
+        worst_cycle_loss_p99_ci_high,
     }
 }
 
