@@ -145,6 +145,7 @@ fn engine_value_stability() {
         t7.collected,
         t0.groups_rescued,
         t0.shortfall_free_groups,
+        t7.loss,
     );
     assert_eq!(
         got,
@@ -153,13 +154,14 @@ fn engine_value_stability() {
             866,
             1154,
             2404,
-            16454.757800106767,
+            16454.75780010676,
             1260,
             728,
             0,
             517923.57792428706,
             343,
-            523
+            523,
+            29174.91626873318
         ),
         "{got:?}"
     );

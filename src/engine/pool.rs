@@ -29,6 +29,12 @@ pub(super) struct Pool {
     pub multiplier: Vec<f64>,
     /// Whether the member fell short of the amount due this cycle (S > 0).
     pub short: Vec<bool>,
+    /// Whether the member, able to pay, walked away this cycle (strategic default).
+    pub walked: Vec<bool>,
+    /// Her current principal P_i (the scenario's principal unless loans grow).
+    pub principal: Vec<f64>,
+    /// The cycle she entered in (her income ratio grows from it).
+    pub entry_cycle: Vec<u32>,
 }
 
 impl Pool {
@@ -45,6 +51,9 @@ impl Pool {
             assigned: vec![false; n],
             multiplier: vec![1.0; n],
             short: vec![false; n],
+            walked: vec![false; n],
+            principal: vec![0.0; n],
+            entry_cycle: vec![0; n],
         }
     }
 
@@ -188,6 +197,8 @@ impl ArmReplication<'_> {
             self.pool.income[i] = income;
             self.pool.risk[i] = risk;
             self.pool.excluded_through[i] = 0;
+            self.pool.principal[i] = self.arm.principal;
+            self.pool.entry_cycle[i] = cycle;
             for row in 0..self.shocks.member_shocks.len() {
                 let p = self.shocks.cached_probability[row];
                 self.set_threshold(row, i, p);

@@ -42,6 +42,9 @@ pub enum Purpose {
     Dropout = 10,
     /// Attributes of a new entrant, keyed by (slot, occupant number).
     Entry = 11,
+    /// A member's temptation to walk away, keyed by (slot, cycle) and, within the stream, the
+    /// occupant number.
+    Temptation = 12,
 }
 
 /// Word offset of the per-slot fallback region (far beyond any primary block).
@@ -93,6 +96,13 @@ pub fn cycle_stream_id(purpose: Purpose, cycle: u32, shock: usize, village: u32)
 /// Stream identifier of an entrant's attributes: purpose (4 bits), slot (28), occupant number (32).
 pub fn entry_stream_id(slot: u32, occupant: u32) -> u64 {
     ((Purpose::Entry as u64) << 60) | (u64::from(slot) << 32) | u64::from(occupant)
+}
+
+/// Stream identifier of the temptations of a slot in one cycle: purpose (4 bits), slot (28), cycle
+/// (32). Each occupant of the slot reads the block at her occupant number, so a replacement never
+/// reuses her predecessor's draw, and every arm reads the same draw for the same person and cycle.
+pub fn temptation_stream_id(slot: u32, cycle: u32) -> u64 {
+    ((Purpose::Temptation as u64) << 60) | (u64::from(slot) << 32) | u64::from(cycle)
 }
 
 /// A uniform double in [0, 1) from the top 53 bits of a word (the shared conversion).
