@@ -132,6 +132,11 @@ pub struct SummaryRow<'a> {
     group_repayment_se: Cell,
     loss_rate_se: Cell,
     on_frontier: &'static str,
+    strategic_default_rate: Cell,
+    strategic_default_ci_low: Cell,
+    strategic_default_ci_high: Cell,
+    able_members: u64,
+    mean_principal: Cell,
 }
 
 impl<'a> SummaryRow<'a> {
@@ -142,6 +147,8 @@ impl<'a> SummaryRow<'a> {
         let (group_repayment_rate, group_repayment_ci_low, group_repayment_ci_high, group_repayment_se) =
             cells(s.group_repayment);
         let (loss_rate, loss_rate_ci_low, loss_rate_ci_high, loss_rate_se) = cells(s.loss_rate);
+        let (strategic_default_rate, strategic_default_ci_low, strategic_default_ci_high, _) =
+            cells(s.strategic_default_rate);
         SummaryRow {
             arm: &a.arm.label,
             group_size: p.group_size,
@@ -193,6 +200,11 @@ impl<'a> SummaryRow<'a> {
                 Some(false) => "false",
                 None => "",
             },
+            strategic_default_rate,
+            strategic_default_ci_low,
+            strategic_default_ci_high,
+            able_members: s.able_members,
+            mean_principal: Cell(s.mean_principal),
         }
     }
 }
@@ -271,6 +283,10 @@ struct ReplicationRow<'a> {
     member_defaults: u64,
     member_loans: u64,
     worst_cycle_loss: Cell,
+    strategic_default_rate: Cell,
+    strategic_defaults: u64,
+    able_members: u64,
+    mean_principal: Cell,
 }
 
 /// replications.csv: one row per arm and replication, in arm order then replication order.
@@ -297,6 +313,10 @@ pub fn replications_csv(report: &RunReport) -> Vec<u8> {
             member_defaults: r.member_defaults,
             member_loans: r.member_loans,
             worst_cycle_loss: Cell(r.worst_cycle_loss),
+            strategic_default_rate: Cell(r.strategic_default_rate()),
+            strategic_defaults: r.strategic_defaults,
+            able_members: r.able_members,
+            mean_principal: Cell(r.mean_principal()),
         })
     }))
 }

@@ -403,7 +403,10 @@ impl Arm {
     /// behaviour or growing loans and incomes, as a reason sentence; `None` when there is none.
     pub fn dynamic_reason(&self) -> Option<String> {
         if self.behaviour.is_some() {
-            Some("[behaviour] is set: members able to pay may walk away, which the exact one-factor class leaves out".into())
+            Some(
+                "[behaviour] is set: members able to pay may walk away, which the exact one-factor class leaves out"
+                    .into(),
+            )
         } else if self.progressive() {
             Some(format!(
                 "loan.growth = {} makes principals depend on each member's history, which the exact one-factor class leaves out",

@@ -13,8 +13,8 @@ use super::raw::{
 };
 use super::sweep::{self, Axis};
 use super::{
-    Arm, Behaviour, Exclusion, ExclusionScope, Liability, Policy, Scenario, ScenarioError, Shock, ShockProbability, ShockScope,
-    StressWindow, SweptValue, limits,
+    Arm, Behaviour, Exclusion, ExclusionScope, Liability, Policy, Scenario, ScenarioError, Shock, ShockProbability,
+    ShockScope, StressWindow, SweptValue, limits,
 };
 use crate::curve::{CurveError, GroupSizeCurve};
 use crate::dist::{Distribution, DistributionError};
@@ -522,7 +522,12 @@ impl Checker<'_> {
     fn growth(&self, raw: &RawScenario, common: &Common) -> Result<(f64, f64, f64)> {
         let loan = &raw.loan;
         let growth = self.real_or("loan.growth", "loan.growth", loan.growth.as_ref(), 0.0)?;
-        let max_multiple = self.real_or("loan.max_multiple", "loan.max_multiple", loan.max_multiple.as_ref(), 1.0)?;
+        let max_multiple = self.real_or(
+            "loan.max_multiple",
+            "loan.max_multiple",
+            loan.max_multiple.as_ref(),
+            1.0,
+        )?;
         let w = raw.borrowers.income_growth.as_ref();
         let income_growth = self.real_or("borrowers.income_growth", "borrowers.income_growth", w, 0.0)?;
         let factor = (1.0 + income_growth).powf(f64::from(common.total_cycles));

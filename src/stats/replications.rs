@@ -38,6 +38,12 @@ pub struct ReplicationFigures {
     pub slot_cycles: u64,
     /// The largest single-cycle loss rate among the counted cycles that lent, `None` when none did.
     pub worst_cycle_loss: Option<f64>,
+    /// Members able to pay who walked away (numerator of the strategic default rate).
+    #[serde(default)]
+    pub strategic_defaults: u64,
+    /// Members able to pay (its denominator).
+    #[serde(default)]
+    pub able_members: u64,
 }
 
 fn ratio(num: f64, den: f64) -> Option<f64> {
@@ -61,6 +67,8 @@ impl ReplicationFigures {
             excluded_slot_cycles: t.excluded_slot_cycles,
             slot_cycles: t.slot_cycles(),
             worst_cycle_loss: worst_cycle_loss(t),
+            strategic_defaults: t.strategic_defaults,
+            able_members: t.able_members,
         }
     }
 
@@ -89,6 +97,15 @@ impl ReplicationFigures {
         ratio(self.member_defaults as f64, self.member_loans as f64)
     }
 
+    /// Walk-aways / members able to pay.
+    pub fn strategic_default_rate(&self) -> Option<f64> {
+        ratio(self.strategic_defaults as f64, self.able_members as f64)
+    }
+    /// Principal disbursed / member loans: the mean loan size.
+    pub fn mean_principal(&self) -> Option<f64> {
+        ratio(self.disbursed, self.member_loans as f64)
+    }
+
     /// A tally holding what these figures hold (0-based replication), for the comparisons; the
     /// served share's denominator is kept as served plus excluded plus waiting slot-cycles.
     pub fn to_tally(&self) -> ReplicationTally {
@@ -102,6 +119,8 @@ impl ReplicationFigures {
             disbursed: self.disbursed,
             collected: self.collected,
             recovered: self.recovered,
+            strategic_defaults: self.strategic_defaults,
+            able_members: self.able_members,
             served_slot_cycles: self.served_slot_cycles,
             excluded_slot_cycles: self.excluded_slot_cycles,
             waiting_slot_cycles: self
