@@ -13,7 +13,9 @@ use loancycle::stats::tolerance::STANDARD_ERRORS;
 /// liability (the repayment game of Besley and Coate 1995, "Group lending, repayment incentives and
 /// social collateral", Journal of Development Economics 46, with exclusion for E cycles as the
 /// penalty); the sums are written out here term by term, and delta / (1 - delta) (the geometric
-/// series) for permanent exclusion.
+/// series) for permanent exclusion. The engine decides T > threshold by comparing one uniform with
+/// the gamma law's survival function (statrs' regularised incomplete gamma), so this checks that
+/// function, the threshold and the walk-away stream against the exponential law's closed form.
 ///
 /// Incomes 1.5 times the amount due and no shock: every member is able to pay every cycle. 30
 /// replications of 600 members over 20 cycles: up to 360,000 able member-cycles per arm (fewer where

@@ -223,8 +223,8 @@ fn paired_differences_are_sharp() {
 }
 
 /// The behaviour and loan-growth extensions keep the promises: the same figures on one and two
-/// threads, and exact pinned values (temptations come from their own (slot, occupant, cycle)
-/// streams, so a change here is a change of those streams or of the rules that read them).
+/// threads, and exact pinned values (walk-aways come from their own stream, one uniform per (slot,
+/// occupant, cycle), so a change here is a change of that stream or of the rules that read it).
 #[test]
 fn behaviour_and_growth_are_reproducible_and_pinned() {
     let s = scenario(

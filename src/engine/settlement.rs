@@ -8,7 +8,7 @@
 use super::ArmReplication;
 use super::book::LoanRecord;
 use super::pool::Pool;
-use super::streams::{self, SlotDraws};
+use super::streams::{self, Purpose, cycle_stream_id, unit_f64};
 use crate::scenario::Liability;
 use crate::stats::CycleRecord;
 
@@ -217,6 +217,13 @@ impl ArmReplication<'_> {
                 if joint { b.social_sanction() } else { 0.0 },
             )
         });
+        let village_start = self.layout.village_start[v];
+        if behaviour.is_some() {
+            let size = self.layout.village_start[v + 1] - village_start;
+            let id = cycle_stream_id(Purpose::Temptation, cycle, 0, v as u32);
+            self.dense.fill(&self.key, id, size, 2);
+        }
+        let (mut last_threshold, mut last_survival) = (f64::NAN, 0.0);
         let (first, last) = (self.groups.village_first[v], self.groups.len());
         self.group_repaid.resize(last, false);
         for (group, repaid) in self.groups.iter_from(first).zip(&mut self.group_repaid[first..]) {
@@ -247,12 +254,16 @@ impl ArmReplication<'_> {
                     } else {
                         1.0
                     };
-                    let slot = self.layout.slot_of(v, i);
+                    // T > threshold iff U < P(T > threshold), U uniform: the inverse-transform
+                    // method, one uniform whatever the temptation's law.
+                    let threshold = access_value * g + sanction;
+                    if threshold != last_threshold {
+                        (last_threshold, last_survival) = (threshold, b.temptation().survival(threshold));
+                    }
+                    let m = (i - village_start) as u32;
                     let occupant = self.pool.entrants[i].wrapping_sub(1);
-                    let id = streams::temptation_stream_id(slot, cycle);
-                    let mut draws = SlotDraws::<4>::seek(&self.key, id, occupant);
-                    let temptation = b.temptation().sample(&mut draws);
-                    walked = temptation > access_value * g + sanction;
+                    let u = unit_f64(streams::occupant_word(self.dense.u64_at(m), occupant));
+                    walked = u < last_survival;
                 }
                 if walked {
                     position = walk_away_position(due);
