@@ -531,7 +531,7 @@ impl Checker<'_> {
         let w = raw.borrowers.income_growth.as_ref();
         let income_growth = self.real_or("borrowers.income_growth", "borrowers.income_growth", w, 0.0)?;
         let factor = (1.0 + income_growth).powf(f64::from(common.total_cycles));
-        if let Some(w) = w.filter(|_| !(factor <= bounds::MAX_INCOME_GROWTH_FACTOR)) {
+        if let Some(w) = w.filter(|_| factor > bounds::MAX_INCOME_GROWTH_FACTOR) {
             return Err(self.invalid(
                 "borrowers.income_growth",
                 Some(&w.origin),
