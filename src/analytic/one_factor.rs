@@ -99,15 +99,15 @@ impl OneFactorModel {
 /// fixed risk, exactly one shock, of member scope, with fixed severity and no stress window; any
 /// correlations, curve, liability and peer cover; no `[behaviour]`, loan growth or income growth.
 pub fn class_check(scenario: &Scenario) -> Result<OneFactorModel, OutOfClass> {
-    if let Some(path) = scenario.model_swept() {
-        return Err(OutOfClass::new(format!(
-            "the sweep varies {path}; exact values are computed for sweeps of [policy] fields only"
-        )));
-    }
     // Walking away and growing loans or incomes make a member's position depend on her history and
     // choices, not on the cycle's hits alone, which is all the exact class integrates over.
     if let Some(reason) = scenario.arms().iter().find_map(|a| a.dynamic_reason()) {
         return Err(OutOfClass::new(reason));
+    }
+    if let Some(path) = scenario.model_swept() {
+        return Err(OutOfClass::new(format!(
+            "the sweep varies {path}; exact values are computed for sweeps of [policy] fields only"
+        )));
     }
     let income = scenario.income.fixed_value().ok_or_else(|| {
         OutOfClass::new(format!(

@@ -260,7 +260,7 @@ fn behaviour_table(out: &mut String, report: &RunReport, width: usize) {
         let s = &a.summary;
         let walked = s
             .strategic_default_rate
-            .map_or("-".into(), |w| with_interval(w.rate, w.standard_error, 2, "%", false));
+            .map_or("-".into(), |w| with_interval(w.rate, w.standard_error, 3, "%", false));
         let _ = writeln!(
             out,
             "{:<width$}  {:>20}  {:>14}  {:>14}",
