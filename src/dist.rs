@@ -1,4 +1,4 @@
-//! Parametrised distributions of borrower attributes and shock severities.
+//! Parametrised distributions of borrower attributes, shock severities and temptations.
 //!
 //! Scenario files describe incomes, risk multipliers and severities by their mean and spread, the way
 //! practitioners quote them, rather than by the textbook parameters; this module converts once, at
