@@ -1,4 +1,4 @@
-//! Parametrised distributions of borrower attributes and shock severities.
+//! Parametrised distributions of borrower attributes, shock severities and temptations.
 //!
 //! Scenario files describe incomes, risk multipliers and severities by their mean and spread, the way
 //! practitioners quote them, rather than by the textbook parameters; this module converts once, at
@@ -176,6 +176,46 @@ impl Distribution {
         }
     }
 
+    /// P(X > x), the survival function. The engine decides "T > threshold" by comparing a uniform
+    /// with it (the inverse-transform method), which needs one uniform whatever the law, instead of
+    /// drawing T itself by a rejection sampler.
+    pub fn survival(&self, x: f64) -> f64 {
+        match *self {
+            Distribution::Fixed { value } => f64::from(u8::from(value > x)),
+            Distribution::Uniform { low, high } if high > low => ((high - x) / (high - low)).clamp(0.0, 1.0),
+            Distribution::Uniform { low, .. } => f64::from(u8::from(low > x)),
+            Distribution::Lognormal { mean, cv, .. } => {
+                let sigma2 = (1.0 + cv * cv).ln();
+                if x <= 0.0 {
+                    1.0
+                } else if sigma2 == 0.0 {
+                    f64::from(u8::from(mean > x))
+                } else {
+                    let mu = mean.ln() - sigma2 / 2.0;
+                    crate::maths::normal_cdf(-(x.ln() - mu) / sigma2.sqrt())
+                }
+            }
+            Distribution::Gamma { mean, cv, .. } => {
+                if x <= 0.0 {
+                    1.0
+                } else {
+                    let (shape, scale) = (1.0 / (cv * cv), mean * cv * cv);
+                    statrs::function::gamma::gamma_ur(shape, x / scale)
+                }
+            }
+            Distribution::Beta { mean, sd, .. } => {
+                if x <= 0.0 {
+                    1.0
+                } else if x >= 1.0 {
+                    0.0
+                } else {
+                    let common = mean * (1.0 - mean) / (sd * sd) - 1.0;
+                    1.0 - statrs::function::beta::beta_reg(mean * common, (1.0 - mean) * common, x)
+                }
+            }
+        }
+    }
+
     /// Draws one value. Rejection samplers (beta, gamma) use a variable number of generator outputs,
     /// so callers give each entity its own generator (see `engine::streams`).
     pub fn sample<R: Rng + ?Sized>(&self, rng: &mut R) -> f64 {
@@ -221,6 +261,37 @@ mod tests {
             assert!((m - mean).abs() < 4.0 * se, "{} mean {m} vs {mean}", d.kind_name());
             assert!((s - sd).abs() < 0.02 * sd, "{} sd {s} vs {sd}", d.kind_name());
         }
+    }
+
+    /// The survival function against the share of 200,000 draws above three points per law (each
+    /// draw is an independent Bernoulli trial, so 4 standard errors of a share is the tolerance), and
+    /// against closed forms: exp(-x / mean) for the gamma law of cv 1 (the exponential law) and
+    /// (high - x) / (high - low) for the uniform.
+    #[test]
+    fn survival_matches_the_draws() {
+        let n = 200_000;
+        let mut rng = ChaCha8Rng::seed_from_u64(11);
+        for d in [
+            Distribution::lognormal(0.1, 1.2).unwrap(),
+            Distribution::beta(0.3, 0.15).unwrap(),
+            Distribution::gamma(0.05, 1.5).unwrap(),
+            Distribution::gamma(2.0, 0.5).unwrap(),
+            Distribution::uniform(0.0, 0.4).unwrap(),
+        ] {
+            let xs: Vec<f64> = (0..n).map(|_| d.sample(&mut rng)).collect();
+            for q in [0.5, 1.0, 2.0] {
+                let x = q * d.mean();
+                let share = xs.iter().filter(|&&v| v > x).count() as f64 / n as f64;
+                let p = d.survival(x);
+                let se = (p * (1.0 - p) / n as f64).sqrt().max(1e-4);
+                assert!((share - p).abs() < 4.0 * se, "{} at {x}: {share} vs {p}", d.kind_name());
+            }
+        }
+        let e = Distribution::gamma(0.5, 1.0).unwrap();
+        assert!((e.survival(0.7) - (-0.7f64 / 0.5).exp()).abs() < 1e-12);
+        assert!((Distribution::uniform(0.0, 0.4).unwrap().survival(0.1) - 0.75).abs() < 1e-15);
+        assert_eq!(Distribution::fixed(0.3).unwrap().survival(0.3), 0.0);
+        assert_eq!(Distribution::fixed(0.3).unwrap().survival(0.2), 1.0);
     }
 
     #[test]

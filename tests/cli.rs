@@ -17,7 +17,7 @@ const BAD_INPUT: i32 = 2;
 
 /// The columns of summary.csv as users' scripts know them, spelled out here rather than taken from
 /// the writer, so a renamed or reordered column fails this file.
-const SUMMARY_COLUMNS: [&str; 73] = [
+const SUMMARY_COLUMNS: [&str; 78] = [
     "arm",
     "group_size",
     "liability",
@@ -91,6 +91,11 @@ const SUMMARY_COLUMNS: [&str; 73] = [
     "entrant_rate",
     "clients_reached",
     "removed_share",
+    "strategic_default_rate",
+    "strategic_default_ci_low",
+    "strategic_default_ci_high",
+    "able_members",
+    "mean_principal",
 ];
 
 const OUTPUTS: [&str; 6] = [

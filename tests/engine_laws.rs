@@ -4,6 +4,7 @@
 mod common;
 
 use common::*;
+use loancycle::stats::tolerance::STANDARD_ERRORS;
 use statrs::distribution::{Binomial, DiscreteCDF};
 
 /// Independent members, no cover: a group of k repays iff nobody is hit, so P = (1 - q)^k
@@ -152,9 +153,11 @@ fn exclusion_share_follows_renewal_reward() {
 }
 
 /// Money flows under joint liability with incomes exactly the amount due, severity 1, no cover:
-/// a defaulting group with n hit collects (k - n) D, so collected / due = 1 - q in expectation,
-/// and the unpaid principal is min(k P, n D) (interest is paid first: common practice). The
-/// expected loss rate is E[min(k P, n D)] (1 - recovery) / (k P) under the binomial law.
+/// a defaulting group with n hit collects (k - n) D, so collected / due = 1 - q in expectation.
+/// Losses are booked loan by loan, interest first (common practice): a hit member's loan received
+/// nothing, so its unpaid principal is min(P, D) = P, and the others' loans are paid in full. The
+/// expected loss rate is therefore (1 - recovery) q, where booking the group as one loan,
+/// min(k P, n D), would give E[min(k P, n D)] (1 - recovery) / (k P) under the binomial law.
 #[test]
 fn losses_follow_interest_first_accounting() {
     let (q, k, r, recovery) = (0.15, 4u32, 0.25, 0.3);
@@ -181,10 +184,13 @@ fn losses_follow_interest_first_accounting() {
     let (p, d) = (100.0, 100.0 * (1.0 + r));
     let bin = Binomial::new(q, u64::from(k)).unwrap();
     use statrs::distribution::Discrete;
-    let expected_unpaid_principal: f64 = (0..=u64::from(k))
+    // the loan-by-loan reference, and the group-level booking it replaces (binomial law, statrs 0.18)
+    let loss_reference = (1.0 - recovery) * q;
+    let group_level: f64 = (0..=u64::from(k))
         .map(|n| bin.pmf(n) * (f64::from(k) * p).min(n as f64 * d))
-        .sum();
-    let loss_reference = (1.0 - recovery) * expected_unpaid_principal / (f64::from(k) * p);
+        .sum::<f64>()
+        * (1.0 - recovery)
+        / (f64::from(k) * p);
     let summary = arm_summary(&s, &results, 0);
     let loss = summary.loss_rate.unwrap();
     assert_within(
@@ -193,6 +199,10 @@ fn losses_follow_interest_first_accounting() {
         loss.standard_error.unwrap(),
         loss_reference,
         0.002,
+    );
+    assert!(
+        (group_level - loss_reference).abs() > 2.0 * STANDARD_ERRORS * loss.standard_error.unwrap(),
+        "the check tells loan-by-loan from group-level booking: {group_level} vs {loss_reference}"
     );
     let (value, se) = replication_ratio(&results, 0, |t| (t.collected, t.due));
     assert_within("value repayment", value, se, 1.0 - q, 0.002);

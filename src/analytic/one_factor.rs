@@ -97,8 +97,13 @@ impl OneFactorModel {
 
 /// Checks that a scenario is in the one-factor class and extracts its model. The class: fixed income,
 /// fixed risk, exactly one shock, of member scope, with fixed severity and no stress window; any
-/// correlations, curve, liability and peer cover.
+/// correlations, curve, liability and peer cover; no `[behaviour]`, loan growth or income growth.
 pub fn class_check(arm: &Arm) -> Result<OneFactorModel, OutOfClass> {
+    // Walking away and growing loans or incomes make a member's position depend on her history and
+    // choices, not on the cycle's hits alone, which is all the exact class integrates over.
+    if let Some(reason) = arm.dynamic_reason() {
+        return Err(OutOfClass::new(reason));
+    }
     let income = arm.income().fixed_value().ok_or_else(|| {
         OutOfClass::new(format!(
             "borrowers.income is a {} distribution, not fixed",
@@ -526,6 +531,34 @@ mod tests {
         let correlated = group_repayment(&model(0.1, 0.2, 0.1), 5, Liability::Joint, 0.0).unwrap();
         assert!(correlated.group_repayment > independent.group_repayment + 0.01);
         assert!((correlated.iid_group_repayment - independent.iid_group_repayment).abs() < 1e-15);
+    }
+
+    #[test]
+    fn behaviour_and_growth_put_a_scenario_outside_the_class() {
+        let base = "replications = 1\ncycles = 2\n[portfolio]\nborrowers = 10\n[loan]\nprincipal = 100\n\
+            [borrowers]\nincome = 1.5\n[[shock]]\nname = \"illness\"\nscope = \"member\"\nprobability = 0.1\nseverity = 1.0\n";
+        let check = |extra: &str| {
+            let s = Scenario::from_toml_str(&format!("{base}{extra}"), "inline").unwrap();
+            class_check(&s.arms[0]).err().map(|e| e.reason)
+        };
+        assert_eq!(check(""), None);
+        let behaviour = "[behaviour]\nloan_value = 0.3\ndiscount = 0.9\ntemptation = 0.1\n";
+        assert!(check(behaviour).unwrap().contains("[behaviour]"));
+        let grown = base.replace("principal = 100\n", "principal = 100\ngrowth = 0.1\nmax_multiple = 2\n");
+        let s = Scenario::from_toml_str(&grown, "inline").unwrap();
+        assert!(class_check(&s.arms[0]).unwrap_err().reason.contains("loan.growth = 0.1"));
+        let s = Scenario::from_toml_str(
+            &base.replace("income = 1.5\n", "income = 1.5\nincome_growth = 0.01\n"),
+            "inline",
+        )
+        .unwrap();
+        assert!(class_check(&s.arms[0]).unwrap_err().reason.contains("borrowers.income_growth"));
+        assert!(
+            crate::analytic::portfolio_law::class_check(&s, 0)
+                .unwrap_err()
+                .reason
+                .contains("borrowers.income_growth")
+        );
     }
 
     #[test]

@@ -157,8 +157,8 @@ pub fn arm_laws(scenario: &Scenario, arm: usize) -> ArmPortfolioLaws {
 }
 
 /// Checks that arm `arm` of the scenario is in the class of the exact law, naming the input that is
-/// not. The class: fixed income w >= 1 and fixed risk; fixed severities with w (1 - s) < 1; no
-/// exclusion; departures replaced; at most one member-scope shock with a village factor and one with a
+/// not. The class: no `[behaviour]`, loan growth or income growth; fixed income w >= 1 and fixed
+/// risk; fixed severities with w (1 - s) < 1; no exclusion; departures replaced; at most one member-scope shock with a village factor and one with a
 /// portfolio factor; at most [`MAX_STRIKE_SHOCKS`] shocks of each unit scope.
 pub fn class_check(scenario: &Scenario, arm: usize) -> Result<(), OutOfClass> {
     let out = |reason: String| Err(OutOfClass { reason });
@@ -168,6 +168,11 @@ pub fn class_check(scenario: &Scenario, arm: usize) -> Result<(), OutOfClass> {
             scenario.arms().len()
         ));
     };
+    // Walking away and growing loans or incomes tie a loan's default to its borrower's history, so
+    // loans are no longer exchangeable given the cycle's draws.
+    if let Some(reason) = arm_def.dynamic_reason() {
+        return out(reason);
+    }
     let Some(w) = scenario.arms()[arm].income().fixed_value() else {
         return out(format!(
             "borrowers.income is a {} distribution, not fixed",

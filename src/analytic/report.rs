@@ -307,6 +307,11 @@ fn hit_share_section(scenario: &Scenario) -> Result<HitShareSection, String> {
     if !shock.stress().is_empty() {
         notes.push("holds outside the shock's stress windows, which change p".to_string());
     }
+    // Behaviour and growth change who defaults, not who is hit: the law stands, its reading as a
+    // default share does not.
+    if let Some(reason) = scenario.arms().iter().find_map(|a| a.dynamic_reason()) {
+        notes.push(format!("counts hits only: {reason}, so defaults need not follow hits"));
+    }
     notes.push(format!(
         "finite pool: the largest village, {village_members} members, at the same loading"
     ));

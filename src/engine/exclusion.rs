@@ -5,8 +5,9 @@ use super::streams::{Purpose, cycle_stream_id, unit_f64};
 use crate::scenario::{Exclusion, ExclusionScope, Liability};
 
 impl ArmReplication<'_> {
-    /// Step 6: a defaulting group (joint liability, group scope), the members with a shortfall of a
-    /// defaulting group (defaulters scope), or each defaulting member (individual liability) sits
+    /// Step 6: a defaulting group (joint liability, group scope), the members with a shortfall or who
+    /// walked away of a defaulting group (defaulters scope), or each defaulting member (individual
+    /// liability) sits
     /// out cycles t+1 ..= t+E, or leaves for good (`permanent`).
     pub(super) fn exclusion(&mut self, v: usize, cycle: u32) {
         let exclusion = self.policy.exclusion_cycles;
@@ -24,7 +25,8 @@ impl ArmReplication<'_> {
             }
             for &i in group {
                 let i = i as usize;
-                if (joint && whole_group) || self.pool.short[i] {
+                // A member who walked away defaults like one who fell short.
+                if (joint && whole_group) || self.pool.short[i] || self.pool.walked[i] {
                     events += 1;
                     match exclusion {
                         Exclusion::Cycles(e) => self.pool.excluded_through[i] = cycle + e,

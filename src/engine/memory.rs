@@ -23,8 +23,9 @@ pub const BYTES_PER_GIB: f64 = 1_073_741_824.0;
 const BASE_BYTES: u64 = 16 << 20;
 
 /// Per slot and worker: occupied, entrants, income, risk, excluded-through, assigned, multiplier,
-/// short, removed, reached (37 bytes), group members and offsets (about 5), padding of the allocator.
-const SLOT_BYTES: u64 = 42;
+/// short, walked, removed, reached, principal, entry cycle (50 bytes), group members and offsets
+/// (about 5), padding of the allocator.
+const SLOT_BYTES: u64 = 55;
 /// Per slot, worker and member-scope shock: the cached hit probability and threshold.
 const SLOT_SHOCK_BYTES: u64 = 16;
 /// Per slot and worker under persistent formation: last cycle's members, offsets and entrant numbers.

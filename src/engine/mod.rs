@@ -143,7 +143,7 @@ impl<'a> ArmReplication<'a> {
             self.entry(v, cycle); // 1. entry
             self.formation(v, cycle, counted, &mut record); // 2. formation
             self.shocks(v, cycle); // 3. shocks
-            self.settlement(v, counted, &mut record); // 4. capacity, 5. repayment
+            self.settlement(v, cycle, counted, &mut record); // 4. capacity, 5. repayment
             if counted && self.book.is_some() {
                 self.record_loans(v, cycle);
             }

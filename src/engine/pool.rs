@@ -33,6 +33,12 @@ pub(super) struct Pool {
     pub removed: Vec<bool>,
     /// Whether the current member has borrowed in a counted cycle (clients reached).
     pub reached: Vec<bool>,
+    /// Whether the member, able to pay, walked away this cycle (strategic default).
+    pub walked: Vec<bool>,
+    /// Her current principal P_i (the scenario's principal unless loans grow).
+    pub principal: Vec<f64>,
+    /// The cycle she entered in (her income ratio grows from it).
+    pub entry_cycle: Vec<u32>,
 }
 
 impl Pool {
@@ -51,6 +57,9 @@ impl Pool {
             short: vec![false; n],
             removed: vec![false; n],
             reached: vec![false; n],
+            walked: vec![false; n],
+            principal: vec![0.0; n],
+            entry_cycle: vec![0; n],
         }
     }
 
@@ -217,6 +226,8 @@ impl ArmReplication<'_> {
             if cycle > self.scenario.warmup_cycles && cycle > 1 {
                 self.tally.entrants += 1;
             }
+            self.pool.principal[i] = self.arm.principal;
+            self.pool.entry_cycle[i] = cycle;
             for row in 0..self.shocks.member_shocks.len() {
                 let p = self.shocks.cached_probability[row];
                 self.set_threshold(row, i, p);

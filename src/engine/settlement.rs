@@ -8,6 +8,7 @@
 use super::ArmReplication;
 use super::book::LoanRecord;
 use super::pool::Pool;
+use super::streams::{self, Purpose, cycle_stream_id, unit_f64};
 use crate::scenario::Liability;
 use crate::stats::CycleRecord;
 
@@ -104,38 +105,173 @@ pub fn settle_individual(member: MemberPosition, principal: f64) -> Settlement {
     }
 }
 
-/// Capacity C = D w prod(1 - s) of the member at internal index `i`, owing `due`. One expression for
-/// the settlement and the loan book, so both judge the same capacity.
+/// The position of a member able to pay who walks away owing `due`: she pays nothing and offers no
+/// surplus, and her whole amount due is unpaid, which the cover rule treats like a shortfall.
+#[inline]
+pub fn walk_away_position(due: f64) -> MemberPosition {
+    MemberPosition {
+        shortfall: due,
+        surplus: 0.0,
+        paid_own: 0.0,
+    }
+}
+
+/// The principal one loan of a defaulting jointly liable group leaves unpaid. The peers' cover
+/// `cover` is shared among the loans with an unpaid amount in proportion to those amounts (their
+/// sum is `total_unpaid`), and each loan pays interest first, then principal (common practice), so
+/// its unpaid principal is min(principal, unpaid - its share of the cover).
+#[inline]
+pub fn loan_unpaid_principal(unpaid: f64, principal: f64, cover: f64, total_unpaid: f64) -> f64 {
+    (unpaid - cover * unpaid / total_unpaid).max(0.0).min(principal)
+}
+
+/// Capacity C = w_t D_0 prod(1 - s) of the member at internal index `i` in `cycle`, where D_0 is the
+/// amount due at the starting principal and w_t = w (1 + income_growth)^t, t counting the cycles since
+/// her entry. One expression for the settlement and the loan book, so both judge the same capacity.
 #[inline(always)]
-fn capacity(pool: &Pool, i: usize, due: f64) -> f64 {
-    due * pool.income[i] * pool.multiplier[i]
+fn capacity(pool: &Pool, i: usize, first_due: f64, income_growth: f64, cycle: u32) -> f64 {
+    if income_growth == 0.0 {
+        first_due * pool.income[i] * pool.multiplier[i]
+    } else {
+        let t = f64::from(cycle.saturating_sub(pool.entry_cycle[i]));
+        first_due * (pool.income[i] * libm::pow(1.0 + income_growth, t)) * pool.multiplier[i]
+    }
+}
+
+/// What the settlement reads of the arm's loan terms, once per village.
+#[derive(Clone, Copy)]
+struct Terms {
+    /// D_0 = P_0 (1 + r), the amount due at the starting principal.
+    first_due: f64,
+    /// P_0, the starting principal.
+    first_principal: f64,
+    /// 1 + r.
+    rate_factor: f64,
+    /// Whether principals may differ between members.
+    progressive: bool,
+    /// Growth of a principal after a cycle she repaid herself.
+    growth: f64,
+    /// The largest principal, max_multiple P_0.
+    cap: f64,
+    income_growth: f64,
+}
+
+impl Terms {
+    /// Her principal and amount due this cycle.
+    #[inline(always)]
+    fn loan(&self, pool: &Pool, i: usize) -> (f64, f64) {
+        if self.progressive {
+            let p = pool.principal[i];
+            (p, p * self.rate_factor)
+        } else {
+            (self.first_principal, self.first_due)
+        }
+    }
+
+    /// Her principal next cycle if she pays her own amount due in full now.
+    #[inline(always)]
+    fn next_principal(&self, principal: f64) -> f64 {
+        (principal * (1.0 + self.growth)).min(self.cap)
+    }
+
+    /// Her position this cycle, walking away included (as the settlement left it in `pool.walked`).
+    #[inline(always)]
+    fn position(&self, pool: &Pool, i: usize, cycle: u32) -> (f64, MemberPosition) {
+        let (principal, due) = self.loan(pool, i);
+        if pool.walked[i] {
+            return (principal, walk_away_position(due));
+        }
+        let c = capacity(pool, i, self.first_due, self.income_growth, cycle);
+        (principal, member_position(c, due))
+    }
 }
 
 impl ArmReplication<'_> {
-    /// Steps 4 and 5: each member's capacity, each group's settlement, its losses and the tally.
-    /// Records who fell short and which groups repaid, for the exclusion step.
-    pub(super) fn settlement(&mut self, v: usize, counted: bool, record: &mut CycleRecord) {
-        let d = self.due;
-        let principal = self.arm.principal();
-        let recovery = self.arm.recovery_rate();
-        let lambda = self.policy.peer_cover();
-        let joint = self.policy.liability() == Liability::Joint;
+    fn terms(&self) -> Terms {
+        let arm = self.arm;
+        Terms {
+            first_due: self.due,
+            first_principal: arm.principal,
+            rate_factor: 1.0 + arm.interest_rate,
+            progressive: arm.progressive(),
+            growth: arm.loan_growth,
+            cap: arm.max_multiple * arm.principal,
+            income_growth: arm.income_growth,
+        }
+    }
+
+    /// Steps 4 and 5: each member's capacity, her choice to pay or walk away, each group's
+    /// settlement, its losses loan by loan, the tally, and each member's next principal. Records who
+    /// fell short, who walked away and which groups repaid, for the exclusion step.
+    pub(super) fn settlement(&mut self, v: usize, cycle: u32, counted: bool, record: &mut CycleRecord) {
+        let terms = self.terms();
+        let recovery = self.arm.recovery_rate;
+        let lambda = self.policy.peer_cover;
+        let joint = self.policy.liability == Liability::Joint;
+        // Walking away costs the discounted cycles of access the exclusion takes (times g_i), plus
+        // the peers' sanction under joint liability.
+        let behaviour = self.arm.behaviour.as_ref().map(|b| {
+            (
+                b,
+                b.loan_value() * b.discounted_cycles_lost(self.policy.exclusion_cycles),
+                if joint { b.social_sanction() } else { 0.0 },
+            )
+        });
+        let village_start = self.layout.village_start[v];
+        if behaviour.is_some() {
+            let size = self.layout.village_start[v + 1] - village_start;
+            let id = cycle_stream_id(Purpose::Temptation, cycle, 0, v as u32);
+            self.dense.fill(&self.key, id, size, 2);
+        }
+        let (mut last_threshold, mut last_survival) = (f64::NAN, 0.0);
         let (first, last) = (self.groups.village_first[v], self.groups.len());
         self.group_repaid.resize(last, false);
         for (group, repaid) in self.groups.iter_from(first).zip(&mut self.group_repaid[first..]) {
             let k = group.len();
-            let group_due = k as f64 * d;
-            let group_principal = k as f64 * principal;
+            let (mut group_due, mut group_principal) = if terms.progressive {
+                (0.0, 0.0)
+            } else {
+                (k as f64 * terms.first_due, k as f64 * terms.first_principal)
+            };
             let mut sums = GroupPosition::default();
             let mut unpaid_principal_individual = 0.0;
             let mut collected_individual = 0.0;
-            let mut n_short = 0u32;
+            let (mut n_short, mut n_walked) = (0u32, 0u32);
             for &i in group {
                 let i = i as usize;
-                let position = member_position(capacity(&self.pool, i, d), d);
+                let (principal, due) = terms.loan(&self.pool, i);
+                if terms.progressive {
+                    group_due += due;
+                    group_principal += principal;
+                }
+                let c = capacity(&self.pool, i, terms.first_due, terms.income_growth, cycle);
+                let mut position = member_position(c, due);
                 let short = position.shortfall > 0.0;
+                let mut walked = false;
+                if let (false, Some((b, access_value, sanction))) = (short, behaviour) {
+                    let g = if terms.progressive {
+                        terms.next_principal(principal) / principal
+                    } else {
+                        1.0
+                    };
+                    // T > threshold iff U < P(T > threshold), U uniform: the inverse-transform
+                    // method, one uniform whatever the temptation's law.
+                    let threshold = access_value * g + sanction;
+                    if threshold != last_threshold {
+                        (last_threshold, last_survival) = (threshold, b.temptation().survival(threshold));
+                    }
+                    let m = (i - village_start) as u32;
+                    let occupant = self.pool.entrants[i].wrapping_sub(1);
+                    let u = unit_f64(streams::occupant_word(self.dense.u64_at(m), occupant));
+                    walked = u < last_survival;
+                }
+                if walked {
+                    position = walk_away_position(due);
+                }
                 self.pool.short[i] = short;
+                self.pool.walked[i] = walked;
                 n_short += u32::from(short);
+                n_walked += u32::from(walked);
                 sums.shortfall += position.shortfall;
                 sums.surplus += position.surplus;
                 sums.paid_own += position.paid_own;
@@ -147,18 +283,46 @@ impl ArmReplication<'_> {
                 }
             }
             let (settlement, defaulting_members) = if joint {
-                let s = settle_joint(sums, group_due, group_principal, lambda);
+                let mut s = settle_joint(sums, group_due, group_principal, lambda);
+                if !s.repaid {
+                    // Booked loan by loan: the cover goes to the loans with an unpaid amount.
+                    let cover = lambda * sums.surplus;
+                    let mut unpaid_principal = 0.0;
+                    for &i in group {
+                        let (principal, position) = terms.position(&self.pool, i as usize, cycle);
+                        if position.shortfall > 0.0 {
+                            unpaid_principal +=
+                                loan_unpaid_principal(position.shortfall, principal, cover, sums.shortfall);
+                        }
+                    }
+                    s.unpaid_principal = unpaid_principal;
+                }
                 (s, if s.repaid { 0 } else { k as u32 })
             } else {
                 let s = Settlement {
-                    repaid: n_short == 0,
+                    repaid: n_short + n_walked == 0,
                     rescued: false,
                     collected: collected_individual,
                     unpaid_principal: unpaid_principal_individual,
                 };
-                (s, n_short)
+                (s, n_short + n_walked)
             };
             *repaid = settlement.repaid;
+            if terms.progressive {
+                // Paid herself in full: her loan grows; completed by peers' cover: it stays; walked
+                // away or not repaid in full: she starts again at the first principal.
+                for &i in group {
+                    let i = i as usize;
+                    let p = &mut self.pool.principal[i];
+                    if self.pool.walked[i] {
+                        *p = terms.first_principal;
+                    } else if !self.pool.short[i] {
+                        *p = terms.next_principal(*p);
+                    } else if !(joint && settlement.repaid) {
+                        *p = terms.first_principal;
+                    }
+                }
+            }
             if counted {
                 let unpaid_principal = settlement.unpaid_principal;
                 let loss = (1.0 - recovery) * unpaid_principal;
@@ -167,6 +331,8 @@ impl ArmReplication<'_> {
                 t.member_loans += k as u64;
                 t.member_shortfalls += u64::from(n_short);
                 t.member_defaults += u64::from(defaulting_members);
+                t.able_members += (k as u32 - n_short) as u64;
+                t.strategic_defaults += u64::from(n_walked);
                 t.shortfall_free_groups += u64::from(n_short == 0);
                 t.count_group_shortfalls(k, n_short as usize);
                 t.due += group_due;
@@ -193,32 +359,36 @@ impl ArmReplication<'_> {
     /// [`settlement`](Self::settlement) (which has just run on the same capacities). Called only
     /// when a book is being written, so the settlement's own loop carries no recording cost.
     pub(super) fn record_loans(&mut self, v: usize, cycle: u32) {
+        let terms = self.terms();
         let Some(book) = self.book.as_deref_mut() else {
             return;
         };
-        let d = self.due;
-        let principal = self.arm.principal();
         let lambda = self.policy.peer_cover();
         let joint = self.policy.liability() == Liability::Joint;
         let (pool, layout) = (&self.pool, &self.layout);
-        for (number, group) in self.groups.iter_from(self.groups.village_first[v]).enumerate() {
-            let k = group.len() as f64;
+        for ((number, group), &repaid) in self
+            .groups
+            .iter_from(self.groups.village_first[v])
+            .enumerate()
+            .zip(&self.group_repaid[self.groups.village_first[v]..])
+        {
             let mut sums = GroupPosition::default();
             for &i in group {
-                let position = member_position(capacity(pool, i as usize, d), d);
+                let (_, position) = terms.position(pool, i as usize, cycle);
                 sums.shortfall += position.shortfall;
                 sums.surplus += position.surplus;
                 sums.paid_own += position.paid_own;
             }
             // Individual liability has no cover; a repaid joint group pays every loan in full; a
-            // defaulted one shares the peers' cover among the short members by their shortfalls.
-            let settlement = joint.then(|| settle_joint(sums, k * d, k * principal, lambda));
+            // defaulted one shares the peers' cover among the loans with an unpaid amount (short or
+            // walked away) in proportion to those amounts.
             for &i in group {
                 let i = i as usize;
-                let position = member_position(capacity(pool, i, d), d);
-                let paid = match settlement {
-                    Some(s) if s.repaid => d,
-                    Some(_) if position.shortfall > 0.0 => {
+                let (_, position) = terms.position(pool, i, cycle);
+                let due = terms.loan(pool, i).1;
+                let paid = match (joint, repaid) {
+                    (true, true) => due,
+                    (true, false) if position.shortfall > 0.0 => {
                         position.paid_own + lambda * sums.surplus * position.shortfall / sums.shortfall
                     }
                     _ => position.paid_own,
@@ -229,8 +399,8 @@ impl ArmReplication<'_> {
                     group: number as u32,
                     slot: layout.slot_of(v, i),
                     entrant: pool.entrants[i].wrapping_sub(1),
-                    due: d,
-                    paid: paid.min(d),
+                    due,
+                    paid: paid.min(due),
                     own_paid: position.paid_own,
                 });
             }

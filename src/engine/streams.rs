@@ -42,6 +42,9 @@ pub enum Purpose {
     Dropout = 10,
     /// Attributes of a new entrant, keyed by (slot, occupant number).
     Entry = 11,
+    /// Whether a member able to pay walks away: one uniform per (slot, cycle), with the occupant
+    /// number folded in (see [`occupant_word`]).
+    Temptation = 12,
 }
 
 /// Word offset of the per-slot fallback region (far beyond any primary block).
@@ -93,6 +96,19 @@ pub fn cycle_stream_id(purpose: Purpose, cycle: u32, shock: usize, village: u32)
 /// Stream identifier of an entrant's attributes: purpose (4 bits), slot (28), occupant number (32).
 pub fn entry_stream_id(slot: u32, occupant: u32) -> u64 {
     ((Purpose::Entry as u64) << 60) | (u64::from(slot) << 32) | u64::from(occupant)
+}
+
+/// A person's own word from her slot's word: the slot's word (from the per-(cycle, village) stream
+/// of its purpose) with the occupant number folded in by the SplitMix64 finaliser (Steele, Lea and
+/// Flood 2014), a bijection of 64-bit words. Within an arm a slot has one occupant per cycle, so the
+/// words of different people and cycles come from disjoint stream words and are independent; across
+/// arms the same person in the same cycle gets the same word, and a replacement gets another.
+#[inline]
+pub fn occupant_word(slot_word: u64, occupant: u32) -> u64 {
+    let mut z = slot_word ^ u64::from(occupant).wrapping_mul(0x9e37_79b9_7f4a_7c15);
+    z = (z ^ (z >> 30)).wrapping_mul(0xbf58_476d_1ce4_e5b9);
+    z = (z ^ (z >> 27)).wrapping_mul(0x94d0_49bb_1331_11eb);
+    z ^ (z >> 31)
 }
 
 /// A uniform double in [0, 1) from the top 53 bits of a word (the shared conversion).

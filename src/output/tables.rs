@@ -159,6 +159,11 @@ pub struct SummaryRow<'a> {
     entrant_rate: Cell,
     clients_reached: Cell,
     removed_share: Cell,
+    strategic_default_rate: Cell,
+    strategic_default_ci_low: Cell,
+    strategic_default_ci_high: Cell,
+    able_members: u64,
+    mean_principal: Cell,
 }
 
 impl<'a> SummaryRow<'a> {
@@ -169,6 +174,8 @@ impl<'a> SummaryRow<'a> {
         let (group_repayment_rate, group_repayment_ci_low, group_repayment_ci_high, group_repayment_se) =
             cells(s.group_repayment);
         let (loss_rate, loss_rate_ci_low, loss_rate_ci_high, loss_rate_se) = cells(s.loss_rate);
+        let (strategic_default_rate, strategic_default_ci_low, strategic_default_ci_high, _) =
+            cells(s.strategic_default_rate);
         SummaryRow {
             arm: a.arm.label(),
             group_size: p.group_size(),
@@ -247,6 +254,11 @@ impl<'a> SummaryRow<'a> {
             entrant_rate: Cell(s.entrant_rate),
             clients_reached: Cell(s.clients_reached),
             removed_share: Cell(s.removed_share),
+            strategic_default_rate,
+            strategic_default_ci_low,
+            strategic_default_ci_high,
+            able_members: s.able_members,
+            mean_principal: Cell(s.mean_principal),
         }
     }
 }
@@ -328,6 +340,10 @@ struct ReplicationRow<'a> {
     clients_reached: u64,
     removed_slot_cycles: u64,
     removed_share: Cell,
+    strategic_default_rate: Cell,
+    strategic_defaults: u64,
+    able_members: u64,
+    mean_principal: Cell,
 }
 
 /// replications.csv: one row per arm and replication, in arm order then replication order.
@@ -363,6 +379,10 @@ pub fn replications_csv(report: &RunReport) -> Vec<u8> {
             clients_reached: r.clients_reached,
             removed_slot_cycles: r.removed_slot_cycles,
             removed_share: Cell(r.removed_share()),
+            strategic_default_rate: Cell(r.strategic_default_rate()),
+            strategic_defaults: r.strategic_defaults,
+            able_members: r.able_members,
+            mean_principal: Cell(r.mean_principal()),
         })
     }))
 }

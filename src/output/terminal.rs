@@ -107,6 +107,7 @@ pub fn summary_table(report: &RunReport) -> String {
          single-cycle loss (both with order-statistic intervals in summary.csv)"
     );
     outreach_table(&mut out, report, width);
+    behaviour_table(&mut out, report, width);
     if let (true, Some(baseline)) = (report.arms.len() > 1, &report.baseline) {
         let _ = writeln!(
             out,
@@ -327,4 +328,40 @@ fn outreach_table(out: &mut String, report: &RunReport, width: usize) {
         }
         let _ = writeln!(out, "{line}");
     }
+}
+
+/// Walk-aways and loan sizes per arm, printed only when some arm has `[behaviour]`, growing loans or
+/// growing incomes: without them nobody walks away and every loan is the first principal.
+fn behaviour_table(out: &mut String, report: &RunReport, width: usize) {
+    let dynamic = report
+        .arms
+        .iter()
+        .any(|a| a.arm.behaviour().is_some() || a.arm.loan_growth() > 0.0 || a.arm.income_growth() > 0.0);
+    if !dynamic {
+        return;
+    }
+    let _ = writeln!(
+        out,
+        "{:<width$}  {:>20}  {:>14}  {:>14}",
+        "arm", "walked away (95%)", "able to pay", "mean principal"
+    );
+    for a in &report.arms {
+        let s = &a.summary;
+        let walked = s
+            .strategic_default_rate
+            .map_or("-".into(), |w| with_interval(w.rate, w.standard_error, 3, "%", false));
+        let _ = writeln!(
+            out,
+            "{:<width$}  {:>20}  {:>14}  {:>14}",
+            a.arm.label(),
+            walked,
+            s.able_members,
+            s.mean_principal.map_or_else(|| "-".into(), |p| format!("{p:.2}"))
+        );
+    }
+    let _ = writeln!(
+        out,
+        "walked away: members able to pay who chose not to (strategic_default_rate); able to pay: their \
+         number over all counted cycles; mean principal: disbursed / member loans"
+    );
 }

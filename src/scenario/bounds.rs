@@ -22,6 +22,10 @@ pub enum Bound {
     Share,
     /// In [0, 1), read as a probability.
     ProbabilityBelowOne,
+    /// Strictly between 0 and 1 (a discount factor).
+    OpenUnit,
+    /// >= 1 and <= the given maximum (a multiple of the first loan).
+    OneToAtMost(f64),
     /// An integer in [min, max] (a max of `u32::MAX` only reflects the storage type).
     Count(u32, u32),
     /// A seed: an integer in [0, i64::MAX] (a TOML integer).
@@ -41,6 +45,8 @@ impl Bound {
             Bound::NonNegativeAtMost(max) => (0.0..=max).contains(&x),
             Bound::Probability | Bound::Share => (0.0..=1.0).contains(&x),
             Bound::ProbabilityBelowOne => (0.0..1.0).contains(&x),
+            Bound::OpenUnit => x > 0.0 && x < 1.0,
+            Bound::OneToAtMost(max) => (1.0..=max).contains(&x),
             Bound::Count(min, max) => x.fract() == 0.0 && x >= f64::from(min) && x <= f64::from(max),
             Bound::Seed => x.fract() == 0.0 && x >= 0.0 && x <= i64::MAX as f64,
             Bound::Typed(_) => true,
@@ -57,6 +63,8 @@ impl Bound {
             Bound::Probability => "a probability in [0, 1]".into(),
             Bound::Share => "a share in [0, 1]".into(),
             Bound::ProbabilityBelowOne => "a probability in [0, 1)".into(),
+            Bound::OpenUnit => "a number strictly between 0 and 1".into(),
+            Bound::OneToAtMost(max) => format!("a number in [1, {max:e}]{}", why(max)),
             Bound::Count(min, u32::MAX) => format!("an integer >= {min}"),
             Bound::Count(min, max) => format!("an integer in [{min}, {max}]"),
             Bound::Seed => format!("an integer in [0, {}] (a TOML integer)", i64::MAX),
@@ -77,6 +85,19 @@ pub const MAX_INTEREST_RATE: f64 = 1e3;
 /// distribution's mean): a million times what the borrower owes.
 pub const MAX_INCOME: f64 = 1e6;
 
+/// The largest growth rate of a principal or an income ratio per cycle: a tenfold rise each cycle,
+/// far above any lender's progressive schedule.
+pub const MAX_GROWTH: f64 = 9.0;
+/// The largest cap on a principal in multiples of the first loan; with `MAX_PRINCIPAL` it keeps every
+/// amount due below 1e12 x 1e3 x (1 + 1e3) ~ 1e18, so every sum stays finite.
+pub const MAX_MULTIPLE: f64 = 1e3;
+/// The largest factor by which an income ratio may grow over a run, (1 + income_growth)^(warmup +
+/// cycles): with `MAX_INCOME` it keeps every capacity, and every sum of them, finite.
+pub const MAX_INCOME_GROWTH_FACTOR: f64 = 1e6;
+/// The largest temptation or social sanction (units of the amount due): beyond it nobody able to
+/// pay ever behaves differently, and it keeps thresholds finite.
+pub const MAX_BEHAVIOUR_UNITS: f64 = 1e6;
+
 /// Why a money bound is where it is, as messages say it.
 fn why(max: f64) -> &'static str {
     if max == MAX_PRINCIPAL {
@@ -85,6 +106,10 @@ fn why(max: f64) -> &'static str {
         " (an income ratio; far above any real borrower's; it keeps every sum of money finite)"
     } else if max == MAX_INTEREST_RATE {
         " (a rate per cycle; far above any real lender's; it keeps every sum of money finite)"
+    } else if max == MAX_GROWTH {
+        " (a growth rate per cycle; 9 is a tenfold rise each cycle)"
+    } else if max == MAX_MULTIPLE {
+        " (a multiple of the first loan; it keeps every sum of money finite)"
     } else {
         ""
     }
@@ -164,6 +189,13 @@ pub const FIELDS: &[Field] = &[
     line("policy.min_group_size", Bound::Count(1, u32::MAX), Some(|r, _, v| put(&mut r.policy.min_group_size, v))),
     line("policy.max_group_size", Bound::Count(1, u32::MAX), Some(|r, _, v| put(&mut r.policy.max_group_size, v))),
     line("policy.size_slack", Bound::Count(0, u32::MAX), Some(|r, _, v| put(&mut r.policy.size_slack, v))),
+    line("loan.growth", Bound::NonNegativeAtMost(MAX_GROWTH), Some(|r, _, v| put(&mut r.loan.growth, v))),
+    line("loan.max_multiple", Bound::OneToAtMost(MAX_MULTIPLE), Some(|r, _, v| put(&mut r.loan.max_multiple, v))),
+    line("borrowers.income_growth", Bound::NonNegativeAtMost(MAX_GROWTH), Some(|r, _, v| put(&mut r.borrowers.income_growth, v))),
+    line("behaviour.loan_value", Bound::NonNegativeAtMost(MAX_BEHAVIOUR_UNITS), Some(|r, _, v| put(&mut r.behaviour.get_or_insert_with(Default::default).loan_value, v))),
+    line("behaviour.discount", Bound::OpenUnit, Some(|r, _, v| put(&mut r.behaviour.get_or_insert_with(Default::default).discount, v))),
+    line("behaviour.temptation", Bound::Typed("a number >= 0 or a distribution table (fixed, uniform, lognormal, gamma, beta)"), None),
+    line("behaviour.social_sanction", Bound::NonNegativeAtMost(MAX_BEHAVIOUR_UNITS), Some(|r, _, v| put(&mut r.behaviour.get_or_insert_with(Default::default).social_sanction, v))),
     line("pool.dropout", Bound::ProbabilityBelowOne, Some(|r, _, v| put(&mut r.pool.dropout, v))),
     line("pool.replace_departures", Bound::Typed("true or false"), Some(|r, _, v| put(&mut r.pool.replace_departures, v))),
 ];

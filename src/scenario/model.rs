@@ -201,6 +201,80 @@ impl Policy {
     }
 }
 
+/// How a member able to pay weighs walking away against keeping access (the `[behaviour]` table).
+///
+/// Why it exists: without it nobody defaults by choice, so exclusion could raise repayment only by
+/// removing people. With it, the threshold a member's temptation must beat grows with the value of
+/// the access she would lose, which is what makes the length of exclusion a deterrent.
+#[derive(Debug, Clone, Serialize)]
+pub struct Behaviour {
+    /// B >= 0: net benefit of one more cycle of access, in units of her current amount due.
+    loan_value: f64,
+    /// delta in (0, 1): the discount factor per cycle.
+    discount: f64,
+    /// T >= 0 in units of her amount due, drawn per member per cycle.
+    temptation: Distribution,
+    /// What fellow members impose on a member who walks away (joint liability only), in units of
+    /// her amount due.
+    social_sanction: f64,
+}
+
+impl Behaviour {
+    /// A validated behaviour table (validation checks every bound before calling this).
+    pub fn new(loan_value: f64, discount: f64, temptation: Distribution, social_sanction: f64) -> Self {
+        Behaviour {
+            loan_value,
+            discount,
+            temptation,
+            social_sanction,
+        }
+    }
+    /// B: net benefit of one more cycle of access, in units of her current amount due.
+    pub fn loan_value(&self) -> f64 {
+        self.loan_value
+    }
+    /// delta: the discount factor per cycle.
+    pub fn discount(&self) -> f64 {
+        self.discount
+    }
+    /// The temptation distribution, in units of her amount due.
+    pub fn temptation(&self) -> &Distribution {
+        &self.temptation
+    }
+    /// The social sanction, in units of her amount due (applied under joint liability only).
+    pub fn social_sanction(&self) -> f64 {
+        self.social_sanction
+    }
+
+    /// delta + delta^2 + ... + delta^E: the discounted cycles of access an exclusion of E cycles
+    /// takes away (delta / (1 - delta) when permanent, 0 when E = 0).
+    pub fn discounted_cycles_lost(&self, exclusion: Exclusion) -> f64 {
+        let d = self.discount;
+        match exclusion {
+            Exclusion::Cycles(0) => 0.0,
+            Exclusion::Cycles(e) => d * (1.0 - d.powf(f64::from(e))) / (1.0 - d),
+            Exclusion::Permanent => d / (1.0 - d),
+        }
+    }
+
+    /// The threshold T must exceed for a member able to pay to walk away, with growth ratio `g`
+    /// (next principal if she pays over current principal), exclusion `exclusion` and whether the
+    /// group is jointly liable: B g (delta + ... + delta^E), plus the social sanction under joint
+    /// liability. The rule treats the penalty as certain although peers may cover for her.
+    pub fn threshold(&self, g: f64, exclusion: Exclusion, joint: bool) -> f64 {
+        let sanction = if joint { self.social_sanction } else { 0.0 };
+        self.loan_value * g * self.discounted_cycles_lost(exclusion) + sanction
+    }
+}
+
+fn is_zero(x: &f64) -> bool {
+    *x == 0.0
+}
+
+fn is_one(x: &f64) -> bool {
+    *x == 1.0
+}
+
 /// One swept value of an arm: the path as `[sweep]` names it and the value.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize)]
 pub struct SweptValue {
@@ -250,6 +324,18 @@ pub struct Arm {
     /// Whether emptied slots get new entrants.
     #[serde(skip)]
     pub(crate) replace_departures: bool,
+    /// Strategic default (`[behaviour]`); `None`: nobody defaults by choice.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub(crate) behaviour: Option<Behaviour>,
+    /// Growth of a member's principal after a cycle she repaid herself (`[loan] growth`), >= 0.
+    #[serde(skip_serializing_if = "is_zero")]
+    pub(crate) loan_growth: f64,
+    /// The cap on a member's principal, in multiples of the first loan (`[loan] max_multiple`), >= 1.
+    #[serde(skip_serializing_if = "is_one")]
+    pub(crate) max_multiple: f64,
+    /// Growth of a member's income ratio per cycle since her entry (`[borrowers] income_growth`), >= 0.
+    #[serde(skip_serializing_if = "is_zero")]
+    pub(crate) income_growth: f64,
 }
 
 impl Arm {
@@ -300,6 +386,49 @@ impl Arm {
     /// Whether emptied slots get new entrants.
     pub fn replace_departures(&self) -> bool {
         self.replace_departures
+    }
+    /// Strategic default, when the scenario has a `[behaviour]` table.
+    pub fn behaviour(&self) -> Option<&Behaviour> {
+        self.behaviour.as_ref()
+    }
+    /// Growth of a member's principal after a cycle she repaid herself.
+    pub fn loan_growth(&self) -> f64 {
+        self.loan_growth
+    }
+    /// The cap on a member's principal, in multiples of the first loan.
+    pub fn max_multiple(&self) -> f64 {
+        self.max_multiple
+    }
+    /// Growth of a member's income ratio per cycle since her entry.
+    pub fn income_growth(&self) -> f64 {
+        self.income_growth
+    }
+    /// Whether principals can differ between members (loans grow): group sums then add the
+    /// members' own amounts instead of multiplying one amount by the group size.
+    pub fn progressive(&self) -> bool {
+        self.loan_growth > 0.0 && self.max_multiple > 1.0
+    }
+    /// The first input that puts this arm outside the exact one-factor class through borrower
+    /// behaviour or growing loans and incomes, as a reason sentence; `None` when there is none.
+    pub fn dynamic_reason(&self) -> Option<String> {
+        if self.behaviour.is_some() {
+            Some(
+                "[behaviour] is set: members able to pay may walk away, which the exact one-factor class leaves out"
+                    .into(),
+            )
+        } else if self.progressive() {
+            Some(format!(
+                "loan.growth = {} makes principals depend on each member's history, which the exact one-factor class leaves out",
+                self.loan_growth
+            ))
+        } else if self.income_growth > 0.0 {
+            Some(format!(
+                "borrowers.income_growth = {} makes incomes change over time, which the exact one-factor class leaves out",
+                self.income_growth
+            ))
+        } else {
+            None
+        }
     }
 }
 
@@ -425,6 +554,10 @@ impl Scenario {
                 shocks: self.shocks.clone(),
                 dropout: self.dropout,
                 replace_departures: self.replace_departures,
+                behaviour: None,
+                loan_growth: 0.0,
+                max_multiple: 1.0,
+                income_growth: 0.0,
             })
             .collect();
         self

@@ -351,6 +351,10 @@ pub struct RawLoan {
     pub interest_rate: Option<W<Num>>,
     /// Share of unpaid principal recovered.
     pub recovery_rate: Option<W<Num>>,
+    /// Growth of a member's principal after a cycle she repaid herself.
+    pub growth: Option<W<Num>>,
+    /// The cap on a member's principal, in multiples of the first loan.
+    pub max_multiple: Option<W<Num>>,
 }
 
 /// The `[borrowers]` table.
@@ -361,6 +365,22 @@ pub struct RawBorrowers {
     pub income: Option<W<RawDist>>,
     /// Risk multiplier distribution.
     pub risk: Option<W<RawDist>>,
+    /// Growth of the income ratio per cycle since entry.
+    pub income_growth: Option<W<Num>>,
+}
+
+/// The `[behaviour]` table (strategic default); absent means nobody defaults by choice.
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields, expecting = "a [behaviour] table")]
+pub struct RawBehaviour {
+    /// Required: net benefit of one more cycle of access, in units of the amount due.
+    pub loan_value: Option<W<Num>>,
+    /// Required: discount factor per cycle.
+    pub discount: Option<W<Num>>,
+    /// Required: temptation distribution, in units of the amount due.
+    pub temptation: Option<W<RawDist>>,
+    /// What peers impose on a member who walks away (joint liability), in units of the amount due.
+    pub social_sanction: Option<W<Num>>,
 }
 
 /// The `[policy]` table.
@@ -564,6 +584,9 @@ pub struct RawScenario {
     /// `[pool]`.
     #[serde(default)]
     pub pool: RawPool,
+    /// `[behaviour]`: strategic default, when written.
+    #[serde(default)]
+    pub behaviour: Option<RawBehaviour>,
     /// `[sweep]`.
     #[serde(default)]
     pub sweep: RawSweep,

@@ -13,8 +13,8 @@ use super::raw::{
 };
 use super::sweep::{self, Axis};
 use super::{
-    Arm, Exclusion, ExclusionScope, Liability, Policy, Scenario, ScenarioError, Shock, ShockProbability, ShockScope,
-    StressWindow, SweptValue, limits,
+    Arm, Behaviour, Exclusion, ExclusionScope, Liability, Policy, Scenario, ScenarioError, Shock, ShockProbability,
+    ShockScope, StressWindow, SweptValue, limits,
 };
 use crate::curve::{CurveError, GroupSizeCurve};
 use crate::dist::{Distribution, DistributionError};
@@ -217,6 +217,10 @@ fn same_model_warnings(arms: &[Arm]) -> Vec<String> {
             shocks: &arm.shocks,
             dropout: arm.dropout,
             replace_departures: arm.replace_departures,
+            behaviour: arm.behaviour.as_ref(),
+            loan_growth: arm.loan_growth,
+            max_multiple: arm.max_multiple,
+            income_growth: arm.income_growth,
         })
         .unwrap_or_default();
         match seen.get(&key) {
@@ -247,6 +251,10 @@ struct ModelKey<'a> {
     shocks: &'a [Shock],
     dropout: f64,
     replace_departures: bool,
+    behaviour: Option<&'a Behaviour>,
+    loan_growth: f64,
+    max_multiple: f64,
+    income_growth: f64,
 }
 
 /// What every arm shares.
@@ -576,6 +584,9 @@ impl Checker<'_> {
             policy.max_group_size = Some(self.count("policy.max_group_size", "policy.max_group_size", w, None)?);
         }
 
+        let (loan_growth, max_multiple, income_growth) = self.growth(raw, common)?;
+        let behaviour = self.behaviour(raw)?;
+
         let dropout = self.real_or("pool.dropout", "pool.dropout", raw.pool.dropout.as_ref(), 0.0)?;
         let replace_departures = raw.pool.replace_departures.as_ref().is_none_or(|w| w.value);
 
@@ -594,7 +605,72 @@ impl Checker<'_> {
             shocks,
             dropout,
             replace_departures,
+            behaviour,
+            loan_growth,
+            max_multiple,
+            income_growth,
         })
+    }
+
+    /// `[loan] growth` and `max_multiple`, and `[borrowers] income_growth`, whose growth over the
+    /// whole run must keep capacities finite.
+    fn growth(&self, raw: &RawScenario, common: &Common) -> Result<(f64, f64, f64)> {
+        let loan = &raw.loan;
+        let growth = self.real_or("loan.growth", "loan.growth", loan.growth.as_ref(), 0.0)?;
+        let max_multiple = self.real_or(
+            "loan.max_multiple",
+            "loan.max_multiple",
+            loan.max_multiple.as_ref(),
+            1.0,
+        )?;
+        let w = raw.borrowers.income_growth.as_ref();
+        let income_growth = self.real_or("borrowers.income_growth", "borrowers.income_growth", w, 0.0)?;
+        let factor = (1.0 + income_growth).powf(f64::from(common.total_cycles));
+        if let Some(w) = w.filter(|_| factor > bounds::MAX_INCOME_GROWTH_FACTOR) {
+            return Err(self.invalid(
+                "borrowers.income_growth",
+                Some(&w.origin),
+                self.written(w, || w.value.text()),
+                format!(
+                    "a number with (1 + income_growth)^{} <= {:e} over the run's {} cycles, warm-up included \
+                     (it keeps every capacity finite)",
+                    common.total_cycles,
+                    bounds::MAX_INCOME_GROWTH_FACTOR,
+                    common.total_cycles
+                ),
+            ));
+        }
+        Ok((growth, max_multiple, income_growth))
+    }
+
+    /// The `[behaviour]` table, when written: `loan_value`, `discount` and `temptation` are
+    /// required, `social_sanction` defaults to 0.
+    fn behaviour(&self, raw: &RawScenario) -> Result<Option<Behaviour>> {
+        let Some(b) = &raw.behaviour else {
+            return Ok(None);
+        };
+        let w = self.required("behaviour.loan_value", b.loan_value.as_ref(), "behaviour.loan_value")?;
+        let loan_value = self.real("behaviour.loan_value", "behaviour.loan_value", w)?;
+        let w = self.required("behaviour.discount", b.discount.as_ref(), "behaviour.discount")?;
+        let discount = self.real("behaviour.discount", "behaviour.discount", w)?;
+        let temptation_w = self.required("behaviour.temptation", b.temptation.as_ref(), "behaviour.temptation")?;
+        let temptation = self.distribution("behaviour.temptation", Some(temptation_w), false)?;
+        let cap = Bound::NonNegativeAtMost(bounds::MAX_BEHAVIOUR_UNITS);
+        if !cap.admits(temptation.mean()) {
+            return Err(self.invalid(
+                "behaviour.temptation",
+                Some(&temptation_w.origin),
+                self.written(temptation_w, || temptation.mean().to_string()),
+                format!("a temptation whose mean is {}", cap.text()),
+            ));
+        }
+        let social_sanction = self.real_or(
+            "behaviour.social_sanction",
+            "behaviour.social_sanction",
+            b.social_sanction.as_ref(),
+            0.0,
+        )?;
+        Ok(Some(Behaviour::new(loan_value, discount, temptation, social_sanction)))
     }
 
     /// `exclusion_cycles`: a count no longer than the run (longer cannot change anything and would

@@ -53,6 +53,12 @@ pub struct ReplicationFigures {
     /// Slot-cycles empty after a removal, not yet refilled (numerator of the removed share).
     #[serde(default)]
     pub removed_slot_cycles: u64,
+    /// Members able to pay who walked away (numerator of the strategic default rate).
+    #[serde(default)]
+    pub strategic_defaults: u64,
+    /// Members able to pay (its denominator).
+    #[serde(default)]
+    pub able_members: u64,
 }
 
 fn ratio(num: f64, den: f64) -> Option<f64> {
@@ -81,6 +87,8 @@ impl ReplicationFigures {
             entrants: t.entrants,
             clients_reached: t.clients_reached,
             removed_slot_cycles: t.removed_slot_cycles,
+            strategic_defaults: t.strategic_defaults,
+            able_members: t.able_members,
         }
     }
 
@@ -125,6 +133,15 @@ impl ReplicationFigures {
         ratio(self.removed_slot_cycles as f64, self.slot_cycles as f64)
     }
 
+    /// Walk-aways / members able to pay.
+    pub fn strategic_default_rate(&self) -> Option<f64> {
+        ratio(self.strategic_defaults as f64, self.able_members as f64)
+    }
+    /// Principal disbursed / member loans: the mean loan size.
+    pub fn mean_principal(&self) -> Option<f64> {
+        ratio(self.disbursed, self.member_loans as f64)
+    }
+
     /// A tally holding what these figures hold (0-based replication), for the comparisons and the
     /// quantile constraints; the
     /// served share's denominator is kept as served plus excluded plus waiting slot-cycles.
@@ -139,6 +156,8 @@ impl ReplicationFigures {
             disbursed: self.disbursed,
             collected: self.collected,
             recovered: self.recovered,
+            strategic_defaults: self.strategic_defaults,
+            able_members: self.able_members,
             served_slot_cycles: self.served_slot_cycles,
             excluded_slot_cycles: self.excluded_slot_cycles,
             waiting_slot_cycles: self

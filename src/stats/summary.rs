@@ -124,6 +124,12 @@ pub struct ArmSummary {
     pub worst_cycle_loss_p99_ci_low: Option<f64>,
     /// Upper end of that interval.
     pub worst_cycle_loss_p99_ci_high: Option<f64>,
+    /// Members able to pay who walked away / members able to pay, with its interval.
+    pub strategic_default_rate: Option<Interval>,
+    /// Members able to pay (capacity at least the amount due), summed over counted cycles.
+    pub able_members: u64,
+    /// Principal disbursed / member loans: the mean loan size, which grows with progressive lending.
+    pub mean_principal: Option<f64>,
 }
 
 /// A rate with its 95% interval (empty ends with fewer than 2 replications).
@@ -312,6 +318,13 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
         worst_cycle_loss_p95_ci_high,
         worst_cycle_loss_p99_ci_low,
         worst_cycle_loss_p99_ci_high,
+        strategic_default_rate: estimate::ratio(
+            reps.iter()
+                .map(|r| (r.strategic_defaults as f64, r.able_members as f64)),
+        )
+        .map(Interval::from),
+        able_members: sum_u(|r| r.able_members),
+        mean_principal: fraction(disbursed, member_loans as f64),
     }
 }
 

@@ -45,6 +45,13 @@ pub struct ReplicationTally {
     pub member_shortfalls: u64,
     /// Members of defaulting groups (joint) or defaulting members (individual).
     pub member_defaults: u64,
+    /// Members able to pay (capacity at least the amount due): the denominator of the strategic
+    /// default rate.
+    #[serde(default)]
+    pub able_members: u64,
+    /// Members able to pay who walked away.
+    #[serde(default)]
+    pub strategic_defaults: u64,
     /// Amount due.
     pub due: f64,
     /// Amount collected.
