@@ -36,6 +36,7 @@
 
 pub mod analytic;
 pub mod board;
+pub mod checkpoint;
 pub mod companion;
 pub mod curve;
 pub mod demo;
@@ -49,6 +50,7 @@ pub mod output;
 pub mod report;
 pub mod run;
 pub mod scenario;
+pub mod shard;
 pub mod stats;
 pub mod stored;
 
