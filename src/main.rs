@@ -584,6 +584,7 @@ fn execute(command: Command) -> Result<(), Failure> {
                 let file = file.as_ref().map_or(String::new(), |f| format!(" {}", f.display()));
                 format!("continue with: loancycle run{file} --out {} --resume", out.display())
             };
+            writer.sync().map_err(|e| Failure::Running(e.to_string()))?;
             if let Some(done_path) = &final_shard {
                 if partial.complete() {
                     std::fs::rename(&checkpoint_path, done_path).map_err(|e| {
@@ -655,7 +656,6 @@ fn execute(command: Command) -> Result<(), Failure> {
                 paths.push(staged.commit().map_err(|e| Failure::Running(e.to_string()))?);
             }
             if signal() != 0 {
-                drop(writer);
                 if !quiet {
                     for p in &paths {
                         println!("wrote {}", p.display());
