@@ -35,6 +35,7 @@
 //! ```
 
 pub mod analytic;
+pub mod bench;
 pub mod board;
 pub mod checkpoint;
 pub mod companion;

@@ -84,6 +84,16 @@ enum Command {
         #[arg(long)]
         report: bool,
     },
+    /// Draw the random numbers a scenario's run needs, with no model logic, and print the rate: the
+    /// bound scripts/bench.sh compares the engine with.
+    #[command(hide = true)]
+    BenchDraws {
+        /// Scenario file (TOML).
+        file: PathBuf,
+        /// Worker threads (default: all cores).
+        #[arg(long, value_parser = clap::value_parser!(u16).range(1..))]
+        threads: Option<u16>,
+    },
     /// Redo comparisons from a finished run's files (summary.json, replications.csv), without
     /// simulating again.
     Compare {
@@ -457,6 +467,23 @@ fn execute(command: Command) -> Result<(), Failure> {
                 (None, None) => None,
             };
             compare_command(&dir, baseline.as_deref(), objective, &subject_to, json)
+        }
+        Command::BenchDraws { file, threads } => {
+            let (scenario, _, _) = load(Some(&file))?;
+            let options = run::RunOptions {
+                threads: threads.map(usize::from),
+            };
+            let started = std::time::Instant::now();
+            let drawn = loancycle::bench::bare_draws(&scenario, options).map_err(|e| Failure::Running(e.to_string()))?;
+            let seconds = started.elapsed().as_secs_f64();
+            println!(
+                "drew for {} member-cycles in {:.2} s ({:.1} million per second; checksum {:.6e})",
+                drawn.member_cycles,
+                seconds,
+                drawn.member_cycles as f64 / seconds / 1e6,
+                drawn.checksum
+            );
+            Ok(())
         }
         Command::DemoScenario => {
             print!("{}", demo::BASELINE);
