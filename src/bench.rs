@@ -91,7 +91,12 @@ fn replication_draws(scenario: &Scenario, arm: usize, replication: u32) -> f64 {
             }
             for (si, shock) in arm.shocks().iter().enumerate() {
                 if shock.scope() == ShockScope::Member {
-                    dense.fill(&key, cycle_stream_id(Purpose::MemberShock, cycle, si, v), size as usize, 2);
+                    dense.fill(
+                        &key,
+                        cycle_stream_id(Purpose::MemberShock, cycle, si, v),
+                        size as usize,
+                        2,
+                    );
                     sum += uniforms(&dense, size);
                 }
             }

@@ -474,7 +474,8 @@ fn execute(command: Command) -> Result<(), Failure> {
                 threads: threads.map(usize::from),
             };
             let started = std::time::Instant::now();
-            let drawn = loancycle::bench::bare_draws(&scenario, options).map_err(|e| Failure::Running(e.to_string()))?;
+            let drawn =
+                loancycle::bench::bare_draws(&scenario, options).map_err(|e| Failure::Running(e.to_string()))?;
             let seconds = started.elapsed().as_secs_f64();
             println!(
                 "drew for {} member-cycles in {:.2} s ({:.1} million per second; checksum {:.6e})",
@@ -570,6 +571,18 @@ fn execute(command: Command) -> Result<(), Failure> {
                         "--resume: {} is already complete; nothing to continue",
                         done.display()
                     )));
+                }
+            }
+            if let (Some(earlier), false) = (&final_shard, resume) {
+                // A shard run again with --force: the earlier file must not be merged meanwhile.
+                if earlier.exists() {
+                    std::fs::remove_file(earlier).map_err(|e| {
+                        Failure::Running(format!(
+                            "cannot remove {}: {}",
+                            earlier.display(),
+                            e.to_string().to_lowercase()
+                        ))
+                    })?;
                 }
             }
             let header = loancycle::checkpoint::Header::new(&scenario, &text, &origin, baseline, shard, range.clone());
@@ -679,6 +692,7 @@ fn execute(command: Command) -> Result<(), Failure> {
             // what it finished, marked incomplete, beside its checkpoint.
             let mut paths =
                 output::write_all(&out, &report, true, &|| false).map_err(|e| Failure::Running(e.to_string()))?;
+            let book_written = book.is_some();
             if let Some(staged) = book {
                 paths.push(staged.commit().map_err(|e| Failure::Running(e.to_string()))?);
             }
@@ -700,7 +714,7 @@ fn execute(command: Command) -> Result<(), Failure> {
                     format!(
                         "the simulation had finished; complete results written to {}{}",
                         out.display(),
-                        if loan_book.is_some() {
+                        if loan_book.is_some() && !book_written {
                             " (the loan book was not written)"
                         } else {
                             ""
