@@ -565,25 +565,25 @@ fn execute(command: Command) -> Result<(), Failure> {
                     Failure::Running(e.to_string())
                 }
             })?;
-            if let (Some(done), true, false) = (&final_shard, resume, checkpoint_path.exists()) {
-                if done.exists() {
-                    return Err(Failure::BadInput(format!(
-                        "--resume: {} is already complete; nothing to continue",
-                        done.display()
-                    )));
-                }
+            if let (Some(done), true, false) = (&final_shard, resume, checkpoint_path.exists())
+                && done.exists()
+            {
+                return Err(Failure::BadInput(format!(
+                    "--resume: {} is already complete; nothing to continue",
+                    done.display()
+                )));
             }
-            if let (Some(earlier), false) = (&final_shard, resume) {
-                // A shard run again with --force: the earlier file must not be merged meanwhile.
-                if earlier.exists() {
-                    std::fs::remove_file(earlier).map_err(|e| {
-                        Failure::Running(format!(
-                            "cannot remove {}: {}",
-                            earlier.display(),
-                            e.to_string().to_lowercase()
-                        ))
-                    })?;
-                }
+            // A shard run again with --force: the earlier file must not be merged meanwhile.
+            if let (Some(earlier), false) = (&final_shard, resume)
+                && earlier.exists()
+            {
+                std::fs::remove_file(earlier).map_err(|e| {
+                    Failure::Running(format!(
+                        "cannot remove {}: {}",
+                        earlier.display(),
+                        e.to_string().to_lowercase()
+                    ))
+                })?;
             }
             let header = loancycle::checkpoint::Header::new(&scenario, &text, &origin, baseline, shard, range.clone());
             let (mut writer, already) =
