@@ -482,8 +482,10 @@ mod tests {
         b["arms"][1]["policy"]["k"] = 7.into();
         assert_eq!(first_difference(&a, &b).as_deref(), Some("arms[1].policy.k"));
         assert_eq!(value_at(&b, "arms[1].policy.k"), "7");
+        b["arms"][1]["policy"]["k"] = 6.into();
         b["seed"] = 2.into();
         assert_eq!(first_difference(&a, &b).as_deref(), Some("seed"));
+        assert_eq!(value_at(&a, "seed"), "1");
     }
 
     #[test]
