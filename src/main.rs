@@ -620,9 +620,25 @@ fn execute(command: Command) -> Result<(), Failure> {
             bar.finish_and_clear();
             let partial = simulated.map_err(|e| Failure::Running(e.to_string()))?;
             let seconds = started.elapsed().as_secs_f64();
+            // The flags that shape the run must be given again, or the resume is refused.
             let resume_hint = || {
-                let file = file.as_ref().map_or(String::new(), |f| format!(" {}", f.display()));
-                format!("continue with: loancycle run{file} --out {} --resume", out.display())
+                let mut command = String::from("loancycle run");
+                if let Some(f) = &file {
+                    command += &format!(" {}", f.display());
+                }
+                if let Some(r) = replications {
+                    command += &format!(" --replications {r}");
+                }
+                if let Some(s) = seed {
+                    command += &format!(" --seed {s}");
+                }
+                if baseline != 0 {
+                    command += &format!(" --baseline {}", baseline + 1);
+                }
+                if let Some(id) = shard {
+                    command += &format!(" --shard {}/{}", id.index, id.count);
+                }
+                format!("continue with: {command} --out {} --resume", out.display())
             };
             writer.sync().map_err(|e| Failure::Running(e.to_string()))?;
             if let Some(done_path) = &final_shard {

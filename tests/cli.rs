@@ -982,7 +982,7 @@ fn an_interrupted_run_exits_130_or_143_and_keeps_what_it_finished() {
         let prefix = format!("interrupted by SIG{signal}: partial results of ");
         let suffix = format!(
             " of 20000 replications written to {0} and marked incomplete; continue with: loancycle run \
-             scenarios-demo/baseline.toml --out {0} --resume\n",
+             scenarios-demo/baseline.toml --replications 20000 --out {0} --resume\n",
             dir.display()
         );
         assert!(

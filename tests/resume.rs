@@ -85,11 +85,12 @@ fn a_run_interrupted_twice_and_resumed_ends_byte_identical_to_one_run() {
 
     let first = interrupt(&run_args(&dir, &[]), &checkpoint, libc::SIGINT);
     assert_eq!(first.status.code(), Some(130), "{}", stderr(&first));
-    assert!(
-        stderr(&first).contains("marked incomplete; continue with:"),
-        "{}",
-        stderr(&first)
+    // The command it suggests repeats the flags that shape the run.
+    let hint = format!(
+        "marked incomplete; continue with: loancycle run {SCENARIO} --replications {REPLICATIONS} --out {} --resume\n",
+        dir.display()
     );
+    assert!(stderr(&first).ends_with(&hint), "{}", stderr(&first));
     let done_first = incomplete(&dir)["replications_done"].as_u64().expect("a count");
     assert!(done_first > 0 && done_first < 1600, "{done_first}");
 
