@@ -35,7 +35,9 @@
 //! ```
 
 pub mod analytic;
+pub mod bench;
 pub mod board;
+pub mod checkpoint;
 pub mod companion;
 pub mod curve;
 pub mod demo;
@@ -49,6 +51,7 @@ pub mod output;
 pub mod report;
 pub mod run;
 pub mod scenario;
+pub mod shard;
 pub mod stats;
 pub mod stored;
 

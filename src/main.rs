@@ -57,6 +57,42 @@ enum Command {
         /// The arm differences.csv compares against: a label or a number from 1, as `check` lists them.
         #[arg(long, value_name = "ARM")]
         baseline: Option<String>,
+        /// Simulate only shard I of N (a block of the replications) and write OUT/shard-I-of-N.jsonl
+        /// for `merge`.
+        #[arg(long, value_name = "I/N", conflicts_with_all = ["report", "loan_book"])]
+        shard: Option<String>,
+        /// Continue an interrupted run from the checkpoint in the output directory.
+        #[arg(long)]
+        resume: bool,
+    },
+    /// Merge the shards of a run (directories holding shard-I-of-N.jsonl) into the files the
+    /// unsharded run writes.
+    Merge {
+        /// Directories holding the shard files (one, or one per shard).
+        #[arg(required = true)]
+        dirs: Vec<PathBuf>,
+        /// Directory for the merged results.
+        #[arg(long, default_value = "results/")]
+        out: PathBuf,
+        /// No table.
+        #[arg(long)]
+        quiet: bool,
+        /// Replace results already in the output directory.
+        #[arg(long)]
+        force: bool,
+        /// Also write the board report into the output directory.
+        #[arg(long)]
+        report: bool,
+    },
+    /// Draw the random numbers a scenario's run needs, with no model logic, and print the rate: the
+    /// bound scripts/bench.sh compares the engine with.
+    #[command(hide = true)]
+    BenchDraws {
+        /// Scenario file (TOML).
+        file: PathBuf,
+        /// Worker threads (default: all cores).
+        #[arg(long, value_parser = clap::value_parser!(u16).range(1..))]
+        threads: Option<u16>,
     },
     /// Redo comparisons from a finished run's files (summary.json, replications.csv), without
     /// simulating again.
@@ -202,8 +238,8 @@ enum Failure {
     BadInput(String),
     /// A failure while running, such as a full disk or an unwritable file. Exit 1.
     Running(String),
-    /// Stopped by a signal before results were written. Exit 128 + the signal number.
-    Interrupted(usize),
+    /// Stopped by a signal; the text says what was kept. Exit 128 + the signal number.
+    Interrupted(usize, String),
 }
 
 impl Failure {
@@ -212,20 +248,20 @@ impl Failure {
             Failure::BadInput(_) => 2,
             Failure::Running(_) => 1,
             // 130 for SIGINT and 143 for SIGTERM, the shells' convention for death by signal.
-            Failure::Interrupted(signal) => u8::try_from(128 + signal).unwrap_or(1),
+            Failure::Interrupted(signal, _) => u8::try_from(128 + signal).unwrap_or(1),
         }
     }
 
     fn message(&self) -> String {
         match self {
             Failure::BadInput(m) | Failure::Running(m) => format!("error: {m}"),
-            Failure::Interrupted(signal) => {
+            Failure::Interrupted(signal, kept) => {
                 let name = if *signal == SIGTERM as usize {
                     "SIGTERM"
                 } else {
                     "SIGINT"
                 };
-                format!("interrupted by {name}: no results were written")
+                format!("interrupted by {name}: {kept}")
             }
         }
     }
@@ -474,6 +510,24 @@ fn execute(command: Command) -> Result<(), Failure> {
                 json,
             )
         }
+        Command::BenchDraws { file, threads } => {
+            let (scenario, _, _) = load(Some(&file))?;
+            let options = run::RunOptions {
+                threads: threads.map(usize::from),
+            };
+            let started = std::time::Instant::now();
+            let drawn =
+                loancycle::bench::bare_draws(&scenario, options).map_err(|e| Failure::Running(e.to_string()))?;
+            let seconds = started.elapsed().as_secs_f64();
+            println!(
+                "drew for {} member-cycles in {:.2} s ({:.1} million per second; checksum {:.6e})",
+                drawn.member_cycles,
+                seconds,
+                drawn.member_cycles as f64 / seconds / 1e6,
+                drawn.checksum
+            );
+            Ok(())
+        }
         Command::DemoScenario => {
             print!("{}", demo::BASELINE);
             Ok(())
@@ -495,6 +549,8 @@ fn execute(command: Command) -> Result<(), Failure> {
             report: with_report,
             loan_book,
             baseline,
+            shard,
+            resume,
         } => {
             // Only `run` catches signals: it has files to protect. The other commands write nothing
             // and keep the default action, so Ctrl-C ends them at once.
@@ -507,6 +563,10 @@ fn execute(command: Command) -> Result<(), Failure> {
                     .map_err(|e| Failure::BadInput(format!("--baseline: {e}")))?,
                 None => 0,
             };
+            let shard = shard
+                .map(|s| loancycle::shard::parse(&s, scenario.replications()))
+                .transpose()
+                .map_err(Failure::BadInput)?;
             if file.is_none() && !quiet {
                 eprintln!("no scenario file given: running the built-in baseline demo, {origin}");
             }
@@ -518,19 +578,67 @@ fn execute(command: Command) -> Result<(), Failure> {
             if let Some(path) = &loan_book {
                 loancycle::loanbook::check_destination(path, force).map_err(|e| Failure::BadInput(e.to_string()))?;
             }
-            let created = output::prepare_destination(&out, force).map_err(|e| {
+            let (range, checkpoint_path, final_shard) = match shard {
+                Some(id) => (
+                    loancycle::shard::range(id.index, id.count, scenario.replications()),
+                    out.join(loancycle::shard::checkpoint_name(id)),
+                    Some(out.join(loancycle::shard::file_name(id))),
+                ),
+                None => (
+                    0..scenario.replications(),
+                    out.join(loancycle::checkpoint::CHECKPOINT_FILE),
+                    None,
+                ),
+            };
+            // A shard directory holds shard files, not results; an earlier shard or checkpoint is
+            // kept unless --force or --resume says what to do with it.
+            let existing = final_shard.iter().chain([&checkpoint_path]).find(|p| p.exists());
+            if let (Some(path), false, false) = (existing, force, resume) {
+                return Err(Failure::BadInput(format!(
+                    "output directory {} already holds {}; continue it with --resume, or pass --force to start again",
+                    out.display(),
+                    path.file_name().unwrap_or_default().to_string_lossy()
+                )));
+            }
+            let created = output::prepare_destination(&out, force || resume || shard.is_some()).map_err(|e| {
                 if e.is_bad_destination() {
                     Failure::BadInput(e.to_string())
                 } else {
                     Failure::Running(e.to_string())
                 }
             })?;
+            if let (Some(done), true, false) = (&final_shard, resume, checkpoint_path.exists())
+                && done.exists()
+            {
+                return Err(Failure::BadInput(format!(
+                    "--resume: {} is already complete; nothing to continue",
+                    done.display()
+                )));
+            }
+            // A shard run again with --force: the earlier file must not be merged meanwhile.
+            if let (Some(earlier), false) = (&final_shard, resume)
+                && earlier.exists()
+            {
+                std::fs::remove_file(earlier).map_err(|e| {
+                    Failure::Running(format!(
+                        "cannot remove {}: {}",
+                        earlier.display(),
+                        e.to_string().to_lowercase()
+                    ))
+                })?;
+            }
+            let header = loancycle::checkpoint::Header::new(&scenario, &text, &origin, baseline, shard, range.clone());
+            let (mut writer, already) =
+                loancycle::checkpoint::open(&checkpoint_path, &header, resume).map_err(|e| {
+                    output::abandon_destination(&out, created);
+                    match e {
+                        loancycle::checkpoint::OpenError::Refused(m) => Failure::BadInput(m),
+                        loancycle::checkpoint::OpenError::Failed(e) => Failure::Running(e.to_string()),
+                    }
+                })?;
             let stopped = || stop.load(Ordering::Relaxed) != 0;
-            let interrupted = || {
-                output::abandon_destination(&out, created);
-                Failure::Interrupted(stop.load(Ordering::Relaxed))
-            };
-            let tasks = u64::from(scenario.replications()) * scenario.arms().len() as u64;
+            let signal = || stop.load(Ordering::Relaxed);
+            let tasks = u64::from(range.end - range.start) * scenario.arms().len() as u64;
             let bar = if quiet {
                 ProgressBar::with_draw_target(Some(tasks), ProgressDrawTarget::hidden())
             } else {
@@ -542,27 +650,87 @@ fn execute(command: Command) -> Result<(), Failure> {
                     .progress_chars("=> "),
             );
             let started = std::time::Instant::now();
-            let simulated = run::simulate_until(&scenario, options, &stopped, &mut |done| bar.set_position(done));
+            let simulated = run::simulate_range(
+                &scenario,
+                options,
+                range.clone(),
+                already,
+                &stopped,
+                &mut |batch| writer.append(batch).map_err(|e| e.to_string()),
+                &mut |done| bar.set_position(done),
+            );
             bar.finish_and_clear();
-            let results = match simulated {
-                Ok(r) => r,
-                Err(run::RunError::Interrupted) => return Err(interrupted()),
-                Err(e) => {
-                    output::abandon_destination(&out, created);
-                    return Err(Failure::Running(e.to_string()));
-                }
-            };
+            let partial = simulated.map_err(|e| Failure::Running(e.to_string()))?;
             let seconds = started.elapsed().as_secs_f64();
+            // The flags that shape the run must be given again, or the resume is refused.
+            let resume_hint = || {
+                let mut command = String::from("loancycle run");
+                if let Some(f) = &file {
+                    command += &format!(" {}", f.display());
+                }
+                if let Some(r) = replications {
+                    command += &format!(" --replications {r}");
+                }
+                if let Some(s) = seed {
+                    command += &format!(" --seed {s}");
+                }
+                if baseline != 0 {
+                    command += &format!(" --baseline {}", baseline + 1);
+                }
+                if let Some(id) = shard {
+                    command += &format!(" --shard {}/{}", id.index, id.count);
+                }
+                format!("continue with: {command} --out {} --resume", out.display())
+            };
+            writer.sync().map_err(|e| Failure::Running(e.to_string()))?;
+            if let Some(done_path) = &final_shard {
+                if partial.complete() {
+                    std::fs::rename(&checkpoint_path, done_path).map_err(|e| {
+                        Failure::Running(format!(
+                            "cannot write {}: {}",
+                            done_path.display(),
+                            e.to_string().to_lowercase()
+                        ))
+                    })?;
+                    if !quiet {
+                        println!("wrote {}", done_path.display());
+                    }
+                }
+                return match signal() {
+                    0 => Ok(()),
+                    s if partial.complete() => Err(Failure::Interrupted(
+                        s,
+                        format!("the shard was complete and is written to {}", done_path.display()),
+                    )),
+                    s => Err(Failure::Interrupted(
+                        s,
+                        format!(
+                            "{} of the shard's {} replications are kept in {}; {}",
+                            partial.done_until - range.start,
+                            range.end - range.start,
+                            checkpoint_path.display(),
+                            resume_hint()
+                        ),
+                    )),
+                };
+            }
+            if partial.done_until == 0 {
+                // Stopped before the first batch finished: there is nothing to keep.
+                let _ = std::fs::remove_file(&checkpoint_path);
+                output::abandon_destination(&out, created);
+                return Err(Failure::Interrupted(signal(), "no results were written".to_string()));
+            }
+            let results = partial.results;
             // The book is staged before the results and put in place after them: all files or none.
             let book = match loan_book
                 .as_deref()
+                .filter(|_| partial.done_until == partial.end)
                 .map(|p| loancycle::loanbook::stage(&scenario, p, &stopped))
             {
                 None => None,
                 Some(Ok(staged)) => Some(staged),
-                Some(Err(loancycle::loanbook::LoanBookError::Interrupted)) => return Err(interrupted()),
+                Some(Err(loancycle::loanbook::LoanBookError::Interrupted)) => None,
                 Some(Err(e)) => {
-                    output::abandon_destination(&out, created);
                     return Err(if e.is_bad_input() {
                         Failure::BadInput(e.to_string())
                     } else {
@@ -570,18 +738,57 @@ fn execute(command: Command) -> Result<(), Failure> {
                     });
                 }
             };
-            let report = report::build_with_baseline(&scenario, &text, &origin, &results, baseline);
-            let mut paths = match output::write_all(&out, &report, force, &stopped) {
-                Ok(paths) => paths,
-                Err(output::OutputError::Interrupted) => return Err(interrupted()),
-                Err(e) => {
-                    output::abandon_destination(&out, created);
-                    return Err(Failure::Running(e.to_string()));
-                }
-            };
+            let mut report = report::build_with_baseline(&scenario, &text, &origin, &results, baseline);
+            if partial.done_until < partial.end {
+                report.incomplete = Some(report::Incomplete {
+                    replications_done: partial.done_until,
+                    replications_asked: partial.end,
+                    checkpoint: checkpoint_path.display().to_string(),
+                });
+            }
+            // Results are written even when a signal came during the simulation: a stopped run keeps
+            // what it finished, marked incomplete, beside its checkpoint.
+            let mut paths =
+                output::write_all(&out, &report, true, &|| false).map_err(|e| Failure::Running(e.to_string()))?;
+            let book_written = book.is_some();
             if let Some(staged) = book {
                 paths.push(staged.commit().map_err(|e| Failure::Running(e.to_string()))?);
             }
+            if signal() != 0 {
+                if !quiet {
+                    for p in &paths {
+                        println!("wrote {}", p.display());
+                    }
+                }
+                let kept = if partial.done_until < partial.end {
+                    format!(
+                        "partial results of {} of {} replications written to {} and marked incomplete; {}",
+                        partial.done_until,
+                        partial.end,
+                        out.display(),
+                        resume_hint()
+                    )
+                } else {
+                    format!(
+                        "the simulation had finished; complete results written to {}{}",
+                        out.display(),
+                        if loan_book.is_some() && !book_written {
+                            " (the loan book was not written)"
+                        } else {
+                            ""
+                        }
+                    )
+                };
+                return Err(Failure::Interrupted(signal(), kept));
+            }
+            drop(writer);
+            std::fs::remove_file(&checkpoint_path).map_err(|e| {
+                Failure::Running(format!(
+                    "cannot remove {}: {}",
+                    checkpoint_path.display(),
+                    e.to_string().to_lowercase()
+                ))
+            })?;
             if !quiet {
                 print!("{}", terminal::summary_table(&report));
                 for p in paths {
@@ -593,6 +800,46 @@ fn execute(command: Command) -> Result<(), Failure> {
                     seconds,
                     results.served_member_cycles as f64 / seconds / 1e6
                 );
+            } else {
+                for w in &report.warnings {
+                    eprintln!("warning: {w}");
+                }
+            }
+            if with_report {
+                board_report(&out, quiet)?;
+            }
+            Ok(())
+        }
+        Command::Merge {
+            dirs,
+            out,
+            quiet,
+            force,
+            report: with_report,
+        } => {
+            let merged = loancycle::shard::merge(&dirs).map_err(Failure::BadInput)?;
+            for w in merged.scenario.warnings() {
+                eprintln!("warning: {}: {w}", merged.origin);
+            }
+            let report = report::build_with_baseline(
+                &merged.scenario,
+                &merged.text,
+                &merged.origin,
+                &merged.results,
+                merged.baseline,
+            );
+            let paths = output::write_all(&out, &report, force, &|| false).map_err(|e| {
+                if e.is_bad_destination() {
+                    Failure::BadInput(e.to_string())
+                } else {
+                    Failure::Running(e.to_string())
+                }
+            })?;
+            if !quiet {
+                print!("{}", terminal::summary_table(&report));
+                for p in paths {
+                    println!("wrote {}", p.display());
+                }
             } else {
                 for w in &report.warnings {
                     eprintln!("warning: {w}");

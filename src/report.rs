@@ -74,6 +74,21 @@ pub struct RunReport {
     pub warnings: Vec<String>,
     /// The planning caution.
     pub caution: String,
+    /// Set when the run was stopped before every replication was simulated: these are partial
+    /// results. Absent from a finished run's summary.json.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub incomplete: Option<Incomplete>,
+}
+
+/// What a stopped run finished, recorded in its partial results.
+#[derive(Debug, Clone, Serialize)]
+pub struct Incomplete {
+    /// Replications simulated (of every arm), from the first.
+    pub replications_done: u32,
+    /// Replications the run was asked for.
+    pub replications_asked: u32,
+    /// The checkpoint `run --resume` continues from.
+    pub checkpoint: String,
 }
 
 /// SHA-256 of text, as lower-case hex.
@@ -168,6 +183,7 @@ pub fn build_with_baseline(
         differences,
         warnings,
         caution: CAUTION.to_string(),
+        incomplete: None,
     }
 }
 

@@ -1,7 +1,9 @@
 //! Orchestration: replications and arms across threads, merged in replication order.
 //!
 //! Each (replication, arm) is an independent task whose result depends only on the scenario and
-//! the indices, so the thread count changes speed but never a figure.
+//! the indices, so the thread count changes speed but never a figure. Replications run in batches
+//! in replication order, so what is finished at any moment is a prefix of the range asked for:
+//! a checkpoint, a shard or a stopped run is always "replications first..done".
 
 use crate::engine;
 use crate::scenario::Scenario;
@@ -24,6 +26,9 @@ pub enum RunError {
     /// The caller asked the run to stop (an interrupt) before it finished.
     #[error("interrupted before the simulation finished")]
     Interrupted,
+    /// A finished batch could not be recorded (the checkpoint file could not be written).
+    #[error("{0}")]
+    Checkpoint(String),
 }
 
 /// What a run produced: one tally per arm, in arm order.
@@ -45,15 +50,81 @@ pub fn simulate(
     simulate_until(scenario, options, &|| false, progress)
 }
 
-/// As [`simulate`], but gives up with [`RunError::Interrupted`] as soon as `stop` returns true.
-/// Every task asks before it starts, so an interrupt waits for at most one replication of one arm
-/// per worker, and a stopped run returns no partial results.
+/// As [`simulate`], but gives up with [`RunError::Interrupted`] once `stop` returns true. The batch
+/// in hand is finished first (see [`simulate_range`]); a stopped run returns no results here.
 pub fn simulate_until(
     scenario: &Scenario,
     options: RunOptions,
     stop: &(dyn Fn() -> bool + Sync),
     progress: &mut dyn FnMut(u64),
 ) -> Result<RunResults, RunError> {
+    let partial = simulate_range(
+        scenario,
+        options,
+        0..scenario.replications,
+        Vec::new(),
+        stop,
+        &mut |_| Ok(()),
+        progress,
+    )?;
+    if partial.complete() {
+        Ok(partial.results)
+    } else {
+        Err(RunError::Interrupted)
+    }
+}
+
+/// Replications a batch holds: at most ceil(replications / 100) per worker, so a checkpoint written
+/// after each batch is never more than 1% of the run (per worker) behind, and at most 4 per worker,
+/// which is enough to keep every worker busy.
+pub fn batch_replications(replications: u32, threads: usize) -> u32 {
+    let per_worker = replications.div_ceil(100).clamp(1, 4);
+    per_worker.saturating_mul(u32::try_from(threads.max(1)).unwrap_or(u32::MAX))
+}
+
+/// One finished batch: replications `first..end` of every arm, replication-major.
+#[derive(Debug, Clone)]
+pub struct Batch {
+    /// First replication of the batch.
+    pub first: u32,
+    /// One past the last replication of the batch.
+    pub end: u32,
+    /// (arm index, tally) for every replication and arm of the batch, replication-major.
+    pub tallies: Vec<(usize, ReplicationTally)>,
+}
+
+/// What [`simulate_range`] finished: every replication from the range's start up to `done_until`.
+#[derive(Debug, Clone)]
+pub struct PartialRun {
+    /// The tallies of replications `range.start..done_until`, per arm.
+    pub results: RunResults,
+    /// One past the last replication finished.
+    pub done_until: u32,
+    /// One past the last replication asked for.
+    pub end: u32,
+}
+
+impl PartialRun {
+    /// Whether every replication asked for was simulated.
+    pub fn complete(&self) -> bool {
+        self.done_until == self.end
+    }
+}
+
+/// Simulates replications `range` of every arm, in batches of [`batch_replications`], continuing
+/// after `already` (per-arm tallies of the replications `range.start..` finished earlier, e.g. read
+/// from a checkpoint; empty for a fresh run). After each batch `on_batch` is given its tallies (a
+/// checkpoint writer) and `progress` the number of (replication, arm) tasks finished. `stop` is
+/// asked between batches: a stopped run finishes the batch in hand and returns what is done.
+pub fn simulate_range(
+    scenario: &Scenario,
+    options: RunOptions,
+    range: std::ops::Range<u32>,
+    already: Vec<ArmTally>,
+    stop: &(dyn Fn() -> bool + Sync),
+    on_batch: &mut dyn FnMut(&Batch) -> Result<(), String>,
+    progress: &mut dyn FnMut(u64),
+) -> Result<PartialRun, RunError> {
     let threads = worker_threads(&options);
     let pool = rayon::ThreadPoolBuilder::new()
         .num_threads(threads)
@@ -62,38 +133,58 @@ pub fn simulate_until(
             threads,
             reason: e.to_string(),
         })?;
-    let arms = scenario.arms().len();
-    let mut tallies = vec![ArmTally::default(); arms];
-    // Batches bound memory in flight and give the progress bar something to show.
-    let batch_replications = (threads * 4).max(1) as u32;
-    let mut done = 0u64;
-    let mut first = 0u32;
-    while first < scenario.replications() {
-        let last = (first + batch_replications).min(scenario.replications());
+    let arms = scenario.arms.len();
+    let mut tallies = already;
+    tallies.resize_with(arms, ArmTally::default);
+    let resumed = tallies.iter().map(ArmTally::len).min().unwrap_or(0) as u32;
+    let batch = batch_replications(range.end - range.start, threads);
+    let mut first = range.start + resumed;
+    let mut done = u64::from(resumed) * arms as u64;
+    if done > 0 {
+        progress(done);
+    }
+    while first < range.end && !stop() {
+        let last = first.saturating_add(batch).min(range.end);
         let tasks: Vec<(u32, usize)> = (first..last).flat_map(|r| (0..arms).map(move |a| (r, a))).collect();
-        let results: Option<Vec<ReplicationTally>> = pool.install(|| {
+        let results: Vec<ReplicationTally> = pool.install(|| {
             tasks
                 .par_iter()
-                .map(|&(r, a)| (!stop()).then(|| engine::simulate_replication(scenario, a, r)))
+                .map(|&(r, a)| engine::simulate_replication(scenario, a, r))
                 .collect()
         });
-        let results = results.ok_or(RunError::Interrupted)?;
-        for ((_, a), tally) in tasks.iter().zip(results) {
-            tallies[*a].push(tally);
+        let finished = Batch {
+            first,
+            end: last,
+            tallies: tasks.iter().map(|&(_, a)| a).zip(results).collect(),
+        };
+        on_batch(&finished).map_err(RunError::Checkpoint)?;
+        for (a, tally) in finished.tallies {
+            tallies[a].push(tally);
         }
         done += tasks.len() as u64;
         progress(done);
         first = last;
     }
-    let served_member_cycles = tallies
-        .iter()
-        .flat_map(|t| &t.replications)
-        .map(|r| r.served_slot_cycles)
-        .sum();
-    Ok(RunResults {
-        arms: tallies,
-        served_member_cycles,
+    Ok(PartialRun {
+        results: RunResults::from_tallies(tallies),
+        done_until: first,
+        end: range.end,
     })
+}
+
+impl RunResults {
+    /// Results from per-arm tallies (finished replications, in replication order).
+    pub fn from_tallies(arms: Vec<ArmTally>) -> RunResults {
+        let served_member_cycles = arms
+            .iter()
+            .flat_map(|t| &t.replications)
+            .map(|r| r.served_slot_cycles)
+            .sum();
+        RunResults {
+            arms,
+            served_member_cycles,
+        }
+    }
 }
 
 /// Worker threads a run with `options` uses: the requested number, or every core.

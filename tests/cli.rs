@@ -1014,23 +1014,36 @@ fn interrupted_run(signal: &str, dir: &Path, extra: &[&str]) -> Outcome {
 }
 
 /// SIGINT and SIGTERM stop a run cleanly: exit 130 and 143 (128 + the signal number), one line
-/// saying so, and no output file: a directory the run created is removed again, and earlier
-/// results replaced with --force are left exactly as they were.
+/// saying what was kept, and the replications finished so far written as results marked incomplete
+/// beside the checkpoint that `--resume` continues from. Earlier results replaced with --force are
+/// replaced by the partial ones, never mixed with them. (Resuming is tested in tests/resume.rs.)
 #[test]
-fn an_interrupted_run_exits_130_or_143_and_writes_nothing() {
+fn an_interrupted_run_exits_130_or_143_and_keeps_what_it_finished() {
     let tmp = tempdir();
     for (signal, code) in [("INT", 130), ("TERM", 143)] {
         let dir = tmp.path().join(format!("fresh-{signal}"));
         let out = interrupted_run(signal, &dir, &[]);
         assert_eq!(out.code, Some(code), "{}", out.describe());
-        assert_eq!(
-            out.stderr,
-            format!("interrupted by SIG{signal}: no results were written\n"),
+        let prefix = format!("interrupted by SIG{signal}: partial results of ");
+        let suffix = format!(
+            " of 20000 replications written to {0} and marked incomplete; continue with: loancycle run \
+             scenarios-demo/baseline.toml --replications 20000 --out {0} --resume\n",
+            dir.display()
+        );
+        assert!(
+            out.stderr.starts_with(&prefix) && out.stderr.ends_with(&suffix),
             "{}",
             out.describe()
         );
         assert!(out.stdout.is_empty(), "{}", out.describe());
-        assert!(!dir.exists(), "SIG{signal}: {} left behind", dir.display());
+        let names: Vec<String> = dir_contents(&dir).into_keys().collect();
+        let mut expected: Vec<&str> = OUTPUTS.iter().copied().chain(["checkpoint.jsonl"]).collect();
+        expected.sort();
+        assert_eq!(names, expected, "SIG{signal}");
+        let incomplete = &read_json(&dir.join("summary.json"))["incomplete"];
+        assert_eq!(incomplete["replications_asked"], 20000, "{incomplete}");
+        let done = incomplete["replications_done"].as_u64().expect("a count");
+        assert!(done > 0 && done < 20000, "{incomplete}");
     }
 
     let dir = tmp.path().join("earlier");
@@ -1042,8 +1055,10 @@ fn an_interrupted_run_exits_130_or_143_and_writes_nothing() {
         OsStr::new("--quiet"),
     ])
     .ok();
-    let before = assert_only_outputs(&dir);
+    assert!(read_json(&dir.join("summary.json")).get("incomplete").is_none());
     let out = interrupted_run("INT", &dir, &["--force"]);
     assert_eq!(out.code, Some(130), "{}", out.describe());
-    assert_eq!(dir_contents(&dir), before, "an interrupted run changed earlier results");
+    let summary = read_json(&dir.join("summary.json"));
+    assert_eq!(summary["incomplete"]["replications_asked"], 20000, "{}", out.describe());
+    assert_eq!(summary["scenario_origin"], "scenarios-demo/baseline.toml");
 }
