@@ -43,7 +43,7 @@ pub struct ArmExact {
     /// The same law in each stress state of the counted cycles.
     pub stress_laws: Vec<PortfolioDefaultLaw>,
     /// The input that puts this arm outside the class of the portfolio law.
-    pub portfolio_out_of_class: Option<String>,
+    pub out_of_class: Option<String>,
 }
 
 /// Which population the hit-share law describes.
@@ -135,8 +135,8 @@ pub struct HitShareSection {
 pub struct AnalyzeReport {
     /// The scenario's name.
     pub scenario: String,
-    /// Why the scenario is outside the one-factor class, if it is.
-    pub out_of_class: Option<String>,
+    /// Why the scenario is outside the one-factor class of exact group repayment, if it is.
+    pub one_factor_out_of_class: Option<String>,
     /// The one-factor model, if in class.
     pub model: Option<OneFactorModel>,
     /// Per-arm exact results.
@@ -149,8 +149,9 @@ pub struct AnalyzeReport {
     pub portfolio_default_law: Option<PortfolioDefaultLaw>,
     /// The first arm's laws in each stress state.
     pub stress_laws: Vec<PortfolioDefaultLaw>,
-    /// The input that puts the first arm outside the portfolio law's class.
-    pub portfolio_out_of_class: Option<String>,
+    /// The input that puts the first arm outside the portfolio law's class (beside
+    /// `portfolio_default_law`, which is then null).
+    pub out_of_class: Option<String>,
     /// The Basel II comparison at the first arm's hit probability, where it applies.
     pub basel: Option<BaselComparison>,
     /// The caution printed under the table.
@@ -160,7 +161,7 @@ pub struct AnalyzeReport {
 /// Builds the report. Nothing here fails as a whole: each part records its own reason.
 pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
     let class = one_factor::class_check(scenario);
-    let (model, out_of_class) = match class {
+    let (model, one_factor_out_of_class) = match class {
         Ok(m) => (Some(m), None),
         Err(e) => (None, Some(e.reason)),
     };
@@ -195,7 +196,7 @@ pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
                 reason,
                 portfolio_default_law: None,
                 stress_laws: Vec::new(),
-                portfolio_out_of_class: None,
+                out_of_class: None,
             }
         })
         .collect();
@@ -203,7 +204,7 @@ pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
         if let Some(l) = laws.next() {
             arm.portfolio_default_law = l.portfolio_default_law;
             arm.stress_laws = l.stress_laws;
-            arm.portfolio_out_of_class = l.out_of_class;
+            arm.out_of_class = l.out_of_class;
         }
     }
     let (hit_share, hit_share_reason) = match hit_share_section(scenario) {
@@ -220,11 +221,11 @@ pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
     });
     AnalyzeReport {
         scenario: scenario.name.clone(),
-        out_of_class,
+        one_factor_out_of_class,
         model,
         portfolio_default_law: first.and_then(|a| a.portfolio_default_law.clone()),
         stress_laws: first.map(|a| a.stress_laws.clone()).unwrap_or_default(),
-        portfolio_out_of_class: first.and_then(|a| a.portfolio_out_of_class.clone()),
+        out_of_class: first.and_then(|a| a.out_of_class.clone()),
         basel,
         arms,
         hit_share,
@@ -431,7 +432,7 @@ mod tests {
     #[test]
     fn in_class_scenario_gets_every_section() {
         let report = analyze(&scenario(1, 0.1));
-        assert!(report.out_of_class.is_none());
+        assert!(report.one_factor_out_of_class.is_none());
         assert_eq!(report.arms.len(), 2);
         let joint = report.arms[0].exact.as_ref().unwrap();
         let individual = report.arms[1].exact.as_ref().unwrap();
@@ -477,7 +478,7 @@ mod tests {
         s.income = Distribution::lognormal(1.4, 0.3).unwrap();
         let report = analyze(&s);
         assert_eq!(
-            report.out_of_class.as_deref(),
+            report.one_factor_out_of_class.as_deref(),
             Some("borrowers.income is a lognormal distribution, not fixed")
         );
         assert!(report.arms.iter().all(|a| a.exact.is_none()));

@@ -20,7 +20,7 @@ pub fn table(report: &AnalyzeReport) -> String {
     let _ = writeln!(out, "Analysis of scenario '{}'", report.scenario);
     let _ = writeln!(out);
     let _ = writeln!(out, "Exact per-cycle group repayment (one-factor class)");
-    match (&report.model, &report.out_of_class) {
+    match (&report.model, &report.one_factor_out_of_class) {
         (Some(m), _) => {
             let prob = match &m.probability {
                 ShockProbability::Fixed(p) => format!("p = {p}"),
@@ -206,7 +206,7 @@ fn portfolio_section(out: &mut String, report: &AnalyzeReport) {
     let reasons: Vec<&str> = report
         .arms
         .iter()
-        .filter_map(|a| a.portfolio_out_of_class.as_deref())
+        .filter_map(|a| a.out_of_class.as_deref())
         .collect();
     if !report.arms.is_empty() && reasons.len() == report.arms.len() && reasons.iter().all(|r| *r == reasons[0]) {
         let _ = writeln!(out, "  out of class: {}", reasons[0]);
@@ -218,7 +218,7 @@ fn portfolio_section(out: &mut String, report: &AnalyzeReport) {
         .collect();
     let _ = writeln!(out, "      {:<16} {:>9} {} {:>9}", "", "mean", levels.join(" "), "ES99");
     for arm in &report.arms {
-        match (&arm.portfolio_default_law, &arm.portfolio_out_of_class) {
+        match (&arm.portfolio_default_law, &arm.out_of_class) {
             (Some(law), _) => {
                 let _ = writeln!(
                     out,
