@@ -425,6 +425,7 @@ mod tests {
             swept_fields: vec!["peer_cover".into()],
             arms: vec![],
             warnings: vec![],
+            finance: crate::scenario::Finance::default(),
         }
         .with_policies(vec![("joint", joint), ("individual", individual)])
     }

@@ -132,6 +132,26 @@ pub struct SummaryRow<'a> {
     group_repayment_se: Cell,
     loss_rate_se: Cell,
     on_frontier: &'static str,
+    annual_loss_p50: Cell,
+    annual_loss_p95: Cell,
+    annual_loss_p99: Cell,
+    annual_loss_p999: Cell,
+    annual_loss_es99: Cell,
+    annual_loss_amount_p999: Cell,
+    annual_default_rate: Cell,
+    principal_outstanding: Cell,
+    disbursed_per_year: Cell,
+    interest_per_year: Cell,
+    fees_per_year: Cell,
+    expected_loss_per_year: Cell,
+    unexpected_loss_999: Cell,
+    cost_of_funds_per_year: Cell,
+    operating_cost_per_year: Cell,
+    operational_self_sufficiency: Cell,
+    operational_self_sufficiency_ci_low: Cell,
+    operational_self_sufficiency_ci_high: Cell,
+    basel_capital: Cell,
+    exact_unexpected_loss: Cell,
 }
 
 impl<'a> SummaryRow<'a> {
@@ -142,6 +162,9 @@ impl<'a> SummaryRow<'a> {
         let (group_repayment_rate, group_repayment_ci_low, group_repayment_ci_high, group_repayment_se) =
             cells(s.group_repayment);
         let (loss_rate, loss_rate_ci_low, loss_rate_ci_high, loss_rate_se) = cells(s.loss_rate);
+        let f = &a.finance;
+        let m = &f.money;
+        let (oss, oss_low, oss_high, _) = cells(m.operational_self_sufficiency);
         SummaryRow {
             arm: &a.arm.label,
             group_size: p.group_size,
@@ -193,6 +216,26 @@ impl<'a> SummaryRow<'a> {
                 Some(false) => "false",
                 None => "",
             },
+            annual_loss_p50: Cell(f.annual_loss_rate.p50),
+            annual_loss_p95: Cell(f.annual_loss_rate.p95),
+            annual_loss_p99: Cell(f.annual_loss_rate.p99),
+            annual_loss_p999: Cell(f.annual_loss_rate.p999),
+            annual_loss_es99: Cell(f.annual_loss_rate.es99),
+            annual_loss_amount_p999: Cell(f.annual_loss_amount.p999),
+            annual_default_rate: Cell(f.capital.annual_default_rate),
+            principal_outstanding: Cell(Some(m.principal_outstanding)),
+            disbursed_per_year: Cell(Some(m.disbursed)),
+            interest_per_year: Cell(Some(m.interest_collected)),
+            fees_per_year: Cell(Some(m.fees)),
+            expected_loss_per_year: Cell(Some(m.expected_loss)),
+            unexpected_loss_999: Cell(m.unexpected_loss_999),
+            cost_of_funds_per_year: Cell(Some(m.cost_of_funds)),
+            operating_cost_per_year: Cell(Some(m.operating_cost)),
+            operational_self_sufficiency: oss,
+            operational_self_sufficiency_ci_low: oss_low,
+            operational_self_sufficiency_ci_high: oss_high,
+            basel_capital: Cell(f.capital.basel_capital),
+            exact_unexpected_loss: Cell(f.capital.exact_unexpected_loss),
         }
     }
 }
@@ -271,6 +314,9 @@ struct ReplicationRow<'a> {
     member_defaults: u64,
     member_loans: u64,
     worst_cycle_loss: Cell,
+    fees: Cell,
+    cost_of_funds: Cell,
+    operating_cost: Cell,
 }
 
 /// replications.csv: one row per arm and replication, in arm order then replication order.
@@ -297,6 +343,9 @@ pub fn replications_csv(report: &RunReport) -> Vec<u8> {
             member_defaults: r.member_defaults,
             member_loans: r.member_loans,
             worst_cycle_loss: Cell(r.worst_cycle_loss),
+            fees: Cell(Some(r.fees)),
+            cost_of_funds: Cell(Some(r.cost_of_funds)),
+            operating_cost: Cell(Some(r.operating_cost)),
         })
     }))
 }

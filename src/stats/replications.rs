@@ -38,6 +38,15 @@ pub struct ReplicationFigures {
     pub slot_cycles: u64,
     /// The largest single-cycle loss rate among the counted cycles that lent, `None` when none did.
     pub worst_cycle_loss: Option<f64>,
+    /// Fees charged at disbursement (0 in files written before `[finance]` existed).
+    #[serde(default)]
+    pub fees: f64,
+    /// The lender's cost of funds.
+    #[serde(default)]
+    pub cost_of_funds: f64,
+    /// Operating cost of the loans served.
+    #[serde(default)]
+    pub operating_cost: f64,
 }
 
 fn ratio(num: f64, den: f64) -> Option<f64> {
@@ -61,6 +70,9 @@ impl ReplicationFigures {
             excluded_slot_cycles: t.excluded_slot_cycles,
             slot_cycles: t.slot_cycles(),
             worst_cycle_loss: worst_cycle_loss(t),
+            fees: t.fees,
+            cost_of_funds: t.cost_of_funds,
+            operating_cost: t.operating_cost,
         }
     }
 
@@ -72,9 +84,19 @@ impl ReplicationFigures {
     pub fn loss_rate(&self) -> Option<f64> {
         ratio(self.loss, self.disbursed)
     }
-    /// (collected + recovered - disbursed) / disbursed.
+    /// (collected + recovered + fees - disbursed - cost of funds - operating cost) / disbursed.
     pub fn net_yield(&self) -> Option<f64> {
-        ratio(self.collected + self.recovered - self.disbursed, self.disbursed)
+        ratio(
+            crate::stats::tally::net_income(
+                self.collected,
+                self.recovered,
+                self.fees,
+                self.disbursed,
+                self.cost_of_funds,
+                self.operating_cost,
+            ),
+            self.disbursed,
+        )
     }
     /// Served slot-cycles / slot-cycles.
     pub fn served_share(&self) -> Option<f64> {
@@ -102,6 +124,9 @@ impl ReplicationFigures {
             disbursed: self.disbursed,
             collected: self.collected,
             recovered: self.recovered,
+            fees: self.fees,
+            cost_of_funds: self.cost_of_funds,
+            operating_cost: self.operating_cost,
             served_slot_cycles: self.served_slot_cycles,
             excluded_slot_cycles: self.excluded_slot_cycles,
             waiting_slot_cycles: self
