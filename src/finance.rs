@@ -133,6 +133,10 @@ pub struct Capital {
     pub lgd: f64,
     /// EAD = mean principal outstanding.
     pub ead: f64,
+    /// The simulated loss per defaulting member loan as a share of its principal (loss / (member
+    /// defaults x principal)): under joint liability a defaulting group still pays part, so this
+    /// lies well below `lgd`, and the formula at `lgd` overstates.
+    pub realized_lgd: Option<f64>,
     /// The Basel II other-retail correlation R(PD) at the annual default rate.
     pub basel_correlation: Option<f64>,
     /// K x EAD: Basel II other-retail capital at the annual default rate.
@@ -147,6 +151,13 @@ pub struct Capital {
     pub exact_note: Option<String>,
     /// One sentence: which figure is larger and why.
     pub sentence: String,
+}
+
+impl Capital {
+    /// Whether the exact law is absent (out of class, or not computed).
+    pub fn exact_law_missing(&self) -> bool {
+        self.exact_annual_law.is_none()
+    }
 }
 
 /// An arm's year, money and capital.
@@ -218,6 +229,8 @@ pub fn arm_finance(
     let per_cycle = (loans > 0).then(|| defaults as f64 / loans as f64);
     let annual_default_rate = per_cycle.map(|p| annual_rate(p, cpy));
     let lgd = 1.0 - arm.recovery_rate();
+    let realized_lgd =
+        (defaults > 0).then(|| sum(|r| r.loss) / (defaults as f64 * arm.principal()));
     let basel_correlation = annual_default_rate.and_then(|pd| basel::retail_correlation(pd).ok());
     let basel_capital = annual_default_rate
         .and_then(|pd| basel::capital_requirement(pd, lgd).ok())
@@ -235,6 +248,7 @@ pub fn arm_finance(
         basel_capital,
         basel_correlation,
         exact_unexpected_loss,
+        realized_lgd.map(|r| (r, lgd)),
         &finance.currency().to_owned(),
     );
     ArmFinance {
@@ -249,6 +263,7 @@ pub fn arm_finance(
             annual_default_rate,
             lgd,
             ead: principal_outstanding,
+            realized_lgd,
             basel_correlation,
             basel_capital,
             exact_annual_law,
@@ -262,6 +277,10 @@ pub fn arm_finance(
 /// The annual rate of an event with per-cycle probability `p` in independent cycles:
 /// 1 - (1 - p)^cycles_per_year.
 pub fn annual_rate(p: f64, cycles_per_year: u32) -> f64 {
+    // A year of one cycle is the cycle itself, to the bit.
+    if cycles_per_year <= 1 {
+        return p;
+    }
     1.0 - (1.0 - p).powi(cycles_per_year as i32)
 }
 
@@ -293,6 +312,7 @@ fn capital_sentence(
     basel: Option<f64>,
     basel_correlation: Option<f64>,
     exact: Option<f64>,
+    realized_lgd: Option<(f64, f64)>,
     currency: &str,
 ) -> String {
     let (Some(sim), Some(k), Some(r)) = (simulated, basel, basel_correlation) else {
@@ -311,12 +331,21 @@ fn capital_sentence(
         .map(|e| format!(" The exact law of a year of normal cycles gives {} {currency}.", money_text(e)))
         .unwrap_or_default();
     let (sim_t, k_t) = (money_text(sim), money_text(k));
+    let lgd_part = match realized_lgd {
+        Some((real, lgd)) if real < 0.8 * lgd => format!(
+            " The formula also takes every defaulting loan as losing {:.0}% of its principal, while the simulated \
+             defaulting loans lost {:.0}% (defaulting groups still pay part), which alone makes it larger.",
+            100.0 * lgd,
+            100.0 * real
+        ),
+        _ => String::new(),
+    };
     if k >= sim {
         format!(
             "Basel capital ({k_t} {currency}) exceeds the simulated unexpected loss ({sim_t} {currency}): the formula \
              assumes every loan shares one factor with correlation {r:.3}, while here village factors (correlation \
              {village_rho}) diversify across {} villages and only the portfolio-wide draws (portfolio correlation \
-             {portfolio_rho}{}) move them together.{exact_part}",
+             {portfolio_rho}{}) move them together.{lgd_part}{exact_part}",
             scenario.villages(),
             if wide { ", portfolio-scope shocks" } else { "" }
         )
@@ -325,7 +354,7 @@ fn capital_sentence(
             "The simulated unexpected loss ({sim_t} {currency}) exceeds Basel capital ({k_t} {currency}): the \
              scenario's shared shocks (village correlation {village_rho}, portfolio correlation {portfolio_rho}, \
              unit-scope shocks{}) cluster defaults more than the formula's correlation {r:.3} at this default rate, \
-             and {} villages do not diversify village-wide shocks away.{exact_part}",
+             and {} villages do not diversify village-wide shocks away.{lgd_part}{exact_part}",
             if stressed { ", stress windows" } else { "" },
             scenario.villages()
         )

@@ -268,6 +268,11 @@ fn money_section(out: &mut String, report: &RunReport, width: usize) {
          recovery rate; exact law UL: the exact portfolio law of a year of normal cycles, each default losing \
          its whole principal x LGD"
     );
+    if let Some(note) = first.finance.capital.exact_note.as_deref()
+        && report.arms.iter().all(|a| a.finance.capital.exact_law_missing())
+    {
+        let _ = writeln!(out, "exact law UL: none ({note})");
+    }
     const MAX_SENTENCES: usize = 4;
     for a in report.arms.iter().take(MAX_SENTENCES) {
         let prefix = if report.arms.len() > 1 {
