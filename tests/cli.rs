@@ -17,7 +17,7 @@ const BAD_INPUT: i32 = 2;
 
 /// The columns of summary.csv as users' scripts know them, spelled out here rather than taken from
 /// the writer, so a renamed or reordered column fails this file.
-const SUMMARY_COLUMNS: [&str; 46] = [
+const SUMMARY_COLUMNS: [&str; 66] = [
     "arm",
     "group_size",
     "liability",
@@ -64,6 +64,26 @@ const SUMMARY_COLUMNS: [&str; 46] = [
     "group_repayment_se",
     "loss_rate_se",
     "on_frontier",
+    "annual_loss_p50",
+    "annual_loss_p95",
+    "annual_loss_p99",
+    "annual_loss_p999",
+    "annual_loss_es99",
+    "annual_loss_amount_p999",
+    "annual_default_rate",
+    "principal_outstanding",
+    "disbursed_per_year",
+    "interest_per_year",
+    "fees_per_year",
+    "expected_loss_per_year",
+    "unexpected_loss_999",
+    "cost_of_funds_per_year",
+    "operating_cost_per_year",
+    "operational_self_sufficiency",
+    "operational_self_sufficiency_ci_low",
+    "operational_self_sufficiency_ci_high",
+    "basel_capital",
+    "exact_unexpected_loss",
 ];
 
 const OUTPUTS: [&str; 6] = [
