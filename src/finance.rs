@@ -144,8 +144,8 @@ pub struct Capital {
     /// The exact annual law (the per-cycle portfolio law of normal cycles convolved over a year),
     /// where the arm is in its class.
     pub exact_annual_law: Option<AnnualDefaultLaw>,
-    /// LGD x EAD x (99.9% quantile - mean) of the exact annual default share: each default counted
-    /// as losing its whole principal, so an upper bound where defaulters pay part.
+    /// EAD x (99.9% quantile - mean) of the exact annual default share x the simulated loss per
+    /// defaulting loan (`realized_lgd`; `lgd` when nothing defaulted).
     pub exact_unexpected_loss: Option<f64>,
     /// Why there is no exact figure.
     pub exact_note: Option<String>,
@@ -208,10 +208,7 @@ pub fn arm_finance(
             .map(|r| (interest(r) + r.fees, r.cost_of_funds + r.loss + r.operating_cost)),
     )
     .map(Interval::from);
-    let unexpected_loss_999 = annual_loss_amount
-        .p999
-        .zip(annual_loss_amount.mean)
-        .map(|(q, m)| q - m);
+    let unexpected_loss_999 = annual_loss_amount.p999.zip(annual_loss_amount.mean).map(|(q, m)| q - m);
     let money = Money {
         disbursed: per_year(disbursed),
         principal_outstanding,
@@ -229,27 +226,31 @@ pub fn arm_finance(
     let per_cycle = (loans > 0).then(|| defaults as f64 / loans as f64);
     let annual_default_rate = per_cycle.map(|p| annual_rate(p, cpy));
     let lgd = 1.0 - arm.recovery_rate();
-    let realized_lgd =
-        (defaults > 0).then(|| sum(|r| r.loss) / (defaults as f64 * arm.principal()));
+    let realized_lgd = (defaults > 0).then(|| sum(|r| r.loss) / (defaults as f64 * arm.principal()));
     let basel_correlation = annual_default_rate.and_then(|pd| basel::retail_correlation(pd).ok());
     let basel_capital = annual_default_rate
         .and_then(|pd| basel::capital_requirement(pd, lgd).ok())
         .map(|k| k * principal_outstanding);
     let exact_annual_law = exact.map(|law| law.over_cycles(cpy));
+    // The exact law counts defaults; what a default loses is taken from the simulation (the mean
+    // loss per defaulting loan), as the exact class fixes who defaults but not how much each pays.
+    let loss_given_default = realized_lgd.unwrap_or(lgd);
     let exact_unexpected_loss = exact_annual_law.as_ref().and_then(|law| {
         law.quantiles
             .get(&format!("{UNEXPECTED_LOSS_LEVEL}"))
-            .map(|q| lgd * principal_outstanding * (q - law.mean))
+            .map(|q| loss_given_default * principal_outstanding * (q - law.mean))
     });
     let sentence = capital_sentence(
         scenario,
         arm,
-        unexpected_loss_999,
-        basel_capital,
-        basel_correlation,
-        exact_unexpected_loss,
-        realized_lgd.map(|r| (r, lgd)),
-        &finance.currency().to_owned(),
+        &SentenceFigures {
+            simulated: unexpected_loss_999,
+            basel: basel_capital,
+            basel_correlation,
+            exact: exact_unexpected_loss,
+            realized_lgd: realized_lgd.map(|r| (r, lgd)),
+        },
+        finance.currency(),
     );
     ArmFinance {
         cycles_per_year: cpy,
@@ -303,18 +304,27 @@ pub fn money_text(x: f64) -> String {
     if x < 0.0 { format!("-{out}") } else { out }
 }
 
-/// Which capital figure is larger, and why: diversification across villages, and the correlation
-/// the scenario states against the one the formula assumes.
-fn capital_sentence(
-    scenario: &Scenario,
-    arm: &Arm,
+/// The capital figures a sentence compares: simulated UL, Basel K x EAD and its R(PD), the exact
+/// law's UL, and (realized, assumed) LGD.
+#[derive(Clone, Copy)]
+struct SentenceFigures {
     simulated: Option<f64>,
     basel: Option<f64>,
     basel_correlation: Option<f64>,
     exact: Option<f64>,
     realized_lgd: Option<(f64, f64)>,
-    currency: &str,
-) -> String {
+}
+
+/// Which capital figure is larger, and why: diversification across villages, and the correlation
+/// the scenario states against the one the formula assumes.
+fn capital_sentence(scenario: &Scenario, arm: &Arm, figures: &SentenceFigures, currency: &str) -> String {
+    let SentenceFigures {
+        simulated,
+        basel,
+        basel_correlation,
+        exact,
+        realized_lgd,
+    } = *figures;
     let (Some(sim), Some(k), Some(r)) = (simulated, basel, basel_correlation) else {
         return "No comparison: the simulated 99.9% annual loss needs at least 1,000 replication-years, and the \
                 formula a default rate strictly between 0 and 1."
@@ -322,13 +332,17 @@ fn capital_sentence(
     };
     let portfolio_rho: f64 = arm.shocks().iter().map(|s| s.portfolio_correlation()).sum();
     let village_rho: f64 = arm.shocks().iter().map(|s| s.village_correlation()).sum();
-    let wide = arm
-        .shocks()
-        .iter()
-        .any(|s| s.scope() == ShockScope::Portfolio || (s.scope() == ShockScope::Member && s.portfolio_correlation() > 0.0));
+    let wide = arm.shocks().iter().any(|s| {
+        s.scope() == ShockScope::Portfolio || (s.scope() == ShockScope::Member && s.portfolio_correlation() > 0.0)
+    });
     let stressed = arm.shocks().iter().any(|s| !s.stress().is_empty());
     let exact_part = exact
-        .map(|e| format!(" The exact law of a year of normal cycles gives {} {currency}.", money_text(e)))
+        .map(|e| {
+            format!(
+                " The exact law of a year of normal cycles gives {} {currency}.",
+                money_text(e)
+            )
+        })
         .unwrap_or_default();
     let (sim_t, k_t) = (money_text(sim), money_text(k));
     let lgd_part = match realized_lgd {

@@ -78,7 +78,12 @@ fn annual_loss_quantiles_follow_the_binomial_law_of_a_year() {
             0.0
         };
         assert!(hi >= q - band, "q {q}: F({}) = {hi} < {}", count.ceil(), q - band);
-        assert!(below <= q + band, "q {q}: F({}) = {below} > {}", count.floor() - 1.0, q + band);
+        assert!(
+            below <= q + band,
+            "q {q}: F({}) = {below} > {}",
+            count.floor() - 1.0,
+            q + band
+        );
     }
     // The mean annual loss rate is 4 x 0.05 = 0.2, with the standard error of a mean of independent
     // replications (each replication's two years together).
@@ -106,7 +111,11 @@ fn annual_loss_quantiles_follow_the_binomial_law_of_a_year() {
     assert_eq!(exact.cycles_per_year, 4);
     for (key, q) in [("0.95", 0.95), ("0.99", 0.99), ("0.999", 0.999)] {
         let want = (0..=800u64).find(|&j| year.cdf(j) >= q).unwrap() as f64 / 200.0;
-        assert!((exact.quantiles[key] - want).abs() < 1e-12, "{key}: {} vs {want}", exact.quantiles[key]);
+        assert!(
+            (exact.quantiles[key] - want).abs() < 1e-12,
+            "{key}: {} vs {want}",
+            exact.quantiles[key]
+        );
     }
     assert!((exact.mean - 0.2).abs() < 1e-9);
 }
@@ -172,11 +181,16 @@ fn counted_cycles_that_do_not_make_whole_years_are_refused() {
     let text = NO_SHOCK.replace("cycles = 4\n", "cycles = 5\n");
     let err = Scenario::from_toml_str(&text, "year.toml").unwrap_err().to_string();
     assert!(
-        err.starts_with("year.toml: line 16, field finance.cycles_per_year: 2 is not allowed: a divisor of the counted cycles"),
+        err.starts_with(
+            "year.toml: line 16, field finance.cycles_per_year: 2 is not allowed: a divisor of the counted cycles"
+        ),
         "{err}"
     );
     assert!(!err.contains('\n'));
-    let swept = NO_SHOCK.replace("fee_rate = 0.02\n", "fee_rate = 0.02\n[sweep]\nfinance.fee_rate = [0.01, 0.02]\n");
+    let swept = NO_SHOCK.replace(
+        "fee_rate = 0.02\n",
+        "fee_rate = 0.02\n[sweep]\nfinance.fee_rate = [0.01, 0.02]\n",
+    );
     assert!(Scenario::from_toml_str(&swept, "sweep.toml").is_err());
 }
 
@@ -224,13 +238,15 @@ fn a_scenario_without_finance_gives_the_same_figures() {
     );
     // Without costs, net yield is bit for bit (collected + recovered - disbursed) / disbursed, as
     // before the finance table existed.
-    let (c, r, d): (f64, f64, f64) = a
-        .replications
-        .iter()
-        .fold((0.0, 0.0, 0.0), |acc, x| (acc.0 + x.collected, acc.1 + x.recovered, acc.2 + x.disbursed));
+    let (c, r, d): (f64, f64, f64) = a.replications.iter().fold((0.0, 0.0, 0.0), |acc, x| {
+        (acc.0 + x.collected, acc.1 + x.recovered, acc.2 + x.disbursed)
+    });
     assert_eq!(a.summary.net_yield, Some((c + r - d) / d));
     for x in &a.replications {
-        assert_eq!(x.net_yield(), Some((x.collected + x.recovered - x.disbursed) / x.disbursed));
+        assert_eq!(
+            x.net_yield(),
+            Some((x.collected + x.recovered - x.disbursed) / x.disbursed)
+        );
         assert_eq!((x.fees, x.cost_of_funds, x.operating_cost), (0.0, 0.0, 0.0));
     }
     // A year is one cycle: the annual default rate is the per-cycle member default rate.

@@ -8,7 +8,7 @@
 //! never fails as a whole: each section carries its own reason when it does not apply.
 
 use super::one_factor::{self, OneFactorModel, OneFactorResult};
-use super::portfolio_law::{self, PortfolioDefaultLaw};
+use super::portfolio_law::{self, AnnualDefaultLaw, PortfolioDefaultLaw};
 use super::{basel, vasicek};
 use crate::scenario::{Liability, Scenario, ShockProbability, ShockScope};
 use rayon::prelude::*;
@@ -44,6 +44,9 @@ pub struct ArmExact {
     pub stress_laws: Vec<PortfolioDefaultLaw>,
     /// The input that puts this arm outside the class of the portfolio law.
     pub out_of_class: Option<String>,
+    /// The law of a year of normal cycles (`[finance] cycles_per_year`): the per-cycle law
+    /// convolved over the year's independent cycles.
+    pub annual_default_law: Option<AnnualDefaultLaw>,
 }
 
 /// Which population the hit-share law describes.
@@ -149,6 +152,10 @@ pub struct AnalyzeReport {
     pub portfolio_default_law: Option<PortfolioDefaultLaw>,
     /// The first arm's laws in each stress state.
     pub stress_laws: Vec<PortfolioDefaultLaw>,
+    /// The first arm's law of a year of normal cycles.
+    pub annual_default_law: Option<AnnualDefaultLaw>,
+    /// Loan cycles per year (`[finance]`; 1 without it).
+    pub cycles_per_year: u32,
     /// The input that puts the first arm outside the portfolio law's class (beside
     /// `portfolio_default_law`, which is then null).
     pub out_of_class: Option<String>,
@@ -197,6 +204,7 @@ pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
                 portfolio_default_law: None,
                 stress_laws: Vec::new(),
                 out_of_class: None,
+                annual_default_law: None,
             }
         })
         .collect();
@@ -205,6 +213,10 @@ pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
             arm.portfolio_default_law = l.portfolio_default_law;
             arm.stress_laws = l.stress_laws;
             arm.out_of_class = l.out_of_class;
+            arm.annual_default_law = arm
+                .portfolio_default_law
+                .as_ref()
+                .map(|law| law.over_cycles(scenario.finance().cycles_per_year()));
         }
     }
     let (hit_share, hit_share_reason) = match hit_share_section(scenario) {
@@ -225,6 +237,8 @@ pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
         model,
         portfolio_default_law: first.and_then(|a| a.portfolio_default_law.clone()),
         stress_laws: first.map(|a| a.stress_laws.clone()).unwrap_or_default(),
+        annual_default_law: first.and_then(|a| a.annual_default_law.clone()),
+        cycles_per_year: scenario.finance().cycles_per_year(),
         out_of_class: first.and_then(|a| a.out_of_class.clone()),
         basel,
         arms,

@@ -153,9 +153,17 @@ pub fn table(report: &AnalyzeReport) -> String {
                     );
                 }
             }
+            let horizon = if report.cycles_per_year > 1 {
+                format!(
+                    "one cycle as the horizon although a year is {} cycles here (`run` sets Basel capital at the annual default rate beside the simulated annual tail)",
+                    report.cycles_per_year
+                )
+            } else {
+                "one cycle as the one-year horizon".to_string()
+            };
             let _ = writeln!(
                 out,
-                "  Basel figures treat one cycle as the one-year horizon and a hit as a default (true when a hit leaves a shortfall nobody covers); no 1.06 scaling, no PD floor"
+                "  Basel figures treat {horizon} and a hit as a default (true when a hit leaves a shortfall nobody covers); no 1.06 scaling, no PD floor"
             );
         }
         (None, reason) => {
@@ -203,11 +211,7 @@ fn law_rows(out: &mut String, law: &PortfolioDefaultLaw) {
 /// large-portfolio limit.
 fn portfolio_section(out: &mut String, report: &AnalyzeReport) {
     let _ = writeln!(out, "Share of the portfolio's loans in default per cycle (exact law)");
-    let reasons: Vec<&str> = report
-        .arms
-        .iter()
-        .filter_map(|a| a.out_of_class.as_deref())
-        .collect();
+    let reasons: Vec<&str> = report.arms.iter().filter_map(|a| a.out_of_class.as_deref()).collect();
     if !report.arms.is_empty() && reasons.len() == report.arms.len() && reasons.iter().all(|r| *r == reasons[0]) {
         let _ = writeln!(out, "  out of class: {}", reasons[0]);
         return;
@@ -228,6 +232,20 @@ fn portfolio_section(out: &mut String, report: &AnalyzeReport) {
                 law_rows(out, law);
                 for s in &arm.stress_laws {
                     law_rows(out, s);
+                }
+                if let Some(year) = &arm.annual_default_law
+                    && year.cycles_per_year > 1
+                {
+                    let _ = writeln!(
+                        out,
+                        "    a year of {} normal cycles (loans defaulting in the year / loans per cycle)",
+                        year.cycles_per_year
+                    );
+                    let q: Vec<f64> = QUANTILE_LEVELS
+                        .iter()
+                        .map(|q| year.quantiles.get(&format!("{q}")).copied().unwrap_or(f64::NAN))
+                        .collect();
+                    law_row(out, "exact, a year", Some(year.mean), &q, Some(year.es99));
                 }
             }
             (None, reason) => {

@@ -186,7 +186,12 @@ fn money_section(out: &mut String, report: &RunReport, width: usize) {
     let Some(first) = report.arms.first() else { return };
     let f = &first.finance;
     let cur = &f.currency;
-    let years = report.arms.iter().map(|a| a.finance.replication_years).max().unwrap_or(0);
+    let years = report
+        .arms
+        .iter()
+        .map(|a| a.finance.replication_years)
+        .max()
+        .unwrap_or(0);
     let _ = writeln!(
         out,
         "a year = {} cycle(s); money per year in {cur}, means over {} replication-years:",
@@ -265,8 +270,8 @@ fn money_section(out: &mut String, report: &RunReport, width: usize) {
         "outstanding: mean principal outstanding (EAD); UL 99.9%: 99.9% annual loss minus its mean; OSS: \
          (interest + fees) / (cost of funds + loan losses + operating cost); annual PD: 1 - (1 - member \
          default rate)^cycles per year; Basel K x EAD: Basel II other-retail capital at that PD with LGD = 1 - \
-         recovery rate; exact law UL: the exact portfolio law of a year of normal cycles, each default losing \
-         its whole principal x LGD"
+         recovery rate; exact law UL: the exact portfolio default law of a year of normal cycles, each default \
+         losing the simulated mean loss per defaulting loan"
     );
     if let Some(note) = first.finance.capital.exact_note.as_deref()
         && report.arms.iter().all(|a| a.finance.capital.exact_law_missing())

@@ -13,8 +13,8 @@ use super::raw::{
 };
 use super::sweep::{self, Axis};
 use super::{
-    Arm, Exclusion, ExclusionScope, Finance, Liability, Policy, Scenario, ScenarioError, Shock, ShockProbability, ShockScope,
-    StressWindow, SweptValue, limits,
+    Arm, Exclusion, ExclusionScope, Finance, Liability, Policy, Scenario, ScenarioError, Shock, ShockProbability,
+    ShockScope, StressWindow, SweptValue, limits,
 };
 use crate::curve::{CurveError, GroupSizeCurve};
 use crate::dist::{Distribution, DistributionError};
@@ -386,7 +386,7 @@ impl Checker<'_> {
         let mut finance = Finance::default();
         if let Some(w) = &f.cycles_per_year {
             let n = self.count("finance.cycles_per_year", "finance.cycles_per_year", w, None)?;
-            if common.cycles % n != 0 {
+            if !common.cycles.is_multiple_of(n) {
                 return Err(self.invalid(
                     "finance.cycles_per_year",
                     Some(&w.origin),
