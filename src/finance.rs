@@ -345,30 +345,45 @@ fn capital_sentence(scenario: &Scenario, arm: &Arm, figures: &SentenceFigures, c
         })
         .unwrap_or_default();
     let (sim_t, k_t) = (money_text(sim), money_text(k));
-    let lgd_part = match realized_lgd {
-        Some((real, lgd)) if real < 0.8 * lgd => format!(
-            " The formula also takes every defaulting loan as losing {:.0}% of its principal, while the simulated \
-             defaulting loans lost {:.0}% (defaulting groups still pay part), which alone makes it larger.",
+    let mut reasons: Vec<String> = Vec::new();
+    if let Some((real, lgd)) = realized_lgd
+        && real < 0.8 * lgd
+    {
+        reasons.push(format!(
+            "it takes every defaulting loan as losing {:.0}% of its principal, while the simulated defaulting loans \
+             lost {:.0}% (a defaulting loan still collects part)",
             100.0 * lgd,
             100.0 * real
-        ),
-        _ => String::new(),
-    };
-    if k >= sim {
-        format!(
-            "Basel capital ({k_t} {currency}) exceeds the simulated unexpected loss ({sim_t} {currency}): the formula \
-             assumes every loan shares one factor with correlation {r:.3}, while here village factors (correlation \
+        ));
+    }
+    let scenario_rho = village_rho + portfolio_rho;
+    if r > portfolio_rho + 0.005 {
+        reasons.push(format!(
+            "its one factor (correlation {r:.3}) moves every loan at once, while here village factors (correlation \
              {village_rho}) diversify across {} villages and only the portfolio-wide draws (portfolio correlation \
-             {portfolio_rho}{}) move them together.{lgd_part}{exact_part}",
+             {portfolio_rho}{}) move them all",
             scenario.villages(),
             if wide { ", portfolio-scope shocks" } else { "" }
+        ));
+    }
+    if k >= sim {
+        let why = if reasons.is_empty() {
+            format!(
+                "at this default rate the formula's tail (correlation {r:.3}) is heavier than the scenario's \
+                 (member correlation {scenario_rho})"
+            )
+        } else {
+            reasons.join("; and ")
+        };
+        format!(
+            "Basel capital ({k_t} {currency}) exceeds the simulated unexpected loss ({sim_t} {currency}): {why}.{exact_part}"
         )
     } else {
         format!(
             "The simulated unexpected loss ({sim_t} {currency}) exceeds Basel capital ({k_t} {currency}): the \
              scenario's shared shocks (village correlation {village_rho}, portfolio correlation {portfolio_rho}, \
              unit-scope shocks{}) cluster defaults more than the formula's correlation {r:.3} at this default rate, \
-             and {} villages do not diversify village-wide shocks away.{lgd_part}{exact_part}",
+             and {} villages do not diversify village-wide shocks away.{exact_part}",
             if stressed { ", stress windows" } else { "" },
             scenario.villages()
         )
