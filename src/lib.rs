@@ -43,6 +43,7 @@ pub mod curve;
 pub mod demo;
 pub mod dist;
 pub mod engine;
+pub mod finance;
 pub mod fit;
 pub mod group_size;
 pub mod loanbook;

@@ -35,6 +35,8 @@ pub struct ArmReport {
     /// loses at most as much and serves at least as many, one of the two strictly); `None` when the
     /// arm lacks either figure.
     pub on_frontier: Option<bool>,
+    /// The year, money and capital (`[finance]`; a year is one cycle without it).
+    pub finance: crate::finance::ArmFinance,
     /// Per-replication figures, in replication order (replications.csv, not summary.json).
     #[serde(skip)]
     pub replications: Vec<ReplicationFigures>,
@@ -152,6 +154,7 @@ pub fn build_with_baseline(
             .map(|s| s.loss_rate.map(|l| l.rate))
             .collect::<Vec<_>>(),
     );
+    let laws = exact_laws(scenario);
     let arms: Vec<ArmReport> = scenario
         .arms()
         .iter()
@@ -159,6 +162,13 @@ pub fn build_with_baseline(
         .zip(summaries)
         .enumerate()
         .map(|(i, ((arm, tally), summary))| ArmReport {
+            finance: crate::finance::arm_finance(
+                scenario,
+                arm,
+                tally,
+                laws[i].portfolio_default_law.as_ref(),
+                laws[i].out_of_class.clone(),
+            ),
             on_frontier: frontier[i],
             arm: arm.clone(),
             summary,
@@ -185,6 +195,34 @@ pub fn build_with_baseline(
         caution: CAUTION.to_string(),
         incomplete: None,
     }
+}
+
+/// Most arms for which a run computes the exact portfolio law beside its capital figures (each law
+/// can take seconds for a large portfolio; `analyze` computes it for every arm).
+pub const MAX_EXACT_LAW_ARMS: usize = 64;
+
+/// Each arm's exact portfolio laws, or why there are none; arms are independent, so in parallel.
+fn exact_laws(scenario: &Scenario) -> Vec<crate::analytic::portfolio_law::ArmPortfolioLaws> {
+    use rayon::prelude::*;
+    let arms = scenario.arms().len();
+    if arms > MAX_EXACT_LAW_ARMS {
+        return scenario
+            .arms()
+            .iter()
+            .map(|a| crate::analytic::portfolio_law::ArmPortfolioLaws {
+                label: a.label().to_owned(),
+                portfolio_default_law: None,
+                stress_laws: Vec::new(),
+                out_of_class: Some(format!(
+                    "a run computes the exact law for at most {MAX_EXACT_LAW_ARMS} arms; `analyze` gives it for all"
+                )),
+            })
+            .collect();
+    }
+    (0..arms)
+        .into_par_iter()
+        .map(|a| crate::analytic::portfolio_law::arm_laws(scenario, a))
+        .collect()
 }
 
 /// For each arm's (loss rate, served share), whether no other arm has a loss rate at most as high

@@ -17,7 +17,7 @@ const BAD_INPUT: i32 = 2;
 
 /// The columns of summary.csv as users' scripts know them, spelled out here rather than taken from
 /// the writer, so a renamed or reordered column fails this file.
-const SUMMARY_COLUMNS: [&str; 78] = [
+const SUMMARY_COLUMNS: [&str; 98] = [
     "arm",
     "group_size",
     "liability",
@@ -96,6 +96,26 @@ const SUMMARY_COLUMNS: [&str; 78] = [
     "strategic_default_ci_high",
     "able_members",
     "mean_principal",
+    "annual_loss_p50",
+    "annual_loss_p95",
+    "annual_loss_p99",
+    "annual_loss_p999",
+    "annual_loss_es99",
+    "annual_loss_amount_p999",
+    "annual_default_rate",
+    "principal_outstanding",
+    "disbursed_per_year",
+    "interest_per_year",
+    "fees_per_year",
+    "expected_loss_per_year",
+    "unexpected_loss_999",
+    "cost_of_funds_per_year",
+    "operating_cost_per_year",
+    "operational_self_sufficiency",
+    "operational_self_sufficiency_ci_low",
+    "operational_self_sufficiency_ci_high",
+    "basel_capital",
+    "exact_unexpected_loss",
 ];
 
 const OUTPUTS: [&str; 6] = [

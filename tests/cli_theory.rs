@@ -122,7 +122,7 @@ fn analyze_reports_exact_values_in_class_and_the_reason_outside() {
     let root = env!("CARGO_MANIFEST_DIR");
     let theory = format!("{root}/scenarios-demo/theory.toml");
     let v = json(&loancycle(&["analyze", &theory, "--json"]));
-    assert!(v["out_of_class"].is_null());
+    assert!(v["one_factor_out_of_class"].is_null());
     // Every arm of the theory demo (group sizes 2..=10, each without and with full cover), in order,
     // each with an exact probability strictly between 0 and 1.
     let arms = v["arms"].as_array().expect("arms");
@@ -253,7 +253,7 @@ fn analyze_json_carries_the_portfolio_law_of_every_arm_and_stress_state() {
     assert_eq!(first.unit, "member loans");
     assert_eq!(first.units, 2000);
     law_matches(&v["portfolio_default_law"], first);
-    assert!(v["portfolio_out_of_class"].is_null());
+    assert!(v["out_of_class"].is_null());
     let stress = v["stress_laws"].as_array().expect("stress laws");
     assert_eq!(stress.len(), 1);
     assert_eq!(stress[0]["cycles"], "4-5");
@@ -359,11 +359,11 @@ fn analyze_names_the_input_that_puts_the_portfolio_law_out_of_class() {
     let baseline = format!("{root}/scenarios-demo/baseline.toml");
     let v = json(&loancycle(&["analyze", &baseline, "--json"]));
     assert!(v["portfolio_default_law"].is_null());
-    let reason = v["portfolio_out_of_class"].as_str().expect("a reason");
+    let reason = v["out_of_class"].as_str().expect("a reason");
     assert!(reason.contains("borrowers.income"), "{reason}");
     for arm in v["arms"].as_array().unwrap() {
         assert!(arm["portfolio_default_law"].is_null());
-        assert!(arm["portfolio_out_of_class"].as_str().is_some());
+        assert!(arm["out_of_class"].as_str().is_some());
     }
     let out = loancycle(&["analyze", &baseline]);
     let text = String::from_utf8_lossy(&out.stdout);

@@ -408,6 +408,7 @@ mod tests {
             swept_fields: vec![],
             arms: vec![],
             warnings: vec![],
+            finance: crate::scenario::Finance::default(),
         }
         .with_policies(vec![("base", Policy::default_policy())])
     }

@@ -8,7 +8,7 @@
 //! never fails as a whole: each section carries its own reason when it does not apply.
 
 use super::one_factor::{self, OneFactorModel, OneFactorResult};
-use super::portfolio_law::{self, PortfolioDefaultLaw};
+use super::portfolio_law::{self, AnnualDefaultLaw, PortfolioDefaultLaw};
 use super::{basel, vasicek};
 use crate::scenario::{Liability, Scenario, ShockProbability, ShockScope};
 use rayon::prelude::*;
@@ -43,7 +43,10 @@ pub struct ArmExact {
     /// The same law in each stress state of the counted cycles.
     pub stress_laws: Vec<PortfolioDefaultLaw>,
     /// The input that puts this arm outside the class of the portfolio law.
-    pub portfolio_out_of_class: Option<String>,
+    pub out_of_class: Option<String>,
+    /// The law of a year of normal cycles (`[finance] cycles_per_year`): the per-cycle law
+    /// convolved over the year's independent cycles.
+    pub annual_default_law: Option<AnnualDefaultLaw>,
 }
 
 /// Which population the hit-share law describes.
@@ -137,8 +140,8 @@ pub struct HitShareSection {
 pub struct AnalyzeReport {
     /// The scenario's name.
     pub scenario: String,
-    /// Why the scenario is outside the one-factor class, if it is.
-    pub out_of_class: Option<String>,
+    /// Why the scenario is outside the one-factor class of exact group repayment, if it is.
+    pub one_factor_out_of_class: Option<String>,
     /// The one-factor model, if in class.
     pub model: Option<OneFactorModel>,
     /// Per-arm exact results.
@@ -151,8 +154,13 @@ pub struct AnalyzeReport {
     pub portfolio_default_law: Option<PortfolioDefaultLaw>,
     /// The first arm's laws in each stress state.
     pub stress_laws: Vec<PortfolioDefaultLaw>,
-    /// The input that puts the first arm outside the portfolio law's class.
-    pub portfolio_out_of_class: Option<String>,
+    /// The first arm's law of a year of normal cycles.
+    pub annual_default_law: Option<AnnualDefaultLaw>,
+    /// Loan cycles per year (`[finance]`; 1 without it).
+    pub cycles_per_year: u32,
+    /// The input that puts the first arm outside the portfolio law's class (beside
+    /// `portfolio_default_law`, which is then null).
+    pub out_of_class: Option<String>,
     /// The Basel II comparison at the first arm's hit probability, where it applies.
     pub basel: Option<BaselComparison>,
     /// The caution printed under the table.
@@ -162,7 +170,7 @@ pub struct AnalyzeReport {
 /// Builds the report. Nothing here fails as a whole: each part records its own reason.
 pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
     let class = one_factor::class_check(&scenario.arms()[0]);
-    let (model, out_of_class) = match class {
+    let (model, one_factor_out_of_class) = match class {
         Ok(m) => (Some(m), None),
         Err(e) => (None, Some(e.reason)),
     };
@@ -186,7 +194,7 @@ pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
             let (exact, reason) = match computed {
                 Ok(r) => (Some(r), None),
                 // The first arm's reason is the report's; an arm repeating it says nothing new.
-                Err(e) if out_of_class.as_deref() == Some(e.as_str()) => (None, None),
+                Err(e) if one_factor_out_of_class.as_deref() == Some(e.as_str()) => (None, None),
                 Err(e) => (None, Some(e)),
             };
             ArmExact {
@@ -199,7 +207,8 @@ pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
                 reason,
                 portfolio_default_law: None,
                 stress_laws: Vec::new(),
-                portfolio_out_of_class: None,
+                out_of_class: None,
+                annual_default_law: None,
             }
         })
         .collect();
@@ -207,7 +216,11 @@ pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
         if let Some(l) = laws.next() {
             arm.portfolio_default_law = l.portfolio_default_law;
             arm.stress_laws = l.stress_laws;
-            arm.portfolio_out_of_class = l.out_of_class;
+            arm.out_of_class = l.out_of_class;
+            arm.annual_default_law = arm
+                .portfolio_default_law
+                .as_ref()
+                .map(|law| law.over_cycles(scenario.finance().cycles_per_year()));
         }
     }
     let (hit_share, hit_share_reason) = match hit_share_section(scenario) {
@@ -224,11 +237,13 @@ pub fn analyze(scenario: &Scenario) -> AnalyzeReport {
     });
     AnalyzeReport {
         scenario: scenario.name().to_owned(),
-        out_of_class,
+        one_factor_out_of_class,
         model,
         portfolio_default_law: first.and_then(|a| a.portfolio_default_law.clone()),
         stress_laws: first.map(|a| a.stress_laws.clone()).unwrap_or_default(),
-        portfolio_out_of_class: first.and_then(|a| a.portfolio_out_of_class.clone()),
+        annual_default_law: first.and_then(|a| a.annual_default_law.clone()),
+        cycles_per_year: scenario.finance().cycles_per_year(),
+        out_of_class: first.and_then(|a| a.out_of_class.clone()),
         basel,
         arms,
         hit_share,
@@ -443,6 +458,7 @@ mod tests {
             swept_fields: vec!["peer_cover".into()],
             arms: vec![],
             warnings: vec![],
+            finance: crate::scenario::Finance::default(),
         }
         .with_policies(vec![("joint", joint), ("individual", individual)])
     }
@@ -450,7 +466,7 @@ mod tests {
     #[test]
     fn in_class_scenario_gets_every_section() {
         let report = analyze(&scenario(1, 0.1));
-        assert!(report.out_of_class.is_none());
+        assert!(report.one_factor_out_of_class.is_none());
         assert_eq!(report.arms.len(), 2);
         let joint = report.arms[0].exact.as_ref().unwrap();
         let individual = report.arms[1].exact.as_ref().unwrap();
@@ -498,7 +514,7 @@ mod tests {
         }
         let report = analyze(&s);
         assert_eq!(
-            report.out_of_class.as_deref(),
+            report.one_factor_out_of_class.as_deref(),
             Some("borrowers.income is a lognormal distribution, not fixed")
         );
         assert!(report.arms.iter().all(|a| a.exact.is_none()));

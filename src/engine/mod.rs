@@ -37,6 +37,7 @@ pub fn simulate_replication(scenario: &Scenario, arm: usize, replication: u32) -
     for cycle in 1..=scenario.total_cycles() {
         sim.run_cycle(cycle);
     }
+    crate::finance::charge(&mut sim.tally, scenario.finance());
     sim.tally
 }
 
@@ -57,6 +58,7 @@ pub fn simulate_replication_with_book(
     for cycle in 1..=scenario.total_cycles() {
         sim.run_cycle(cycle);
     }
+    crate::finance::charge(&mut sim.tally, scenario.finance());
     sim.tally
 }
 

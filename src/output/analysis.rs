@@ -20,7 +20,7 @@ pub fn table(report: &AnalyzeReport) -> String {
     let _ = writeln!(out, "Analysis of scenario '{}'", report.scenario);
     let _ = writeln!(out);
     let _ = writeln!(out, "Exact per-cycle group repayment (one-factor class)");
-    match (&report.model, &report.out_of_class) {
+    match (&report.model, &report.one_factor_out_of_class) {
         (Some(m), _) => {
             let prob = match &m.probability {
                 ShockProbability::Fixed(p) => format!("p = {p}"),
@@ -157,9 +157,17 @@ pub fn table(report: &AnalyzeReport) -> String {
                     );
                 }
             }
+            let horizon = if report.cycles_per_year > 1 {
+                format!(
+                    "one cycle as the horizon although a year is {} cycles here (`run` sets Basel capital at the annual default rate beside the simulated annual tail)",
+                    report.cycles_per_year
+                )
+            } else {
+                "one cycle as the one-year horizon".to_string()
+            };
             let _ = writeln!(
                 out,
-                "  Basel figures treat one cycle as the one-year horizon and a hit as a default (true when a hit leaves a shortfall nobody covers); no 1.06 scaling, no PD floor"
+                "  Basel figures treat {horizon} and a hit as a default (true when a hit leaves a shortfall nobody covers); no 1.06 scaling, no PD floor"
             );
         }
         (None, reason) => {
@@ -207,11 +215,7 @@ fn law_rows(out: &mut String, law: &PortfolioDefaultLaw) {
 /// large-portfolio limit.
 fn portfolio_section(out: &mut String, report: &AnalyzeReport) {
     let _ = writeln!(out, "Share of the portfolio's loans in default per cycle (exact law)");
-    let reasons: Vec<&str> = report
-        .arms
-        .iter()
-        .filter_map(|a| a.portfolio_out_of_class.as_deref())
-        .collect();
+    let reasons: Vec<&str> = report.arms.iter().filter_map(|a| a.out_of_class.as_deref()).collect();
     if !report.arms.is_empty() && reasons.len() == report.arms.len() && reasons.iter().all(|r| *r == reasons[0]) {
         let _ = writeln!(out, "  out of class: {}", reasons[0]);
         return;
@@ -222,7 +226,7 @@ fn portfolio_section(out: &mut String, report: &AnalyzeReport) {
         .collect();
     let _ = writeln!(out, "      {:<16} {:>9} {} {:>9}", "", "mean", levels.join(" "), "ES99");
     for arm in &report.arms {
-        match (&arm.portfolio_default_law, &arm.portfolio_out_of_class) {
+        match (&arm.portfolio_default_law, &arm.out_of_class) {
             (Some(law), _) => {
                 let _ = writeln!(
                     out,
@@ -232,6 +236,20 @@ fn portfolio_section(out: &mut String, report: &AnalyzeReport) {
                 law_rows(out, law);
                 for s in &arm.stress_laws {
                     law_rows(out, s);
+                }
+                if let Some(year) = &arm.annual_default_law
+                    && year.cycles_per_year > 1
+                {
+                    let _ = writeln!(
+                        out,
+                        "    a year of {} normal cycles (loans defaulting in the year / loans per cycle)",
+                        year.cycles_per_year
+                    );
+                    let q: Vec<f64> = QUANTILE_LEVELS
+                        .iter()
+                        .map(|q| year.quantiles.get(&format!("{q}")).copied().unwrap_or(f64::NAN))
+                        .collect();
+                    law_row(out, "exact, a year", Some(year.mean), &q, Some(year.es99));
                 }
             }
             (None, reason) => {

@@ -164,6 +164,26 @@ pub struct SummaryRow<'a> {
     strategic_default_ci_high: Cell,
     able_members: u64,
     mean_principal: Cell,
+    annual_loss_p50: Cell,
+    annual_loss_p95: Cell,
+    annual_loss_p99: Cell,
+    annual_loss_p999: Cell,
+    annual_loss_es99: Cell,
+    annual_loss_amount_p999: Cell,
+    annual_default_rate: Cell,
+    principal_outstanding: Cell,
+    disbursed_per_year: Cell,
+    interest_per_year: Cell,
+    fees_per_year: Cell,
+    expected_loss_per_year: Cell,
+    unexpected_loss_999: Cell,
+    cost_of_funds_per_year: Cell,
+    operating_cost_per_year: Cell,
+    operational_self_sufficiency: Cell,
+    operational_self_sufficiency_ci_low: Cell,
+    operational_self_sufficiency_ci_high: Cell,
+    basel_capital: Cell,
+    exact_unexpected_loss: Cell,
 }
 
 impl<'a> SummaryRow<'a> {
@@ -176,6 +196,9 @@ impl<'a> SummaryRow<'a> {
         let (loss_rate, loss_rate_ci_low, loss_rate_ci_high, loss_rate_se) = cells(s.loss_rate);
         let (strategic_default_rate, strategic_default_ci_low, strategic_default_ci_high, _) =
             cells(s.strategic_default_rate);
+        let f = &a.finance;
+        let m = &f.money;
+        let (oss, oss_low, oss_high, _) = cells(m.operational_self_sufficiency);
         SummaryRow {
             arm: a.arm.label(),
             group_size: p.group_size(),
@@ -259,6 +282,26 @@ impl<'a> SummaryRow<'a> {
             strategic_default_ci_high,
             able_members: s.able_members,
             mean_principal: Cell(s.mean_principal),
+            annual_loss_p50: Cell(f.annual_loss_rate.p50),
+            annual_loss_p95: Cell(f.annual_loss_rate.p95),
+            annual_loss_p99: Cell(f.annual_loss_rate.p99),
+            annual_loss_p999: Cell(f.annual_loss_rate.p999),
+            annual_loss_es99: Cell(f.annual_loss_rate.es99),
+            annual_loss_amount_p999: Cell(f.annual_loss_amount.p999),
+            annual_default_rate: Cell(f.capital.annual_default_rate),
+            principal_outstanding: Cell(Some(m.principal_outstanding)),
+            disbursed_per_year: Cell(Some(m.disbursed)),
+            interest_per_year: Cell(Some(m.interest_collected)),
+            fees_per_year: Cell(Some(m.fees)),
+            expected_loss_per_year: Cell(Some(m.expected_loss)),
+            unexpected_loss_999: Cell(m.unexpected_loss_999),
+            cost_of_funds_per_year: Cell(Some(m.cost_of_funds)),
+            operating_cost_per_year: Cell(Some(m.operating_cost)),
+            operational_self_sufficiency: oss,
+            operational_self_sufficiency_ci_low: oss_low,
+            operational_self_sufficiency_ci_high: oss_high,
+            basel_capital: Cell(f.capital.basel_capital),
+            exact_unexpected_loss: Cell(f.capital.exact_unexpected_loss),
         }
     }
 }
@@ -344,6 +387,9 @@ struct ReplicationRow<'a> {
     strategic_defaults: u64,
     able_members: u64,
     mean_principal: Cell,
+    fees: Cell,
+    cost_of_funds: Cell,
+    operating_cost: Cell,
 }
 
 /// replications.csv: one row per arm and replication, in arm order then replication order.
@@ -383,6 +429,9 @@ pub fn replications_csv(report: &RunReport) -> Vec<u8> {
             strategic_defaults: r.strategic_defaults,
             able_members: r.able_members,
             mean_principal: Cell(r.mean_principal()),
+            fees: Cell(Some(r.fees)),
+            cost_of_funds: Cell(Some(r.cost_of_funds)),
+            operating_cost: Cell(Some(r.operating_cost)),
         })
     }))
 }

@@ -148,6 +148,7 @@ pub fn summary_table(report: &RunReport) -> String {
             );
         }
     }
+    money_section(&mut out, report, width);
     if let Some(reason) = &report.analytic_out_of_class {
         let _ = writeln!(out, "exact values: none, outside the one-factor class ({reason})");
     }
@@ -214,6 +215,121 @@ pub fn summary_table(report: &RunReport) -> String {
     }
     let _ = writeln!(out, "{}", report.caution);
     out
+}
+
+/// The year, money and capital per arm, in the currency label.
+fn money_section(out: &mut String, report: &RunReport, width: usize) {
+    use crate::finance::money_text;
+    let Some(first) = report.arms.first() else { return };
+    let f = &first.finance;
+    let cur = &f.currency;
+    let years = report
+        .arms
+        .iter()
+        .map(|a| a.finance.replication_years)
+        .max()
+        .unwrap_or(0);
+    let _ = writeln!(
+        out,
+        "a year = {} cycle(s); money per year in {cur}, means over {} replication-years:",
+        f.cycles_per_year,
+        money_text(years as f64)
+    );
+    let _ = writeln!(
+        out,
+        "{:<width$}  {:>13}  {:>13}  {:>11}  {:>10}  {:>11}  {:>11}  {:>11}  {:>11}  {:>15}  {:>9}",
+        "arm",
+        "outstanding",
+        "disbursed",
+        "interest",
+        "fees",
+        "exp. loss",
+        "UL 99.9%",
+        "cost funds",
+        "operating",
+        "OSS (95%)",
+        "net yield"
+    );
+    let opt = |x: Option<f64>| x.map_or_else(|| "-".to_string(), money_text);
+    for a in &report.arms {
+        let m = &a.finance.money;
+        let oss = m.operational_self_sufficiency.map_or_else(
+            || "-".to_string(),
+            |o| match o.standard_error {
+                Some(se) => format!("{:.3} ±{:.3}", o.rate, Z_95 * se),
+                None => format!("{:.3}", o.rate),
+            },
+        );
+        let _ = writeln!(
+            out,
+            "{:<width$}  {:>13}  {:>13}  {:>11}  {:>10}  {:>11}  {:>11}  {:>11}  {:>11}  {:>15}  {:>9}",
+            a.arm.label,
+            money_text(m.principal_outstanding),
+            money_text(m.disbursed),
+            money_text(m.interest_collected),
+            money_text(m.fees),
+            money_text(m.expected_loss),
+            opt(m.unexpected_loss_999),
+            money_text(m.cost_of_funds),
+            money_text(m.operating_cost),
+            oss,
+            pct(a.summary.net_yield)
+        );
+    }
+    let _ = writeln!(
+        out,
+        "annual loss as a share of the year's mean principal outstanding, and capital in {cur}:"
+    );
+    let _ = writeln!(
+        out,
+        "{:<width$}  {:>8}  {:>8}  {:>8}  {:>8}  {:>8}  {:>10}  {:>13}  {:>13}  {:>13}",
+        "arm", "p50", "p95", "p99", "p99.9", "ES99", "annual PD", "simulated UL", "Basel K x EAD", "exact law UL"
+    );
+    for a in &report.arms {
+        let (t, c) = (&a.finance.annual_loss_rate, &a.finance.capital);
+        let _ = writeln!(
+            out,
+            "{:<width$}  {:>8}  {:>8}  {:>8}  {:>8}  {:>8}  {:>10}  {:>13}  {:>13}  {:>13}",
+            a.arm.label,
+            pct(t.p50),
+            pct(t.p95),
+            pct(t.p99),
+            pct(t.p999),
+            pct(t.es99),
+            pct(c.annual_default_rate),
+            opt(c.simulated_unexpected_loss),
+            opt(c.basel_capital),
+            opt(c.exact_unexpected_loss)
+        );
+    }
+    let _ = writeln!(
+        out,
+        "outstanding: mean principal outstanding (EAD); UL 99.9%: 99.9% annual loss minus its mean; OSS: \
+         (interest + fees) / (cost of funds + loan losses + operating cost); annual PD: 1 - (1 - member \
+         default rate)^cycles per year; Basel K x EAD: Basel II other-retail capital at that PD with LGD = 1 - \
+         recovery rate; exact law UL: the exact portfolio default law of a year of normal cycles, each default \
+         losing the simulated mean loss per defaulting loan"
+    );
+    if let Some(note) = first.finance.capital.exact_note.as_deref()
+        && report.arms.iter().all(|a| a.finance.capital.exact_law_missing())
+    {
+        let _ = writeln!(out, "exact law UL: none ({note})");
+    }
+    const MAX_SENTENCES: usize = 4;
+    for a in report.arms.iter().take(MAX_SENTENCES) {
+        let prefix = if report.arms.len() > 1 {
+            format!("{}: ", a.arm.label)
+        } else {
+            String::new()
+        };
+        let _ = writeln!(out, "capital: {prefix}{}", a.finance.capital.sentence);
+    }
+    if report.arms.len() > MAX_SENTENCES {
+        let _ = writeln!(
+            out,
+            "capital: the sentence for every arm is in summary.json (finance.capital.sentence)"
+        );
+    }
 }
 
 /// A selection in plain lines: the objective, constraints, feasible arms, best, not worse, notes.

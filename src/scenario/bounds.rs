@@ -198,6 +198,11 @@ pub const FIELDS: &[Field] = &[
     line("behaviour.social_sanction", Bound::NonNegativeAtMost(MAX_BEHAVIOUR_UNITS), Some(|r, _, v| put(&mut r.behaviour.get_or_insert_with(Default::default).social_sanction, v))),
     line("pool.dropout", Bound::ProbabilityBelowOne, Some(|r, _, v| put(&mut r.pool.dropout, v))),
     line("pool.replace_departures", Bound::Typed("true or false"), Some(|r, _, v| put(&mut r.pool.replace_departures, v))),
+    line("finance.cycles_per_year", Bound::Count(1, MAX_TOTAL_CYCLES), None),
+    line("finance.currency", Bound::Typed("a label of 1 to 24 characters, none of them a control character"), None),
+    line("finance.operating_cost", Bound::NonNegativeAtMost(MAX_PRINCIPAL), None),
+    line("finance.cost_of_funds", Bound::NonNegativeAtMost(MAX_INTEREST_RATE), None),
+    line("finance.fee_rate", Bound::Share, None),
 ];
 
 /// The table's line for `path` (with `*` for a shock's name).

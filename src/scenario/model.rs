@@ -476,6 +476,68 @@ pub struct Scenario {
     /// Warnings found while validating (arms resolving to the same model); the caller prints them.
     #[serde(skip)]
     pub(crate) warnings: Vec<String>,
+    /// The `[finance]` table: the year, the currency label, costs and fees (defaults without it).
+    pub(crate) finance: Finance,
+}
+
+/// The lender's side of the programme: how cycles map to a year, what money is called, and what
+/// lending costs and earns besides interest. Shared by every arm. Without a `[finance]` table every
+/// cost and fee is zero and a year is one cycle, so the simulated figures are the same as before.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Finance {
+    pub(crate) cycles_per_year: u32,
+    pub(crate) currency: String,
+    pub(crate) operating_cost: f64,
+    pub(crate) cost_of_funds: f64,
+    pub(crate) fee_rate: f64,
+}
+
+impl Default for Finance {
+    fn default() -> Self {
+        Finance {
+            cycles_per_year: 1,
+            currency: "units".to_owned(),
+            operating_cost: 0.0,
+            cost_of_funds: 0.0,
+            fee_rate: 0.0,
+        }
+    }
+}
+
+impl Finance {
+    /// A finance table from its values, for tests and hand-built scenarios (validation checks the
+    /// file's values; this does not).
+    #[doc(hidden)]
+    pub fn new(cycles_per_year: u32, currency: &str, operating_cost: f64, cost_of_funds: f64, fee_rate: f64) -> Self {
+        Finance {
+            cycles_per_year,
+            currency: currency.to_owned(),
+            operating_cost,
+            cost_of_funds,
+            fee_rate,
+        }
+    }
+    /// Loan cycles in one year (>= 1); the counted cycles are a whole number of years.
+    pub fn cycles_per_year(&self) -> u32 {
+        self.cycles_per_year
+    }
+    /// The label money figures are printed in (`units` by default).
+    pub fn currency(&self) -> &str {
+        &self.currency
+    }
+    /// Cost of administering one member loan for one cycle, in currency.
+    pub fn operating_cost(&self) -> f64 {
+        self.operating_cost
+    }
+    /// The lender's cost of funds, a rate per cycle on the principal outstanding.
+    pub fn cost_of_funds(&self) -> f64 {
+        self.cost_of_funds
+    }
+    /// Fee as a share of principal, charged at disbursement (deducted from what is paid out, so it
+    /// is never lost and is not part of the amount due).
+    pub fn fee_rate(&self) -> f64 {
+        self.fee_rate
+    }
 }
 
 impl Scenario {
@@ -518,6 +580,10 @@ impl Scenario {
     /// Warnings found while validating, one line each, for the caller to print.
     pub fn warnings(&self) -> &[String] {
         &self.warnings
+    }
+    /// The `[finance]` table (defaults when the file has none).
+    pub fn finance(&self) -> &Finance {
+        &self.finance
     }
 
     /// The first arm's amount due (see `Arm::amount_due`, which any sweep of the loan may vary).

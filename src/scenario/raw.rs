@@ -419,6 +419,22 @@ pub struct RawPool {
     pub replace_departures: Option<W<bool>>,
 }
 
+/// The `[finance]` table.
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields, expecting = "a [finance] table")]
+pub struct RawFinance {
+    /// Loan cycles per year.
+    pub cycles_per_year: Option<W<Int>>,
+    /// Label of money figures.
+    pub currency: Option<W<String>>,
+    /// Per loan per cycle, in currency.
+    pub operating_cost: Option<W<Num>>,
+    /// Rate per cycle on principal outstanding.
+    pub cost_of_funds: Option<W<Num>>,
+    /// Share of principal charged at disbursement.
+    pub fee_rate: Option<W<Num>>,
+}
+
 /// One `[sweep]` entry: the path as written (dotted and quoted keys joined with `.`), its list of
 /// alternative values, and where the list was written (arms follow the order of these lines).
 #[derive(Debug, Clone, PartialEq)]
@@ -590,6 +606,9 @@ pub struct RawScenario {
     /// `[sweep]`.
     #[serde(default)]
     pub sweep: RawSweep,
+    /// `[finance]`.
+    #[serde(default)]
+    pub finance: RawFinance,
 }
 
 /// Parses scenario text into its raw mirror; TOML syntax errors report the line, wrong types and

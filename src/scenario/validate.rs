@@ -13,7 +13,7 @@ use super::raw::{
 };
 use super::sweep::{self, Axis};
 use super::{
-    Arm, Behaviour, Exclusion, ExclusionScope, Liability, Policy, Scenario, ScenarioError, Shock, ShockProbability,
+    Arm, Behaviour, Exclusion, ExclusionScope, Finance, Liability, Policy, Scenario, ScenarioError, Shock, ShockProbability,
     ShockScope, StressWindow, SweptValue, limits,
 };
 use crate::curve::{CurveError, GroupSizeCurve};
@@ -112,6 +112,7 @@ pub fn curve_from_flags(
 pub fn validate(raw: RawScenario, text: &str, origin: &str) -> Result<Scenario> {
     let ck = Checker { file: origin, text };
     let common = ck.common(&raw)?;
+    let finance = ck.finance(&raw, &common)?;
     let axes = sweep::resolve(&ck, &raw)?;
 
     // Each swept value first on its own (the other axes at their first value), in the order written,
@@ -188,6 +189,7 @@ pub fn validate(raw: RawScenario, text: &str, origin: &str) -> Result<Scenario> 
         swept_fields: axes.iter().map(|a| a.path.clone()).collect(),
         arms,
         warnings,
+        finance,
     })
 }
 
@@ -468,6 +470,56 @@ impl Checker<'_> {
             borrowers,
             villages,
         })
+    }
+
+    /// The `[finance]` table: every field against its line of the bounds table, and the counted
+    /// cycles a whole number of years (a partial year would have no annual loss of its own).
+    fn finance(&self, raw: &RawScenario, common: &Common) -> Result<Finance> {
+        let f = &raw.finance;
+        let mut finance = Finance::default();
+        if let Some(w) = &f.cycles_per_year {
+            let n = self.count("finance.cycles_per_year", "finance.cycles_per_year", w, None)?;
+            if !common.cycles.is_multiple_of(n) {
+                return Err(self.invalid(
+                    "finance.cycles_per_year",
+                    Some(&w.origin),
+                    self.written(w, || n.to_string()),
+                    format!(
+                        "a divisor of the counted cycles (cycles = {}), so that they make whole years; \
+                         for example cycles = {} with {n} cycles a year",
+                        common.cycles,
+                        (common.cycles / n).max(1) * n
+                    ),
+                ));
+            }
+            finance.cycles_per_year = n;
+        }
+        if let Some(w) = &f.currency {
+            let label = w.value.trim();
+            if label.is_empty() || label.chars().count() > 24 || label.chars().any(char::is_control) {
+                return Err(self.invalid(
+                    "finance.currency",
+                    Some(&w.origin),
+                    format!("{:?}", w.value),
+                    bounds::bound("finance.currency").text(),
+                ));
+            }
+            finance.currency = label.to_owned();
+        }
+        finance.operating_cost = self.real_or(
+            "finance.operating_cost",
+            "finance.operating_cost",
+            f.operating_cost.as_ref(),
+            0.0,
+        )?;
+        finance.cost_of_funds = self.real_or(
+            "finance.cost_of_funds",
+            "finance.cost_of_funds",
+            f.cost_of_funds.as_ref(),
+            0.0,
+        )?;
+        finance.fee_rate = self.real_or("finance.fee_rate", "finance.fee_rate", f.fee_rate.as_ref(), 0.0)?;
+        Ok(finance)
     }
 
     /// The arm whose swept values are `axes[a].values[index[a]]`: the raw scenario with those values

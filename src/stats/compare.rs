@@ -25,7 +25,7 @@ pub const GROUP_REPAYMENT: Metric = ("group_repayment_rate", |r| {
 pub const COMPARED: [Metric; 5] = [
     GROUP_REPAYMENT,
     ("loss_rate", |r| (r.loss, r.disbursed)),
-    ("net_yield", |r| (r.collected + r.recovered - r.disbursed, r.disbursed)),
+    ("net_yield", |r| (r.net_income(), r.disbursed)),
     ("served_share", |r| {
         (r.served_slot_cycles as f64, r.slot_cycles() as f64)
     }),

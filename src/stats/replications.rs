@@ -59,6 +59,15 @@ pub struct ReplicationFigures {
     /// Members able to pay (its denominator).
     #[serde(default)]
     pub able_members: u64,
+    /// Fees charged at disbursement (0 in files written before `[finance]` existed).
+    #[serde(default)]
+    pub fees: f64,
+    /// The lender's cost of funds.
+    #[serde(default)]
+    pub cost_of_funds: f64,
+    /// Operating cost of the loans served.
+    #[serde(default)]
+    pub operating_cost: f64,
 }
 
 fn ratio(num: f64, den: f64) -> Option<f64> {
@@ -89,6 +98,9 @@ impl ReplicationFigures {
             removed_slot_cycles: t.removed_slot_cycles,
             strategic_defaults: t.strategic_defaults,
             able_members: t.able_members,
+            fees: t.fees,
+            cost_of_funds: t.cost_of_funds,
+            operating_cost: t.operating_cost,
         }
     }
 
@@ -100,9 +112,19 @@ impl ReplicationFigures {
     pub fn loss_rate(&self) -> Option<f64> {
         ratio(self.loss, self.disbursed)
     }
-    /// (collected + recovered - disbursed) / disbursed.
+    /// (collected + recovered + fees - disbursed - cost of funds - operating cost) / disbursed.
     pub fn net_yield(&self) -> Option<f64> {
-        ratio(self.collected + self.recovered - self.disbursed, self.disbursed)
+        ratio(
+            crate::stats::tally::net_income(
+                self.collected,
+                self.recovered,
+                self.fees,
+                self.disbursed,
+                self.cost_of_funds,
+                self.operating_cost,
+            ),
+            self.disbursed,
+        )
     }
     /// Served slot-cycles / slot-cycles.
     pub fn served_share(&self) -> Option<f64> {
@@ -158,6 +180,9 @@ impl ReplicationFigures {
             recovered: self.recovered,
             strategic_defaults: self.strategic_defaults,
             able_members: self.able_members,
+            fees: self.fees,
+            cost_of_funds: self.cost_of_funds,
+            operating_cost: self.operating_cost,
             served_slot_cycles: self.served_slot_cycles,
             excluded_slot_cycles: self.excluded_slot_cycles,
             waiting_slot_cycles: self

@@ -38,7 +38,7 @@ pub struct ArmSummary {
     pub value_repayment_rate: Option<f64>,
     /// Loss / principal disbursed, with its interval.
     pub loss_rate: Option<Interval>,
-    /// (collected + recovered - disbursed) / disbursed.
+    /// (collected + recovered + fees - disbursed - cost of funds - operating cost) / disbursed.
     pub net_yield: Option<f64>,
     /// Mean shares of slots served, excluded, waiting and empty.
     pub served_share: Option<f64>,
@@ -275,7 +275,17 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
         rescued_rate: share(sum_u(|r| r.groups_rescued), group_cycles),
         value_repayment_rate: fraction(collected, due),
         loss_rate,
-        net_yield: fraction(collected + recovered - disbursed, disbursed),
+        net_yield: fraction(
+            crate::stats::tally::net_income(
+                collected,
+                recovered,
+                sum_f(|r| r.fees),
+                disbursed,
+                sum_f(|r| r.cost_of_funds),
+                sum_f(|r| r.operating_cost),
+            ),
+            disbursed,
+        ),
         served_share: share(sum_u(|r| r.served_slot_cycles), slot_cycles),
         excluded_share: share(sum_u(|r| r.excluded_slot_cycles), slot_cycles),
         waiting_share: share(sum_u(|r| r.waiting_slot_cycles), slot_cycles),

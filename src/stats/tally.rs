@@ -72,6 +72,12 @@ pub struct ReplicationTally {
     pub waiting_slot_cycles: u64,
     /// Slot-cycles with no member.
     pub empty_slot_cycles: u64,
+    /// Fees charged at disbursement (`[finance] fee_rate` x principal disbursed); never lost.
+    pub fees: f64,
+    /// The lender's cost of funds on the principal outstanding (`[finance] cost_of_funds`).
+    pub cost_of_funds: f64,
+    /// Operating cost of the member loans served (`[finance] operating_cost` each).
+    pub operating_cost: f64,
     /// Groups by their size and the number of their members with a shortfall: cell
     /// (size - `smallest_group_size`) x (largest size + 1) + short. With one group size k it is
     /// indexed by the number short alone (0..=k).
@@ -153,10 +159,38 @@ impl ReplicationTally {
         (self.disbursed > 0.0).then(|| self.loss / self.disbursed)
     }
 
+    /// What lending earned net of principal, recoveries, fees and costs: collected + recovered +
+    /// fees - disbursed - cost of funds - operating cost (the numerator of `net_yield`). Summed in
+    /// this order so that zero fees and costs leave the figure bit-identical to collected +
+    /// recovered - disbursed.
+    pub fn net_income(&self) -> f64 {
+        net_income(
+            self.collected,
+            self.recovered,
+            self.fees,
+            self.disbursed,
+            self.cost_of_funds,
+            self.operating_cost,
+        )
+    }
+
     /// Total slot-cycles (the four shares' denominator).
     pub fn slot_cycles(&self) -> u64 {
         self.served_slot_cycles + self.excluded_slot_cycles + self.waiting_slot_cycles + self.empty_slot_cycles
     }
+}
+
+/// collected + recovered + fees - disbursed - cost of funds - operating cost, in that order (see
+/// [`ReplicationTally::net_income`]).
+pub fn net_income(
+    collected: f64,
+    recovered: f64,
+    fees: f64,
+    disbursed: f64,
+    cost_of_funds: f64,
+    operating_cost: f64,
+) -> f64 {
+    collected + recovered + fees - disbursed - cost_of_funds - operating_cost
 }
 
 /// Mergeable accumulator of one arm's replications, kept in replication order.
