@@ -547,13 +547,23 @@ mod tests {
         assert!(check(behaviour).unwrap().contains("[behaviour]"));
         let grown = base.replace("principal = 100\n", "principal = 100\ngrowth = 0.1\nmax_multiple = 2\n");
         let s = Scenario::from_toml_str(&grown, "inline").unwrap();
-        assert!(class_check(&s.arms[0]).unwrap_err().reason.contains("loan.growth = 0.1"));
+        assert!(
+            class_check(&s.arms[0])
+                .unwrap_err()
+                .reason
+                .contains("loan.growth = 0.1")
+        );
         let s = Scenario::from_toml_str(
             &base.replace("income = 1.5\n", "income = 1.5\nincome_growth = 0.01\n"),
             "inline",
         )
         .unwrap();
-        assert!(class_check(&s.arms[0]).unwrap_err().reason.contains("borrowers.income_growth"));
+        assert!(
+            class_check(&s.arms[0])
+                .unwrap_err()
+                .reason
+                .contains("borrowers.income_growth")
+        );
         assert!(
             crate::analytic::portfolio_law::class_check(&s, 0)
                 .unwrap_err()

@@ -13,8 +13,8 @@ use super::raw::{
 };
 use super::sweep::{self, Axis};
 use super::{
-    Arm, Behaviour, Exclusion, ExclusionScope, Finance, Liability, Policy, Scenario, ScenarioError, Shock, ShockProbability,
-    ShockScope, StressWindow, SweptValue, limits,
+    Arm, Behaviour, Exclusion, ExclusionScope, Finance, Liability, Policy, Scenario, ScenarioError, Shock,
+    ShockProbability, ShockScope, StressWindow, SweptValue, limits,
 };
 use crate::curve::{CurveError, GroupSizeCurve};
 use crate::dist::{Distribution, DistributionError};
