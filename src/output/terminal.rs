@@ -221,6 +221,16 @@ pub fn summary_table(report: &RunReport) -> String {
 fn money_section(out: &mut String, report: &RunReport, width: usize) {
     use crate::finance::money_text;
     let Some(first) = report.arms.first() else { return };
+    if *report.scenario.finance() == crate::scenario::Finance::default() {
+        // Without costs the self-sufficiency ratio counts losses only and reads as a comfort it is
+        // not: the tables wait for a [finance] table (summary.csv has the figures either way).
+        let _ = writeln!(
+            out,
+            "money and capital: no [finance] table, so a year is one cycle and costs and fees are zero; add \
+             [finance] for the money and capital tables (the figures are in summary.csv either way)"
+        );
+        return;
+    }
     let f = &first.finance;
     let cur = &f.currency;
     let years = report
