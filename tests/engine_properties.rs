@@ -272,6 +272,35 @@ struct Case {
     dropout: f64,
     replace: bool,
     sweep: Vec<(&'static str, String, Vec<u32>)>,
+    extras: Extras,
+}
+
+/// The optional features a scenario may switch on: group sizes one either side of k, strategic
+/// default, and loans and incomes that grow.
+#[derive(Debug, Clone)]
+struct Extras {
+    /// `size_slack = 1`, written only where every size in [k - 1, k + 1] is valid.
+    slack: bool,
+    /// (loan_value, discount, temptation mean, social_sanction).
+    behaviour: Option<(f64, f64, f64, f64)>,
+    /// (growth, max_multiple, income_growth).
+    growth: Option<(f64, f64, f64)>,
+}
+
+fn extras() -> impl Strategy<Value = Extras> {
+    (
+        any::<bool>(),
+        prop_oneof![
+            Just(None),
+            (0.0f64..1.0, 0.05f64..0.95, 0.0f64..0.5, 0.0f64..0.5).prop_map(Some)
+        ],
+        prop_oneof![Just(None), (0.0f64..0.5, 1.0f64..4.0, 0.0f64..0.05).prop_map(Some)],
+    )
+        .prop_map(|(slack, behaviour, growth)| Extras {
+            slack,
+            behaviour,
+            growth,
+        })
 }
 
 fn case() -> impl Strategy<Value = Case> {
@@ -286,6 +315,7 @@ fn case() -> impl Strategy<Value = Case> {
         policy(),
         (prop_oneof![Just(0.0), 0.0f64..0.2], any::<bool>()),
         prop::collection::vec(sweep_axis(), 0..=2),
+        extras(),
     )
         .prop_map(
             |(
@@ -295,6 +325,7 @@ fn case() -> impl Strategy<Value = Case> {
                 policy,
                 (dropout, replace),
                 mut sweep,
+                extras,
             )| {
                 sweep.dedup_by_key(|(key, _, _)| *key);
                 Case {
@@ -314,6 +345,7 @@ fn case() -> impl Strategy<Value = Case> {
                     dropout,
                     replace,
                     sweep,
+                    extras,
                 }
             },
         )
@@ -328,6 +360,26 @@ impl Case {
             .map_or_else(|| vec![self.policy.group_size], |(_, _, sizes)| sizes.clone())
     }
 
+    /// Whether group sizes may vary: slack asked for, every size in [k - 1, k + 1] within the
+    /// smallest village, and no curve that a size outside 1..=6 or a size of 1 would leave undefined.
+    fn slack(&self) -> bool {
+        let largest = self.group_sizes().into_iter().max().unwrap_or(1);
+        let curves_fit = self.shocks.iter().all(|s| {
+            s.scope != 0
+                || matches!(
+                    s.member_probability,
+                    MemberProbability::Number(_) | MemberProbability::Constant(_) | MemberProbability::Power(_)
+                )
+        });
+        self.extras.slack && curves_fit && largest < self.borrowers / self.villages
+    }
+
+    /// Whether members may walk away or loans and incomes grow (the invariants of a fixed loan and
+    /// of shortfall-only defaults no longer hold then).
+    fn dynamic(&self) -> bool {
+        self.extras.behaviour.is_some() || self.extras.growth.is_some()
+    }
+
     fn swept(&self, key: &str) -> bool {
         self.sweep.iter().any(|(k, _, _)| *k == key)
     }
@@ -338,8 +390,8 @@ impl Case {
         let mut t = format!(
             "seed = {}\nreplications = {}\ncycles = {}\nwarmup_cycles = {}\n\
              [portfolio]\nborrowers = {}\nvillages = {}\n\
-             [loan]\nprincipal = {:?}\ninterest_rate = {:?}\nrecovery_rate = {:?}\n\
-             [borrowers]\nincome = {}\nrisk = {}\n",
+             [loan]\nprincipal = {:?}\ninterest_rate = {:?}\nrecovery_rate = {:?}\n{}\
+             [borrowers]\nincome = {}\nrisk = {}\n{}",
             self.seed,
             self.replications,
             self.cycles,
@@ -349,8 +401,14 @@ impl Case {
             self.principal,
             self.interest,
             self.recovery,
+            self.extras.growth.map_or(String::new(), |(g, m, _)| format!(
+                "growth = {g:?}\nmax_multiple = {m:?}\n"
+            )),
             self.income.text(),
-            self.risk.text()
+            self.risk.text(),
+            self.extras
+                .growth
+                .map_or(String::new(), |(_, _, i)| format!("income_growth = {i:?}\n"))
         );
         for (i, s) in self.shocks.iter().enumerate() {
             t += &format!("[[shock]]\nname = \"shock {i}\"\nscope = \"{}\"\n", SCOPES[s.scope]);
@@ -389,10 +447,21 @@ impl Case {
             if p.persistent { "persistent" } else { "reshuffle" },
             if p.assortative { "assortative" } else { "random" },
         );
+        if self.slack() {
+            t += "size_slack = 1\n";
+        }
         t += &format!(
             "[pool]\ndropout = {:?}\nreplace_departures = {}\n",
             self.dropout, self.replace
         );
+        if let Some((value, discount, mean, sanction)) = self.extras.behaviour {
+            t += &format!(
+                "[behaviour]\nloan_value = {value:?}\ndiscount = {discount:?}\n\
+                 temptation = {{ kind = \"gamma\", mean = {:?}, cv = 1.0 }}\nsocial_sanction = {sanction:?}\n",
+                mean.max(1e-3)
+            );
+        }
+
         if !self.sweep.is_empty() {
             t += "[sweep]\n";
             for (key, list, _) in &self.sweep {
@@ -443,10 +512,26 @@ fn check_replication(case: &Case, s: &Scenario, arm: usize, r: &ReplicationTally
     check(close(r.due, r.disbursed * (1.0 + s.arms()[0].interest_rate())), || {
         at("due != disbursed x (1 + r)")
     })?;
-    check(
-        close(r.disbursed, k as f64 * r.group_cycles as f64 * s.arms()[0].principal()),
-        || at("disbursed != k x groups x P"),
-    )?;
+    let principal = s.arms()[0].principal();
+    match case.extras.growth {
+        None => check(close(r.disbursed, r.member_loans as f64 * principal), || {
+            at("disbursed != member loans x P")
+        })?,
+        Some((_, multiple, _)) => check(
+            at_most(r.member_loans as f64 * principal, r.disbursed)
+                && at_most(r.disbursed, r.member_loans as f64 * principal * multiple),
+            || at("a loan below the first principal or above the cap"),
+        )?,
+    }
+    check(r.strategic_defaults <= r.able_members, || {
+        at("walk-aways > members able to pay")
+    })?;
+    check(r.able_members + r.member_shortfalls == r.member_loans, || {
+        at("able + short != member loans")
+    })?;
+    if case.extras.behaviour.is_none() {
+        check(r.strategic_defaults == 0, || at("a walk-away without [behaviour]"))?;
+    }
 
     check(
         r.slot_cycles() == u64::from(s.borrowers()) * u64::from(s.cycles()),
@@ -455,46 +540,64 @@ fn check_replication(case: &Case, s: &Scenario, arm: usize, r: &ReplicationTally
     check(r.member_loans == r.served_slot_cycles, || {
         at("member loans != served slot-cycles")
     })?;
-    check(r.member_loans == k * r.group_cycles, || {
-        at("member loans != k x groups")
-    })?;
-    check(
-        r.waiting_slot_cycles <= (k - 1) * u64::from(s.villages()) * u64::from(s.cycles()),
-        || at("k or more members waiting in a village"),
-    )?;
+    let sizes_vary = policy.sizes_vary();
+    if sizes_vary {
+        let (min, max) = (u64::from(policy.min_group_size()), u64::from(policy.max_group_size()));
+        check(
+            min * r.group_cycles <= r.member_loans && r.member_loans <= max * r.group_cycles,
+            || at("a group outside [min, max]"),
+        )?;
+    } else {
+        check(r.member_loans == k * r.group_cycles, || {
+            at("member loans != k x groups")
+        })?;
+        check(
+            r.waiting_slot_cycles <= (k - 1) * u64::from(s.villages()) * u64::from(s.cycles()),
+            || at("k or more members waiting in a village"),
+        )?;
+    }
     check(r.groups_repaid <= r.group_cycles, || at("repaid > groups"))?;
     check(r.groups_rescued <= r.groups_repaid, || at("rescued > repaid"))?;
     check(r.member_shortfalls <= r.member_loans, || at("shortfalls > loans"))?;
 
-    let histogram_groups: u64 = r.shortfall_histogram.iter().sum();
-    let histogram_short: u64 = r
-        .shortfall_histogram
+    let by_size = r.shortfalls_by_size();
+    let histogram_groups: u64 = by_size.iter().flat_map(|(_, cells)| cells.iter()).sum();
+    let histogram_short: u64 = by_size
         .iter()
-        .enumerate()
+        .flat_map(|(_, cells)| cells.iter().enumerate())
         .map(|(n, c)| n as u64 * c)
         .sum();
     check(histogram_groups == r.group_cycles, || at("histogram groups != groups"))?;
     check(histogram_short == r.member_shortfalls, || {
         at("histogram shortfalls != shortfalls")
     })?;
-    let shortfall_free = r.shortfall_histogram[0];
+    let shortfall_free: u64 = by_size.iter().map(|(_, cells)| cells[0]).sum();
     check(r.shortfall_free_groups == shortfall_free, || {
         at("shortfall-free groups != groups with no member short in the histogram")
     })?;
+    // A walk-away is no shortfall: with [behaviour] a group with nobody short may be rescued (peers
+    // covered the walker) or default, and an individual loan defaults on a shortfall or a walk-away.
+    let walkers = r.strategic_defaults;
     if joint {
-        check(r.groups_repaid == shortfall_free + r.groups_rescued, || {
-            at("joint: repaid != shortfall-free + rescued")
-        })?;
-        check(r.member_defaults == k * (r.group_cycles - r.groups_repaid), || {
-            at("joint: defaults != k x defaulting groups")
-        })?;
+        if walkers == 0 {
+            check(r.groups_repaid == shortfall_free + r.groups_rescued, || {
+                at("joint: repaid != shortfall-free + rescued")
+            })?;
+        }
+        if !sizes_vary {
+            check(r.member_defaults == k * (r.group_cycles - r.groups_repaid), || {
+                at("joint: defaults != k x defaulting groups")
+            })?;
+        }
     } else {
         check(r.groups_rescued == 0, || at("individual: a group was rescued"))?;
-        check(r.groups_repaid == shortfall_free, || {
-            at("individual: repaid != shortfall-free")
-        })?;
-        check(r.member_defaults == r.member_shortfalls, || {
-            at("individual: defaults != shortfalls")
+        if walkers == 0 {
+            check(r.groups_repaid == shortfall_free, || {
+                at("individual: repaid != shortfall-free")
+            })?;
+        }
+        check(r.member_defaults == r.member_shortfalls + walkers, || {
+            at("individual: defaults != shortfalls + walk-aways")
         })?;
     }
     match policy.exclusion_cycles() {
@@ -513,7 +616,7 @@ fn check_replication(case: &Case, s: &Scenario, arm: usize, r: &ReplicationTally
         }
         loancycle::scenario::Exclusion::Cycles(_) => {}
     }
-    if case.shocks.is_empty() && case.income.low() >= 1.0 {
+    if case.shocks.is_empty() && case.income.low() >= 1.0 && !case.dynamic() {
         check(r.groups_repaid == r.group_cycles, || {
             at("no shock, income >= due, yet a default")
         })?;
@@ -590,10 +693,19 @@ fn check_summary(s: &Scenario, results: &RunResults, arm: usize) -> Result<(), T
     check((total - 1.0).abs() <= 1e-12, || {
         format!("arm {arm}: the four shares sum to {total}")
     })?;
-    check(
-        m.member_loans == m.group_cycles * u64::from(s.arms()[arm].policy().group_size()),
-        || format!("arm {arm}: member loans != k x group-cycles"),
-    )?;
+    let policy = s.arms()[arm].policy();
+    if policy.sizes_vary() {
+        let mean = m.mean_group_size.unwrap_or(f64::from(policy.group_size()));
+        check(
+            f64::from(policy.min_group_size()) <= mean && mean <= f64::from(policy.max_group_size()),
+            || format!("arm {arm}: mean group size {mean} outside [min, max]"),
+        )?;
+    } else {
+        check(
+            m.member_loans == m.group_cycles * u64::from(policy.group_size()),
+            || format!("arm {arm}: member loans != k x group-cycles"),
+        )?;
+    }
     Ok(())
 }
 
@@ -603,8 +715,17 @@ fn invariants_hold_on_random_valid_scenarios() {
     let arms_checked = Cell::new(0usize);
     let replications_checked = Cell::new(0usize);
     let swept: [Cell<usize>; 7] = Default::default();
+    // scenarios with sizes in a range, with [behaviour], with growing loans and incomes
+    let featured: [Cell<usize>; 3] = Default::default();
     let outcome = runner.run(&case(), |case| {
         let text = case.toml();
+        for (cell, on) in featured.iter().zip([
+            case.slack(),
+            case.extras.behaviour.is_some(),
+            case.extras.growth.is_some(),
+        ]) {
+            cell.set(cell.get() + usize::from(on));
+        }
         let s = Scenario::from_toml_str(&text, "generated.toml")
             .map_err(|e| TestCaseError::fail(format!("the generator wrote an invalid scenario: {e}\n{text}")))?;
         let results = loancycle::run::simulate(&s, loancycle::run::RunOptions { threads: Some(1) }, &mut |_| {})
@@ -637,8 +758,10 @@ fn invariants_hold_on_random_valid_scenarios() {
         Ok(())
     });
     let swept: Vec<usize> = swept.iter().map(Cell::get).collect();
+    let featured: Vec<usize> = featured.iter().map(Cell::get).collect();
     println!(
-        "{CASES} scenarios, {} arms, {} replications checked; scenarios sweeping each policy field {swept:?}",
+        "{CASES} scenarios, {} arms, {} replications checked; scenarios sweeping each policy field {swept:?}; \
+         with sizes in a range, behaviour, growth {featured:?}",
         arms_checked.get(),
         replications_checked.get()
     );
