@@ -319,6 +319,40 @@ fn report_of_a_real_run_agrees_with_its_files() {
             "report lacks {needed}"
         );
     }
+    // The borrower table shows each arm's exclusion events and clients reached from summary.csv.
+    let summary = read_csv(&dir.join("summary.csv"));
+    let doc = parse(&html);
+    let heading = doc
+        .descendants()
+        .find(|n| n.attribute("id") == Some("borrowers"))
+        .expect("borrower table heading");
+    let table = heading
+        .next_siblings()
+        .find_map(|n| n.descendants().find(|t| t.has_tag_name("table")))
+        .expect("borrower table");
+    let rows: Vec<Vec<String>> = table
+        .descendants()
+        .filter(|n| n.has_tag_name("tr"))
+        .skip(1)
+        .map(|tr| {
+            tr.children()
+                .filter(|c| c.has_tag_name("td"))
+                .map(|td| {
+                    td.descendants()
+                        .filter(|t| t.is_text())
+                        .filter_map(|t| t.text())
+                        .collect::<String>()
+                })
+                .collect()
+        })
+        .collect();
+    assert_eq!(rows.len(), summary.len());
+    for (row, arm) in rows.iter().zip(&summary) {
+        let events: f64 = arm["exclusion_events"].parse().expect("exclusion events");
+        assert_eq!(row[2], format!("{:.2}", 100.0 * events), "arm {}", arm["arm"]);
+        let reached: f64 = arm["clients_reached"].parse().expect("clients reached");
+        assert_eq!(row[3], format!("{reached:.0}"), "arm {}", arm["arm"]);
+    }
     let json: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(dir.join("summary.json")).expect("json")).expect("valid json");
     assert!(

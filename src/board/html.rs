@@ -121,9 +121,12 @@ pub fn page(d: &RunData, charts: &[Chart]) -> String {
     if d.group_size.is_some() {
         h.push_str("<li><a href=\"#group-size\">Best group size, by each criterion</a></li>\n");
     }
+    h.push_str("<li><a href=\"#summary\">Summary table</a></li>\n");
+    if has_outreach(d) {
+        h.push_str("<li><a href=\"#borrowers\">Borrowers reached and the lender's money</a></li>\n");
+    }
     h.push_str(
-        "<li><a href=\"#summary\">Summary table</a></li>\n<li><a href=\"#scenario\">The scenario</a></li>\n\
-         <li><a href=\"#stamp\">Reproducibility</a></li>\n</ol></nav>\n",
+        "<li><a href=\"#scenario\">The scenario</a></li>\n<li><a href=\"#stamp\">Reproducibility</a></li>\n</ol></nav>\n",
     );
     for c in charts {
         let _ = write!(
@@ -153,6 +156,7 @@ pub fn page(d: &RunData, charts: &[Chart]) -> String {
         h.push_str("</tbody></table></div>\n");
     }
     summary_table(&mut h, d);
+    outreach_table(&mut h, d);
     scenario(&mut h, d);
     stamp(&mut h, d);
     h.push_str("</main>\n</body>\n</html>\n");
@@ -236,9 +240,9 @@ fn summary_table(h: &mut String, d: &RunData) {
     };
     h.push_str(
         "<h2 id=\"summary\">Summary table</h2>\n<p>Percentages, with 95% confidence intervals in brackets. \
-         Loss is principal lost as a share of principal lent; net yield is what came back (collections and \
-         recoveries) less what was lent, as a share of what was lent; served and excluded are shares of borrower \
-         slots.</p>\n<div class=\"wide\"><table>\n<thead><tr><th>#</th><th class=\"l\">arm</th>\
+         Loss is principal lost as a share of principal lent; net yield is what came back (collections, \
+         recoveries and fees) less what was lent and the lender's costs, as a share of what was lent; served \
+         and excluded are shares of borrower slots.</p>\n<div class=\"wide\"><table>\n<thead><tr><th>#</th><th class=\"l\">arm</th>\
          <th>groups repaying in full</th>",
     );
     if any_exact {
@@ -272,6 +276,87 @@ fn summary_table(h: &mut String, d: &RunData) {
             pc(tail, 2),
             if *on { "yes" } else { "" }
         );
+    }
+    h.push_str("</tbody></table></div>\n");
+}
+
+/// Whether the run wrote the borrower figures (runs before they existed did not).
+fn has_outreach(d: &RunData) -> bool {
+    d.arms.iter().any(|a| a.outreach.exclusion_events.is_some())
+}
+
+/// Borrowers reached, walk-aways and loan sizes, and the lender's money where the scenario has costs
+/// or fees: the figures an evaluator sets beside repayment, each column shown only where some arm
+/// has something to show.
+fn outreach_table(h: &mut String, d: &RunData) {
+    if !has_outreach(d) {
+        return;
+    }
+    let o = |f: fn(&ArmRow) -> Option<f64>| d.arms.iter().filter_map(f).collect::<Vec<f64>>();
+    let any_positive = |f: fn(&ArmRow) -> Option<f64>| o(f).iter().any(|&x| x > 0.0);
+    let removals = any_positive(|a| a.outreach.removal_rate);
+    let walked = any_positive(|a| a.outreach.walked);
+    let principals = o(|a| a.outreach.mean_principal);
+    let growing = principals
+        .iter()
+        .any(|&p| principals.first().is_some_and(|&f| (p - f).abs() > 1e-9 * f.abs()));
+    let money = any_positive(|a| a.outreach.costs_and_fees);
+    h.push_str(
+        "<h2 id=\"borrowers\">Borrowers reached and the lender's money</h2>\n<p>Exclusion events and removals \
+         are per member loan; clients reached counts the distinct borrowers served in a replication. A longer \
+         exclusion can raise repayment by turning borrowers away: read these beside the summary table.</p>\n\
+         <div class=\"wide\"><table>\n<thead><tr><th>#</th><th class=\"l\">arm</th><th>exclusion events</th>",
+    );
+    if removals {
+        h.push_str("<th>removed for good</th>");
+    }
+    h.push_str("<th>clients reached</th>");
+    if walked {
+        h.push_str("<th>walked away (of those able to pay)</th>");
+    }
+    if growing {
+        h.push_str("<th>mean loan</th>");
+    }
+    if money {
+        h.push_str("<th>operational self-sufficiency</th><th>annual loss p99</th>");
+    }
+    h.push_str("</tr></thead>\n<tbody>\n");
+    for a in &d.arms {
+        let r = &a.outreach;
+        let _ = write!(
+            h,
+            "<tr><td>{}</td><td class=\"l\">{}</td><td>{}</td>",
+            a.number,
+            label_html(&a.label),
+            pc(r.exclusion_events, 2)
+        );
+        if removals {
+            let _ = write!(h, "<td>{}</td>", pc(r.removal_rate, 2));
+        }
+        let _ = write!(
+            h,
+            "<td>{}</td>",
+            r.clients_reached.map_or("-".into(), |c| format!("{c:.0}"))
+        );
+        if walked {
+            let _ = write!(h, "<td>{}</td>", pc(r.walked, 3));
+        }
+        if growing {
+            let _ = write!(
+                h,
+                "<td>{}</td>",
+                r.mean_principal.map_or("-".into(), |p| format!("{p:.1}"))
+            );
+        }
+        if money {
+            let _ = write!(
+                h,
+                "<td>{}</td><td>{}</td>",
+                r.self_sufficiency.map_or("-".into(), |x| format!("{x:.2}")),
+                pc(r.annual_loss_p99, 2)
+            );
+        }
+        h.push_str("</tr>\n");
     }
     h.push_str("</tbody></table></div>\n");
 }

@@ -43,6 +43,32 @@ pub struct ArmRow {
     pub cycle_p99: Option<f64>,
     /// Frontier flag written by the run, when it writes one.
     pub on_frontier: Option<bool>,
+    /// Borrowers and money, empty in runs written before these figures existed: exclusion events,
+    /// removals, clients reached, walk-away rate, mean principal, operational self-sufficiency,
+    /// annual loss p99, and the lender's costs and fees per year (their sum says whether the
+    /// scenario has a `[finance]` table).
+    pub outreach: Outreach,
+}
+
+/// The borrower and money figures of one arm (summary.csv columns of the same names).
+#[derive(Debug, Clone, Default)]
+pub struct Outreach {
+    /// `exclusion_events`.
+    pub exclusion_events: Option<f64>,
+    /// `removal_rate`.
+    pub removal_rate: Option<f64>,
+    /// `clients_reached`.
+    pub clients_reached: Option<f64>,
+    /// `strategic_default_rate`.
+    pub walked: Option<f64>,
+    /// `mean_principal`.
+    pub mean_principal: Option<f64>,
+    /// `operational_self_sufficiency`.
+    pub self_sufficiency: Option<f64>,
+    /// `annual_loss_p99`.
+    pub annual_loss_p99: Option<f64>,
+    /// `fees_per_year` + `cost_of_funds_per_year` + `operating_cost_per_year`.
+    pub costs_and_fees: Option<f64>,
 }
 
 /// One row of timeseries.csv.
@@ -418,6 +444,22 @@ fn read_summary(path: &Path) -> Result<Vec<ArmRow>, BoardError> {
             ],
             cycle_p99: q("loss_cycle_p99")?,
             on_frontier: row.boolean("on_frontier")?,
+            outreach: Outreach {
+                exclusion_events: q("exclusion_events")?,
+                removal_rate: q("removal_rate")?,
+                clients_reached: q("clients_reached")?,
+                walked: q("strategic_default_rate")?,
+                mean_principal: q("mean_principal")?,
+                self_sufficiency: q("operational_self_sufficiency")?,
+                annual_loss_p99: q("annual_loss_p99")?,
+                costs_and_fees: [
+                    q("fees_per_year")?,
+                    q("cost_of_funds_per_year")?,
+                    q("operating_cost_per_year")?,
+                ]
+                .into_iter()
+                .sum(),
+            },
         });
     }
     Ok(arms)
