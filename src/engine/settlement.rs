@@ -265,11 +265,9 @@ impl ArmReplication<'_> {
                     group_due += due;
                     group_principal += principal;
                 }
-                let c = if DYNAMIC {
-                    capacity(&self.pool, i, terms.first_due, terms.income_growth, cycle)
-                } else {
-                    terms.first_due * self.pool.income[i] * self.pool.multiplier[i]
-                };
+                // Without growth the income path is a constant 0 here, so the inlined branch folds away.
+                let income_growth = if DYNAMIC { terms.income_growth } else { 0.0 };
+                let c = capacity(&self.pool, i, terms.first_due, income_growth, cycle);
                 let mut position = member_position(c, due);
                 let short = position.shortfall > 0.0;
                 let mut walked = false;
@@ -320,7 +318,7 @@ impl ArmReplication<'_> {
                         let (principal, position) = if DYNAMIC {
                             terms.position(&self.pool, i as usize, cycle)
                         } else {
-                            let c = terms.first_due * self.pool.income[i as usize] * self.pool.multiplier[i as usize];
+                            let c = capacity(&self.pool, i as usize, terms.first_due, 0.0, cycle);
                             (terms.first_principal, member_position(c, terms.first_due))
                         };
                         if position.shortfall > 0.0 {
