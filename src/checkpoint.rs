@@ -2,22 +2,26 @@
 //!
 //! A checkpoint (`run` writes one as it goes, so an interrupted run can be resumed) and a shard (a
 //! part of a run made on another machine, for `merge`) are the same file: one JSON header line
-//! that pins down the run, then one line per finished batch holding the batch's per-replication
-//! tallies, serialised whole (`ReplicationTally` through serde), so every figure any output needs
-//! is there, including figures added to the tally later. Batches are appended in replication
-//! order, so the file always holds a prefix of its replication range; a last line cut short by a
-//! crash is dropped on reading. Floats are written with enough digits to read back bit for bit.
+//! that pins down the run, then one line per finished batch holding, per arm, what the batch added
+//! to the arm's tally (`ArmTally::merge_part`): the batch's per-replication tallies serialised
+//! whole (`ReplicationTally` through serde, so every figure any output needs is there, including
+//! figures added to the tally later), but not their per-cycle records; instead the batch's sums
+//! for the time series and those of its per-cycle loss rates that entered the arm's upper tail.
+//! Merging the lines in order rebuilds the tallies exactly, and a file grows with replications,
+//! not with replications x cycles. Batches are appended in replication order, so the file always
+//! holds a prefix of its replication range; a last line cut short by a crash is dropped on
+//! reading. Floats are written with enough digits to read back bit for bit.
 
 use crate::report::sha256_hex;
 use crate::run::{Batch, RunResults};
 use crate::scenario::{Overrides, Scenario};
-use crate::stats::{ArmTally, ReplicationTally};
+use crate::stats::ArmTally;
 use serde::{Deserialize, Serialize};
 use std::io::{BufRead, Seek, Write};
 use std::path::{Path, PathBuf};
 
 /// The format tag of the header line; a reader refuses any other.
-pub const FORMAT: &str = "loancycle-tallies/1";
+pub const FORMAT: &str = "loancycle-tallies/2";
 
 /// Name of an unsharded run's checkpoint in its output directory.
 pub const CHECKPOINT_FILE: &str = "checkpoint.jsonl";
@@ -209,7 +213,7 @@ fn value_at(value: &serde_json::Value, path: &str) -> String {
 struct BatchLine {
     first: u32,
     end: u32,
-    tallies: Vec<(usize, ReplicationTally)>,
+    arms: Vec<ArmTally>,
 }
 
 /// A tally file read back: its header and the per-arm tallies of `header.first..done_until`.
@@ -289,7 +293,7 @@ pub fn read(path: &Path) -> Result<TallyFile, CheckpointError> {
         .get("arms")
         .and_then(|a| a.as_array())
         .map_or(0, Vec::len);
-    let mut tallies = vec![ArmTally::default(); arms];
+    let mut tallies: Vec<ArmTally> = vec![ArmTally::default(); arms];
     let mut done_until = header.first;
     let mut line = 1;
     loop {
@@ -302,11 +306,12 @@ pub fn read(path: &Path) -> Result<TallyFile, CheckpointError> {
         }
         let batch: BatchLine =
             serde_json::from_str(&buf).map_err(|e| malformed(line, format!("a damaged batch ({e})")))?;
-        let expected: Vec<(u32, usize)> = (batch.first..batch.end)
-            .flat_map(|r| (0..arms).map(move |a| (r, a)))
-            .collect();
-        let got: Vec<(u32, usize)> = batch.tallies.iter().map(|(a, t)| (t.replication, *a)).collect();
-        if batch.first != done_until || batch.end > header.end || batch.end <= batch.first || got != expected {
+        let continues = batch.arms.len() == arms
+            && batch
+                .arms
+                .iter()
+                .all(|a| a.replications.iter().map(|t| t.replication).eq(batch.first..batch.end));
+        if batch.first != done_until || batch.end > header.end || batch.end <= batch.first || !continues {
             return Err(malformed(
                 line,
                 format!(
@@ -319,8 +324,12 @@ pub fn read(path: &Path) -> Result<TallyFile, CheckpointError> {
                 ),
             ));
         }
-        for (a, t) in batch.tallies {
-            tallies[a].push(t);
+        if done_until == header.first {
+            // the first batch sets the tallies' year and tail size
+            tallies = batch.arms.iter().map(ArmTally::empty_like).collect();
+        }
+        for (tally, part) in tallies.iter_mut().zip(batch.arms) {
+            tally.merge(part).map_err(|e| malformed(line, format!("a batch that does not fit: {e}")))?;
         }
         done_until = batch.end;
         valid_bytes += n as u64;
@@ -391,7 +400,7 @@ impl Writer {
         let mut line = serde_json::to_vec(&BatchLineRef {
             first: batch.first,
             end: batch.end,
-            tallies: &batch.tallies,
+            arms: &batch.arms,
         })
         .expect("tallies serialise");
         line.push(b'\n');
@@ -460,7 +469,7 @@ pub fn open(path: &Path, header: &Header, resume: bool) -> Result<(Writer, Vec<A
 struct BatchLineRef<'a> {
     first: u32,
     end: u32,
-    tallies: &'a [(usize, ReplicationTally)],
+    arms: &'a [ArmTally],
 }
 
 fn temporary(path: &Path) -> PathBuf {
@@ -473,6 +482,7 @@ fn temporary(path: &Path) -> PathBuf {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::stats::ReplicationTally;
 
     #[test]
     fn differences_are_named_by_path() {

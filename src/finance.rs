@@ -36,35 +36,9 @@ pub fn interest_collected(collected: f64, disbursed: f64, loss: f64, recovered: 
     collected - (disbursed - (loss + recovered))
 }
 
-/// One replication-year: a block of `cycles_per_year` consecutive counted cycles.
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub struct Year {
-    /// Principal lost in the year, in currency.
-    pub loss: f64,
-    /// Mean principal outstanding over the year's cycles, in currency (the year's exposure).
-    pub principal_outstanding: f64,
-}
-
-impl Year {
-    /// Loss over the mean principal outstanding, `None` when the year lent nothing.
-    pub fn loss_rate(&self) -> Option<f64> {
-        (self.principal_outstanding > 0.0).then(|| self.loss / self.principal_outstanding)
-    }
-}
-
-/// The years of one replication: its counted cycles cut into consecutive blocks of
-/// `cycles_per_year` (a trailing partial block, which validation rules out, is dropped).
-pub fn years(tally: &ReplicationTally, cycles_per_year: u32) -> Vec<Year> {
-    let n = cycles_per_year.max(1) as usize;
-    tally
-        .cycles
-        .chunks_exact(n)
-        .map(|block| Year {
-            loss: block.iter().map(|c| c.loss).sum(),
-            principal_outstanding: block.iter().map(|c| c.disbursed).sum::<f64>() / n as f64,
-        })
-        .collect()
-}
+/// One replication-year: a block of `cycles_per_year` consecutive counted cycles (kept with each
+/// replication's tally, so the per-cycle records need not be).
+pub use crate::stats::tally::Year;
 
 /// The tail of the annual loss law: quantiles pooled over replication-years (type 7), ES at 99%.
 #[derive(Debug, Clone, Default, Serialize)]
@@ -191,8 +165,10 @@ pub fn arm_finance(
     let finance = scenario.finance();
     let cpy = finance.cycles_per_year().max(1);
     let reps = &tally.replications;
-    let all_years: Vec<Year> = reps.iter().flat_map(|r| years(r, cpy)).collect();
-    let n_years = all_years.len() as u64;
+    let all_years: Vec<Year> = reps.iter().flat_map(|r| r.years.iter().copied()).collect();
+    // Counted from the run's shape: a run without a [finance] table keeps no per-year records (a
+    // year would be one cycle), but its money figures are still per year.
+    let n_years = reps.len() as u64 * u64::from(scenario.cycles() / cpy);
     let rates: Vec<f64> = all_years.iter().filter_map(Year::loss_rate).collect();
     let amounts: Vec<f64> = all_years.iter().map(|y| y.loss).collect();
     let annual_loss_rate = AnnualTail::of(&rates);
@@ -397,15 +373,15 @@ mod tests {
 
     #[test]
     fn years_are_consecutive_blocks_of_cycles() {
-        let mut t = ReplicationTally::new(0, 1, 4);
-        for (loss, disbursed) in [(1.0, 100.0), (3.0, 100.0), (0.0, 50.0), (2.0, 150.0)] {
-            t.cycles.push(CycleRecord {
+        let cycles: Vec<CycleRecord> = [(1.0, 100.0), (3.0, 100.0), (0.0, 50.0), (2.0, 150.0)]
+            .into_iter()
+            .map(|(loss, disbursed)| CycleRecord {
                 loss,
                 disbursed,
                 ..Default::default()
-            });
-        }
-        let y = years(&t, 2);
+            })
+            .collect();
+        let y = crate::stats::tally::years_of(&cycles, 2);
         assert_eq!(y.len(), 2);
         assert_eq!(y[0].loss, 4.0);
         assert_eq!(y[0].principal_outstanding, 100.0);

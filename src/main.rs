@@ -514,6 +514,7 @@ fn execute(command: Command) -> Result<(), Failure> {
             let (scenario, _, _) = load(Some(&file))?;
             let options = run::RunOptions {
                 threads: threads.map(usize::from),
+                ..Default::default()
             };
             let started = std::time::Instant::now();
             let drawn =
@@ -572,8 +573,13 @@ fn execute(command: Command) -> Result<(), Failure> {
             }
             let options = run::RunOptions {
                 threads: threads.map(usize::from),
+                ..Default::default()
             };
-            run::check_memory(&scenario, &options, max_memory)
+            // a shard holds only its own replications
+            let held = shard.map_or(scenario.replications(), |id| {
+                loancycle::shard::range(id.index, id.count, scenario.replications()).len() as u32
+            });
+            run::check_memory(&scenario, &options, held, max_memory)
                 .map_err(|e| Failure::BadInput(format!("{origin}: {e}")))?;
             if let Some(path) = &loan_book {
                 loancycle::loanbook::check_destination(path, force).map_err(|e| Failure::BadInput(e.to_string()))?;

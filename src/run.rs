@@ -15,6 +15,10 @@ use rayon::prelude::*;
 pub struct RunOptions {
     /// Worker threads; `None` uses every core.
     pub threads: Option<usize>,
+    /// Keep every replication's per-cycle records in the results (for tests and studies that read
+    /// them). Off, a run keeps only their digest, so its memory does not grow with replications x
+    /// cycles; no output needs them.
+    pub keep_cycle_records: bool,
 }
 
 /// Why a run could not start.
@@ -82,15 +86,16 @@ pub fn batch_replications(replications: u32, threads: usize) -> u32 {
     per_worker.saturating_mul(u32::try_from(threads.max(1)).unwrap_or(u32::MAX))
 }
 
-/// One finished batch: replications `first..end` of every arm, replication-major.
+/// One finished batch: replications `first..end` of every arm.
 #[derive(Debug, Clone)]
 pub struct Batch {
     /// First replication of the batch.
     pub first: u32,
     /// One past the last replication of the batch.
     pub end: u32,
-    /// (arm index, tally) for every replication and arm of the batch, replication-major.
-    pub tallies: Vec<(usize, ReplicationTally)>,
+    /// Per arm, what the batch added to the arm's tally (see [`ArmTally::merge_part`]): merging
+    /// these parts in order rebuilds the tally exactly.
+    pub arms: Vec<ArmTally>,
 }
 
 /// What [`simulate_range`] finished: every replication from the range's start up to `done_until`.
@@ -134,8 +139,14 @@ pub fn simulate_range(
             reason: e.to_string(),
         })?;
     let arms = scenario.arms.len();
-    let mut tallies = already;
-    tallies.resize_with(arms, ArmTally::default);
+    // Tallies read back from a file that holds no batch yet start afresh, sized for this run.
+    let mut already = already.into_iter();
+    let mut tallies: Vec<ArmTally> = (0..arms)
+        .map(|_| match already.next() {
+            Some(t) if !t.is_empty() => t,
+            _ => ArmTally::for_scenario(scenario),
+        })
+        .collect();
     let resumed = tallies.iter().map(ArmTally::len).min().unwrap_or(0) as u32;
     let batch = batch_replications(range.end - range.start, threads);
     let mut first = range.start + resumed;
@@ -152,15 +163,28 @@ pub fn simulate_range(
                 .map(|&(r, a)| engine::simulate_replication(scenario, a, r))
                 .collect()
         });
+        let mut parts: Vec<ArmTally> = tallies.iter().map(ArmTally::empty_like).collect();
+        for (&(_, a), tally) in tasks.iter().zip(results) {
+            if options.keep_cycle_records {
+                parts[a].push_keeping_cycles(tally);
+            } else {
+                parts[a].push(tally);
+            }
+        }
+        let mut added = Vec::with_capacity(arms);
+        for (tally, part) in tallies.iter_mut().zip(parts) {
+            added.push(
+                tally
+                    .merge_part(part, first..last)
+                    .map_err(|e| RunError::Checkpoint(format!("cannot continue the run's tallies: {e}")))?,
+            );
+        }
         let finished = Batch {
             first,
             end: last,
-            tallies: tasks.iter().map(|&(_, a)| a).zip(results).collect(),
+            arms: added,
         };
         on_batch(&finished).map_err(RunError::Checkpoint)?;
-        for (a, tally) in finished.tallies {
-            tallies[a].push(tally);
-        }
         done += tasks.len() as u64;
         progress(done);
         first = last;
@@ -199,8 +223,9 @@ pub fn worker_threads(options: &RunOptions) -> usize {
 pub fn check_memory(
     scenario: &Scenario,
     options: &RunOptions,
+    replications_held: u32,
     max_memory_gib: Option<f64>,
 ) -> Result<(), crate::engine::memory::MemoryError> {
-    let estimate = crate::engine::memory::estimate(scenario, worker_threads(options));
+    let estimate = crate::engine::memory::estimate_part(scenario, worker_threads(options), replications_held);
     crate::engine::memory::check(&estimate, max_memory_gib)
 }

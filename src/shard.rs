@@ -2,8 +2,9 @@
 //! into exactly the files one run would have written.
 //!
 //! Shard I of N holds a contiguous block of replications, so merging is concatenation in shard
-//! order and every pooled sum is still formed in replication order: the merged figures agree with
-//! an unsharded run to the last bit. A shard's file is a complete tally file (see `checkpoint`),
+//! order and every pooled sum over replications is still formed in replication order; the pooled
+//! per-cycle accumulators (the loss tail, the time-series sums) are exact and independent of
+//! order. The merged figures agree with an unsharded run to the last bit. A shard's file is a complete tally file (see `checkpoint`),
 //! written as the shard's checkpoint while it runs and renamed to its final name when done.
 
 use crate::checkpoint::{self, Header, ShardId, TallyFile};
@@ -175,7 +176,7 @@ pub fn merge(dirs: &[PathBuf]) -> Result<Merged, String> {
         .header
         .scenario()
         .map_err(|e| format!("{}: {e}", first_path.display()))?;
-    let mut arms = vec![ArmTally::default(); scenario.arms().len()];
+    let mut arms = vec![ArmTally::for_scenario(&scenario); scenario.arms().len()];
     let mut files = Vec::new();
     for i in slots.into_iter().flatten() {
         let (path, file) = &found[i];

@@ -11,7 +11,14 @@ use loancycle::scenario::Scenario;
 
 /// Hit shares (members short / members served) of every counted cycle of every replication.
 fn cycle_hit_shares(s: &Scenario) -> Vec<f64> {
-    let results = run::simulate(s, RunOptions::default(), &mut |_| {}).unwrap();
+    let results = run::simulate(
+        s,
+        RunOptions {
+            keep_cycle_records: true,
+            ..Default::default()
+        },
+        &mut |_| {},
+    ).unwrap();
     results.arms[0]
         .replications
         .iter()

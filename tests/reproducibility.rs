@@ -62,12 +62,36 @@ const SCENARIO: &str = r#"
 #[test]
 fn results_are_identical_for_one_and_two_threads() {
     let s = scenario(SCENARIO);
-    let one = run::simulate(&s, RunOptions { threads: Some(1) }, &mut |_| {}).unwrap();
-    let two = run::simulate(&s, RunOptions { threads: Some(2) }, &mut |_| {}).unwrap();
+    let one = run::simulate(&s, RunOptions { threads: Some(1), ..Default::default() }, &mut |_| {}).unwrap();
+    let two = run::simulate(&s, RunOptions { threads: Some(2), ..Default::default() }, &mut |_| {}).unwrap();
     assert_eq!(one.arms, two.arms);
     // and the run did something: loans, losses and exclusions happened
     let t = &one.arms[2].replications[0];
     assert!(t.member_loans > 0 && t.loss > 0.0 && t.excluded_slot_cycles > 0);
+}
+
+/// A run that drops the per-cycle records (as `run` does) summarises to exactly what a run that
+/// keeps them does: the digest and the pooled accumulators hold everything the outputs read.
+#[test]
+fn dropping_the_cycle_records_changes_no_figure() {
+    let s = scenario(SCENARIO);
+    let options = |keep| RunOptions {
+        threads: Some(2),
+        keep_cycle_records: keep,
+    };
+    let kept = run::simulate(&s, options(true), &mut |_| {}).unwrap();
+    let dropped = run::simulate(&s, options(false), &mut |_| {}).unwrap();
+    assert!(kept.arms[0].replications[0].cycles.len() == s.cycles() as usize);
+    assert!(dropped.arms.iter().all(|a| a.replications.iter().all(|r| r.cycles.is_empty())));
+    for (a, arm) in s.arms().iter().enumerate() {
+        let k = arm.policy().group_size();
+        let json = |t| serde_json::to_string(&loancycle::stats::summary::summarize_arm(t, k)).unwrap();
+        assert_eq!(json(&kept.arms[a]), json(&dropped.arms[a]), "arm {a}");
+        assert_eq!(
+            loancycle::stats::summary::time_series(&kept.arms[a], &s).len(),
+            s.cycles() as usize
+        );
+    }
 }
 
 #[test]
@@ -82,8 +106,8 @@ fn a_different_seed_gives_different_results() {
         },
     )
     .unwrap();
-    let a = run::simulate(&s, RunOptions { threads: Some(2) }, &mut |_| {}).unwrap();
-    let b = run::simulate(&other, RunOptions { threads: Some(2) }, &mut |_| {}).unwrap();
+    let a = run::simulate(&s, RunOptions { threads: Some(2), ..Default::default() }, &mut |_| {}).unwrap();
+    let b = run::simulate(&other, RunOptions { threads: Some(2), ..Default::default() }, &mut |_| {}).unwrap();
     assert_ne!(a.arms, b.arms);
 }
 
@@ -276,8 +300,8 @@ fn behaviour_and_growth_are_reproducible_and_pinned() {
         liability = ["joint", "individual"]
         "#,
     );
-    let one = run::simulate(&s, RunOptions { threads: Some(1) }, &mut |_| {}).unwrap();
-    let two = run::simulate(&s, RunOptions { threads: Some(2) }, &mut |_| {}).unwrap();
+    let one = run::simulate(&s, RunOptions { threads: Some(1), ..Default::default() }, &mut |_| {}).unwrap();
+    let two = run::simulate(&s, RunOptions { threads: Some(2), ..Default::default() }, &mut |_| {}).unwrap();
     assert_eq!(one.arms, two.arms);
     let t = loancycle::engine::simulate_replication(&s, 0, 1);
     let u = loancycle::engine::simulate_replication(&s, 3, 4);
@@ -305,4 +329,42 @@ fn behaviour_and_growth_are_reproducible_and_pinned() {
         ),
         "{got:?}"
     );
+}
+
+/// The per-cycle loss tail of a run keeps only its top values when the run has more (here 500 x 5
+/// = 2,500 per arm against 2,098 kept): every figure, the per-cycle quantiles and their intervals
+/// included, equals the one computed from a tail that keeps every value.
+#[test]
+fn the_kept_tail_gives_the_figures_of_all_values() {
+    let text = std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/tests/data/cli/tiny.toml")).unwrap();
+    let s = loancycle::scenario::Scenario::from_toml_str_with(
+        &text,
+        "tiny.toml",
+        &loancycle::scenario::Overrides {
+            replications: Some(500),
+            ..Default::default()
+        },
+    )
+    .unwrap();
+    let options = RunOptions {
+        threads: Some(2),
+        keep_cycle_records: true,
+    };
+    let results = run::simulate(&s, options, &mut |_| {}).unwrap();
+    for (a, arm) in s.arms().iter().enumerate() {
+        let kept = &results.arms[a];
+        assert!((kept.cycle_tail.len() as u64) < kept.lent_cycles() as u64, "the tail is pruned");
+        let mut everything = loancycle::stats::ArmTally::new(kept.cycles_per_year, u64::MAX);
+        kept.replications.iter().cloned().for_each(|r| everything.push(r));
+        assert_eq!(everything.cycle_tail.len(), everything.lent_cycles());
+        let k = arm.policy().group_size();
+        let summary = |t| loancycle::stats::summary::summarize_arm(t, k);
+        let (pruned, full) = (summary(kept), summary(&everything));
+        assert!(full.loss_cycle_p99.is_some() && full.loss_cycle_p99_ci_low.is_some());
+        assert_eq!(
+            serde_json::to_string(&pruned).unwrap(),
+            serde_json::to_string(&full).unwrap(),
+            "arm {a}"
+        );
+    }
 }

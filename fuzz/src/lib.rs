@@ -61,7 +61,7 @@ pub fn exercise(text: &str) {
     if member_cycles > MAX_MEMBER_CYCLES {
         return;
     }
-    let results = simulate(&scenario, RunOptions { threads: Some(1) }, &mut |_| {})
+    let results = simulate(&scenario, RunOptions { threads: Some(1), keep_cycle_records: true }, &mut |_| {})
         .expect("a validated small scenario simulates");
     check_invariants(&scenario, &results.arms);
     let report = loancycle::report::build(&scenario, text, ORIGIN, &results);

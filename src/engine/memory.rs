@@ -7,20 +7,29 @@
 //! the sum of what the run holds at its peak (the formula is in DEVELOPERS.md, section "Memory"):
 //!
 //! - each worker's replication state: per-slot arrays, per-village scratch, per-shock village
-//!   blocks and the tally being filled;
-//! - every finished replication's tally with its per-cycle records, kept until the report is built;
-//! - while one arm is summarised, its per-cycle loss rates and a sorted copy;
+//!   blocks and the tally being filled with its per-cycle records;
+//! - the batch in hand: its replications' tallies with their per-cycle records, until they are
+//!   digested;
+//! - every finished replication's tally, without per-cycle records (its years are kept), and the
+//!   figures the report makes of it; kept until the report is built;
+//! - per arm, the upper tail of the per-cycle loss rates (about 2% of the replication-cycles) and
+//!   the per-cycle sums of the time series;
+//! - while one arm is summarised, sorted copies of its per-replication and per-year figures;
 //! - a fixed base for the program, its thread stacks and the report.
+//!
+//! So memory grows with replications by a fixed amount per replication (and year), and no longer
+//! with replications x cycles.
 
 use crate::scenario::{Formation, Scenario, ShockScope};
-use crate::stats::{CycleRecord, ReplicationTally};
+use crate::stats::replications::ReplicationFigures;
+use crate::stats::{CycleRecord, CycleSums, ReplicationTally, Year};
 
 /// Bytes in one GiB (2^30), the unit of `--max-memory` and of the messages.
 pub const BYTES_PER_GIB: f64 = 1_073_741_824.0;
 
 /// The program, its libraries, the thread stacks in use and the report: measured peak of a tiny run
-/// (about 6 MiB on x86-64 Linux), rounded up.
-const BASE_BYTES: u64 = 16 << 20;
+/// (about 5.5 MiB on x86-64 Linux; the unoptimised test build, about 15 MiB), rounded up.
+const BASE_BYTES: u64 = 8 << 20;
 
 /// Per slot and worker: occupied, entrants, income, risk, excluded-through, assigned, multiplier,
 /// short, walked, removed, reached, principal, entry cycle (50 bytes), group members and offsets
@@ -35,8 +44,17 @@ const SLOT_PERSISTENT_BYTES: u64 = 9;
 const VILLAGE_SLOT_BYTES: u64 = 16 + 8 + 8 + 24 + 4;
 /// Per village, shock and worker: the cycle's village block of two words.
 const VILLAGE_SHOCK_BYTES: u64 = 8;
-/// Per per-cycle record while one arm is summarised: its loss rate and the sorted copy.
-const SUMMARY_RECORD_BYTES: u64 = 16;
+/// Per kept per-cycle loss rate: the entry (16 bytes), doubled for the heap's growth by doubling.
+const TAIL_ENTRY_BYTES: u64 = 32;
+/// Per replication while one arm is summarised: its loss rate and worst cycle, each with a sorted
+/// copy.
+const SUMMARY_REPLICATION_BYTES: u64 = 32;
+/// Per replication-year while one arm is summarised: the years gathered, their rates and amounts
+/// with sorted copies.
+const SUMMARY_YEAR_BYTES: u64 = 16 + 4 * 8;
+/// Per counted cycle and arm beyond the struct: the two exact sums' partials (a few doubles each)
+/// with the allocator's share.
+const CYCLE_SUMS_HEAP_BYTES: u64 = 2 * (32 + 4 * 8);
 /// Allocator rounding and bookkeeping per heap block (glibc: 16 bytes of header, 16-byte steps).
 const ALLOCATION_BYTES: u64 = 32;
 
@@ -47,9 +65,10 @@ pub struct MemoryEstimate {
     pub workers: u64,
     /// One worker's replication state.
     pub worker_bytes: u64,
-    /// Every finished replication's tally and per-cycle records.
+    /// Every finished replication's tally and figures, the batch in hand, and the arms' pooled
+    /// per-cycle accumulators (loss tail, time-series sums).
     pub tally_bytes: u64,
-    /// The per-cycle figures of one arm while it is summarised.
+    /// The per-replication and per-year figures of one arm while it is summarised.
     pub summary_bytes: u64,
     /// Program, stacks and report.
     pub base_bytes: u64,
@@ -69,6 +88,12 @@ impl MemoryEstimate {
 
 /// Estimates the peak memory of simulating and reporting `scenario` on `threads` worker threads.
 pub fn estimate(scenario: &Scenario, threads: usize) -> MemoryEstimate {
+    estimate_part(scenario, threads, scenario.replications)
+}
+
+/// As [`estimate`], for a process that simulates and holds only `replications_held` of the run's
+/// replications (a shard); the loss tail is still sized for the whole run.
+pub fn estimate_part(scenario: &Scenario, threads: usize, replications_held: u32) -> MemoryEstimate {
     let slots = u64::from(scenario.borrowers);
     let villages = u64::from(scenario.villages.max(1));
     let largest_village = slots.div_ceil(villages);
@@ -89,21 +114,43 @@ pub fn estimate(scenario: &Scenario, threads: usize) -> MemoryEstimate {
         .max()
         .unwrap_or(2);
     let cycles = u64::from(scenario.cycles);
+    let replications = u64::from(replications_held.min(scenario.replications));
+    let arms = scenario.arms.len() as u64;
+    // without a [finance] table a run keeps no years (see `ArmTally::for_scenario`)
+    let years = if scenario.finance == crate::scenario::Finance::default() {
+        0
+    } else {
+        cycles / u64::from(scenario.finance.cycles_per_year().max(1))
+    };
     let record_bytes = std::mem::size_of::<CycleRecord>() as u64;
     let tally_bytes = std::mem::size_of::<ReplicationTally>() as u64;
-    // One replication's tally: the struct (twice: the arm's list grows by doubling), its per-cycle
-    // records and its histogram, each heap block with the allocator's share.
-    let one_tally = 2 * tally_bytes + cycles * record_bytes + histogram_cells * 8 + 2 * ALLOCATION_BYTES;
+    let histogram = histogram_cells * 8 + ALLOCATION_BYTES;
+    // A replication in flight: the struct, its per-cycle records and histogram.
+    let in_flight = tally_bytes + cycles * record_bytes + histogram + ALLOCATION_BYTES;
+    // A finished replication: the struct, its histogram and years, and the report's figures of
+    // it. The arm's list grows by doubling, but the pages of its spare capacity are never touched
+    // (large blocks are mapped, and grown by remapping), so they are not resident.
+    let finished = tally_bytes
+        + histogram
+        + years * std::mem::size_of::<Year>() as u64
+        + 2 * ALLOCATION_BYTES
+        + std::mem::size_of::<ReplicationFigures>() as u64;
 
     let per_slot = SLOT_BYTES + member_shocks * SLOT_SHOCK_BYTES + if persistent { SLOT_PERSISTENT_BYTES } else { 0 };
     let worker_bytes =
-        slots * per_slot + largest_village * VILLAGE_SLOT_BYTES + villages * shocks * VILLAGE_SHOCK_BYTES + one_tally;
-    let tasks = u64::from(scenario.replications) * scenario.arms.len() as u64;
+        slots * per_slot + largest_village * VILLAGE_SLOT_BYTES + villages * shocks * VILLAGE_SHOCK_BYTES + in_flight;
+    let tasks = replications * arms;
+    let workers = (threads.max(1) as u64).min(tasks.max(1));
+    let batch = u64::from(crate::run::batch_replications(replications_held, workers as usize)).min(replications);
+    let tail = crate::stats::cycle_tail::tail_capacity(scenario.replications, scenario.cycles).min(replications * cycles);
+    let cycle_sums = cycles * (std::mem::size_of::<CycleSums>() as u64 + CYCLE_SUMS_HEAP_BYTES);
     MemoryEstimate {
-        workers: (threads.max(1) as u64).min(tasks.max(1)),
+        workers,
         worker_bytes,
-        tally_bytes: tasks * one_tally,
-        summary_bytes: u64::from(scenario.replications) * cycles * SUMMARY_RECORD_BYTES,
+        tally_bytes: tasks * finished + batch * arms * in_flight + arms * (tail * TAIL_ENTRY_BYTES + cycle_sums),
+        summary_bytes: replications * SUMMARY_REPLICATION_BYTES
+            + replications * years * SUMMARY_YEAR_BYTES
+            + tail * TAIL_ENTRY_BYTES / 2,
         base_bytes: BASE_BYTES,
     }
 }
@@ -128,7 +175,7 @@ fn parse_mem_available(meminfo: &str) -> Option<u64> {
 pub enum MemoryError {
     /// The estimate exceeds the limit.
     #[error(
-        "the run needs an estimated {needed_gib:.2} GiB of memory, above the {limit_gib:.2} GiB {source_text}; \
+        "the run needs an estimated {needed_gib:.3} GiB of memory, above the {limit_gib:.2} GiB {source_text}; \
          lower replications, cycles, arms, borrowers or --threads, or set the limit with --max-memory GIB"
     )]
     TooLarge {
@@ -188,7 +235,9 @@ mod tests {
     fn estimate_grows_with_each_part_of_the_run() {
         let base = estimate(&scenario(""), 1);
         let two = estimate(&scenario(""), 2);
-        assert_eq!(two.total_bytes() - base.total_bytes(), base.worker_bytes);
+        // a second worker holds a second replication in flight, and its share of the batch
+        assert_eq!(two.workers, 2);
+        assert!(two.total_bytes() - base.total_bytes() > base.worker_bytes);
         let shocked = estimate(
             &scenario("[[shock]]\nname = \"illness\"\nscope = \"member\"\nprobability = 0.1\n"),
             1,
@@ -212,7 +261,7 @@ mod tests {
             err.contains("GiB of memory, above the 0.00 GiB given by --max-memory"),
             "{err}"
         );
-        assert!(err.contains(&format!("{:.2}", e.total_gib())), "{err}");
+        assert!(err.contains(&format!("{:.3}", e.total_gib())), "{err}");
         assert!(
             check(&e, Some(-1.0))
                 .unwrap_err()

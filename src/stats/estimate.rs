@@ -57,14 +57,20 @@ pub fn mean_and_se(values: &[f64]) -> Option<(f64, Option<f64>)> {
 /// The q-quantile of sorted values by linear interpolation between order statistics (Hyndman and
 /// Fan type 7, the default of R and NumPy). `None` when fewer than 1 / (1 - q) values exist.
 pub fn quantile_sorted(sorted: &[f64], q: f64) -> Option<f64> {
-    let n = sorted.len();
+    quantile_of_ranked(sorted.len(), q, |i| sorted.get(i).copied())
+}
+
+/// As [`quantile_sorted`], for `n` values of which `at(i)` gives the `i`-th smallest (0-based), or
+/// `None` where that order statistic is not held (then the quantile is `None` too).
+pub fn quantile_of_ranked(n: usize, q: f64, at: impl Fn(usize) -> Option<f64>) -> Option<f64> {
     if n == 0 || (n as f64) < (1.0 / (1.0 - q)).round() {
         return None;
     }
     let h = (n as f64 - 1.0) * q;
     let lo = h.floor() as usize;
     let hi = (lo + 1).min(n - 1);
-    Some(sorted[lo] + (h - lo as f64) * (sorted[hi] - sorted[lo]))
+    let (a, b) = (at(lo)?, at(hi)?);
+    Some(a + (h - lo as f64) * (b - a))
 }
 
 /// Expected shortfall at level q: the mean of the values at or above the q-quantile.
@@ -300,12 +306,26 @@ pub fn clustered_quantile_interval(
     q: f64,
     counts: impl Fn(f64) -> Vec<(f64, f64)>,
 ) -> Option<(f64, f64)> {
-    let n = sorted_all.len();
-    let estimate = quantile_sorted(sorted_all, q)?;
+    clustered_quantile_interval_ranked(sorted_all.len(), q, |i| sorted_all.get(i).copied(), counts)
+}
+
+/// As [`clustered_quantile_interval`], for `n` values of which `at(i)` gives the `i`-th smallest
+/// (0-based) where it is held; `None` when an order statistic the interval needs is not held.
+pub fn clustered_quantile_interval_ranked(
+    n: usize,
+    q: f64,
+    at: impl Fn(usize) -> Option<f64>,
+    counts: impl Fn(f64) -> Vec<(f64, f64)>,
+) -> Option<(f64, f64)> {
+    let estimate = quantile_of_ranked(n, q, &at)?;
     let se = ratio(counts(estimate))?.standard_error?;
     let low = (n as f64 * (q - Z_95 * se)).floor();
     let high = (n as f64 * (q + Z_95 * se)).ceil() + 1.0;
-    (low >= 1.0 && high <= n as f64).then(|| (sorted_all[low as usize - 1], sorted_all[high as usize - 1]))
+    if low >= 1.0 && high <= n as f64 {
+        Some((at(low as usize - 1)?, at(high as usize - 1)?))
+    } else {
+        None
+    }
 }
 
 #[cfg(test)]

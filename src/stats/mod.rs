@@ -7,11 +7,13 @@
 //! the error.
 
 pub mod compare;
+pub mod cycle_tail;
 pub mod estimate;
+pub mod exact_sum;
 pub mod replications;
 pub mod select;
 pub mod summary;
 pub mod tally;
 pub mod tolerance;
 
-pub use tally::{ArmTally, CycleRecord, ReplicationTally};
+pub use tally::{ArmTally, CycleRecord, CycleSums, ReplicationTally, Year};

@@ -1,7 +1,7 @@
 //! Per-arm figures computed from an arm's replications: the rows of summary.csv and the time series.
 
 use crate::scenario::Scenario;
-use crate::stats::ArmTally;
+use crate::stats::{cycle_tail, ArmTally, CycleSums};
 use crate::stats::estimate::{self, RatioEstimate};
 use serde::Serialize;
 
@@ -224,27 +224,29 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
     let slot_cycles: u64 = reps.iter().map(|r| r.slot_cycles()).sum();
     let rep_losses: Vec<f64> = reps.iter().filter_map(|r| r.loss_rate()).collect();
     let rep_losses = estimate::sorted(&rep_losses);
-    let cycle_losses: Vec<f64> = reps
-        .iter()
-        .flat_map(|r| {
-            r.cycles
-                .iter()
-                .filter(|c| c.disbursed > 0.0)
-                .map(|c| c.loss / c.disbursed)
-        })
-        .collect();
-    let cycle_losses = estimate::sorted(&cycle_losses);
     let horizon_ci = |q: f64| estimate::quantile_interval_sorted(&rep_losses, q).unzip();
+    // The per-cycle loss quantiles read the top of all replication-cycles that lent, which the
+    // arm's tail holds (largest first).
+    let tail = tally.cycle_tail.descending();
+    let lent_cycles = tally.lent_cycles();
+    let cycle_at = |i: usize| cycle_tail::order_statistic(&tail, lent_cycles, i);
     let cycle_counts = |x: f64| {
+        // Every rate above x is in the tail (x is at or above a value the tail holds), so each
+        // replication's rates at or below x are its cycles that lent less those above x.
+        let mut above: std::collections::HashMap<u32, u32> = std::collections::HashMap::new();
+        for e in tail.iter().take_while(|e| e.loss_rate > x) {
+            *above.entry(e.replication).or_default() += 1;
+        }
         reps.iter()
             .map(|r| {
-                let lent = r.cycles.iter().filter(|c| c.disbursed > 0.0);
-                let below = lent.clone().filter(|c| c.loss / c.disbursed <= x).count();
-                (below as f64, lent.count() as f64)
+                let lent = r.lent_cycles;
+                let over = above.get(&r.replication).copied().unwrap_or(0);
+                (f64::from(lent - over), f64::from(lent))
             })
             .collect()
     };
-    let cycle_ci = |q: f64| estimate::clustered_quantile_interval(&cycle_losses, q, cycle_counts).unzip();
+    let cycle_ci =
+        |q: f64| estimate::clustered_quantile_interval_ranked(lent_cycles, q, cycle_at, cycle_counts).unzip();
     let worst: Vec<f64> = reps
         .iter()
         .filter_map(crate::stats::replications::worst_cycle_loss)
@@ -295,8 +297,8 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
         loss_p99: estimate::quantile_sorted(&rep_losses, 0.99),
         loss_p999: estimate::quantile_sorted(&rep_losses, 0.999),
         loss_es99: estimate::expected_shortfall_sorted(&rep_losses, 0.99),
-        loss_cycle_p99: estimate::quantile_sorted(&cycle_losses, 0.99),
-        loss_cycle_p999: estimate::quantile_sorted(&cycle_losses, 0.999),
+        loss_cycle_p99: estimate::quantile_of_ranked(lent_cycles, 0.99, cycle_at),
+        loss_cycle_p999: estimate::quantile_of_ranked(lent_cycles, 0.999, cycle_at),
         worst_cycle_loss_p50: estimate::quantile_sorted(&worst, 0.5),
         worst_cycle_loss_p95: estimate::quantile_sorted(&worst, 0.95),
         worst_cycle_loss_p99: estimate::quantile_sorted(&worst, 0.99),
@@ -430,34 +432,17 @@ pub fn shortfall_icc(tally: &ArmTally, group_size: u32) -> Option<f64> {
 /// The time series of one arm: per counted cycle, means over replications.
 pub fn time_series(tally: &ArmTally, scenario: &Scenario) -> Vec<CyclePoint> {
     let n = f64::from(scenario.borrowers());
+    let none = CycleSums::default();
     (0..scenario.cycles() as usize)
         .map(|c| {
-            let mut served = (0.0, 0u64);
-            let mut repay = (0.0, 0u64);
-            let mut loss = (0.0, 0u64);
-            let mut excluded = (0.0, 0u64);
-            for r in &tally.replications {
-                let Some(rec) = r.cycles.get(c) else { continue };
-                served.0 += f64::from(rec.served) / n;
-                served.1 += 1;
-                excluded.0 += f64::from(rec.excluded) / n;
-                excluded.1 += 1;
-                if rec.groups > 0 {
-                    repay.0 += f64::from(rec.groups_repaid) / f64::from(rec.groups);
-                    repay.1 += 1;
-                }
-                if rec.disbursed > 0.0 {
-                    loss.0 += rec.loss / rec.disbursed;
-                    loss.1 += 1;
-                }
-            }
-            let mean = |(s, c): (f64, u64)| (c > 0).then(|| s / c as f64);
+            let sums = tally.cycle_sums.get(c).unwrap_or(&none);
+            let per = |count: u64| (count > 0).then_some(count as f64);
             CyclePoint {
                 cycle: scenario.warmup_cycles() + c as u32 + 1,
-                served_share: mean(served),
-                group_repayment_rate: mean(repay),
-                loss_rate: mean(loss),
-                excluded_share: mean(excluded),
+                served_share: per(sums.records).map(|r| sums.served as f64 / n / r),
+                group_repayment_rate: per(sums.with_groups).map(|g| sums.repaid_share.value() / g),
+                loss_rate: per(sums.lent).map(|l| sums.loss_rate.value() / l),
+                excluded_share: per(sums.records).map(|r| sums.excluded as f64 / n / r),
             }
         })
         .collect()

@@ -1,10 +1,17 @@
 //! What one replication of one arm produced, and the accumulator that collects replications.
 //!
-//! A `ReplicationTally` is one independent observation. `ArmTally` keeps them in replication order;
-//! every pooled figure is computed from that ordered list when results are summarised, so merging
-//! shards (from other threads, machines or a resumed run) and summarising gives bit-identical
-//! figures to a single pass.
+//! A `ReplicationTally` is one independent observation. `ArmTally` keeps them in replication order
+//! with their totals, but not their per-cycle records: memory would grow with replications x
+//! cycles. What the outputs need of those records is kept in a fixed size per replication (its
+//! worst cycle, its cycles that lent, its years) or pooled over replications in exact, mergeable
+//! accumulators (the upper tail of the per-cycle loss rates, the per-cycle sums of the time
+//! series). Pooled figures that are sums over replications are formed in replication order from
+//! the ordered list, and the pooled accumulators do not depend on order at all, so merging shards
+//! (from other threads, machines or a resumed run) and summarising gives bit-identical figures to
+//! a single pass.
 
+use crate::stats::cycle_tail::{CycleLossTail, TailEntry};
+use crate::stats::exact_sum::ExactSum;
 use serde::{Deserialize, Serialize};
 
 /// Figures of one counted cycle of one replication.
@@ -104,8 +111,93 @@ pub struct ReplicationTally {
     /// of `empty_slot_cycles`).
     #[serde(default)]
     pub removed_slot_cycles: u64,
-    /// Per counted cycle, in order.
+    /// Per counted cycle, in order, as the engine fills them. An [`ArmTally`] keeps their digest
+    /// (the fields below and its pooled accumulators) and drops them, unless asked to keep them.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub cycles: Vec<CycleRecord>,
+    /// Counted cycles that lent (the per-cycle loss rates this replication contributes).
+    #[serde(default)]
+    pub lent_cycles: u32,
+    /// The largest single-cycle loss rate among the cycles that lent; `None` if none lent.
+    #[serde(default)]
+    pub worst_cycle_loss: Option<f64>,
+    /// The counted cycles in consecutive blocks of the year's cycles (`[finance] cycles_per_year`).
+    #[serde(default)]
+    pub years: Vec<Year>,
+}
+
+/// One year of one replication: consecutive counted cycles, as many as the year has.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Serialize, Deserialize)]
+pub struct Year {
+    /// Principal lost in the year, in currency.
+    pub loss: f64,
+    /// Mean principal outstanding over the year's cycles, in currency (the year's exposure).
+    pub principal_outstanding: f64,
+}
+
+impl Year {
+    /// Loss over the mean principal outstanding, `None` when the year lent nothing.
+    pub fn loss_rate(&self) -> Option<f64> {
+        (self.principal_outstanding > 0.0).then(|| self.loss / self.principal_outstanding)
+    }
+}
+
+/// The years of per-cycle records: consecutive blocks of `cycles_per_year` (a trailing partial
+/// block, which validation rules out, is dropped).
+pub fn years_of(cycles: &[CycleRecord], cycles_per_year: u32) -> Vec<Year> {
+    let n = cycles_per_year.max(1) as usize;
+    cycles
+        .chunks_exact(n)
+        .map(|block| Year {
+            loss: block.iter().map(|c| c.loss).sum(),
+            principal_outstanding: block.iter().map(|c| c.disbursed).sum::<f64>() / n as f64,
+        })
+        .collect()
+}
+
+/// The sums over replications of one counted cycle's figures, for the time series.
+#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
+pub struct CycleSums {
+    /// Replications with a record of this cycle.
+    pub records: u64,
+    /// Member loans served, summed.
+    pub served: u64,
+    /// Members excluded, summed.
+    pub excluded: u64,
+    /// Replications that served a group in this cycle.
+    pub with_groups: u64,
+    /// Their shares of groups that repaid in full, summed exactly.
+    pub repaid_share: ExactSum,
+    /// Replications that lent in this cycle.
+    pub lent: u64,
+    /// Their loss rates, summed exactly.
+    pub loss_rate: ExactSum,
+}
+
+impl CycleSums {
+    fn add(&mut self, c: &CycleRecord) {
+        self.records += 1;
+        self.served += u64::from(c.served);
+        self.excluded += u64::from(c.excluded);
+        if c.groups > 0 {
+            self.with_groups += 1;
+            self.repaid_share.push(f64::from(c.groups_repaid) / f64::from(c.groups));
+        }
+        if c.disbursed > 0.0 {
+            self.lent += 1;
+            self.loss_rate.push(c.loss / c.disbursed);
+        }
+    }
+
+    fn merge(&mut self, o: &CycleSums) {
+        self.records += o.records;
+        self.served += o.served;
+        self.excluded += o.excluded;
+        self.with_groups += o.with_groups;
+        self.repaid_share.merge(&o.repaid_share);
+        self.lent += o.lent;
+        self.loss_rate.merge(&o.loss_rate);
+    }
 }
 
 impl ReplicationTally {
@@ -154,6 +246,23 @@ impl ReplicationTally {
             .collect()
     }
 
+    /// Fills the per-replication digest of the per-cycle records (cycles that lent, worst cycle,
+    /// years of `cycles_per_year` cycles, none for 0); the records themselves are left in place.
+    pub fn digest_cycles(&mut self, cycles_per_year: u32) {
+        let rates = self
+            .cycles
+            .iter()
+            .filter(|c| c.disbursed > 0.0)
+            .map(|c| c.loss / c.disbursed);
+        self.lent_cycles = rates.clone().count() as u32;
+        self.worst_cycle_loss = rates.fold(None, |acc: Option<f64>, x| Some(acc.map_or(x, |a| a.max(x))));
+        self.years = if cycles_per_year == 0 {
+            Vec::new()
+        } else {
+            years_of(&self.cycles, cycles_per_year)
+        };
+    }
+
     /// The replication's loss rate over its counted cycles, `None` if it lent nothing.
     pub fn loss_rate(&self) -> Option<f64> {
         (self.disbursed > 0.0).then(|| self.loss / self.disbursed)
@@ -193,11 +302,34 @@ pub fn net_income(
     collected + recovered + fees - disbursed - cost_of_funds - operating_cost
 }
 
-/// Mergeable accumulator of one arm's replications, kept in replication order.
-#[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
+/// Mergeable accumulator of one arm's replications, kept in replication order, with the pooled
+/// digest of their per-cycle records.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct ArmTally {
-    /// The replications pushed so far, sorted by replication index.
+    /// The replications pushed so far, sorted by replication index, without their per-cycle
+    /// records (unless pushed with [`ArmTally::push_keeping_cycles`]).
     pub replications: Vec<ReplicationTally>,
+    /// Counted cycles per year, for the replications' [`ReplicationTally::years`]; 0 keeps no
+    /// years (a scenario without a `[finance]` table has no year but the cycle).
+    #[serde(default = "one")]
+    pub cycles_per_year: u32,
+    /// The largest per-cycle loss rates over all replications.
+    #[serde(default)]
+    pub cycle_tail: CycleLossTail,
+    /// Per counted cycle, the sums of the time series over replications.
+    #[serde(default)]
+    pub cycle_sums: Vec<CycleSums>,
+}
+
+fn one() -> u32 {
+    1
+}
+
+impl Default for ArmTally {
+    /// A tally with years of one cycle that keeps every per-cycle loss rate.
+    fn default() -> Self {
+        ArmTally::new(1, u64::MAX)
+    }
 }
 
 /// Why two tallies cannot be merged.
@@ -206,17 +338,106 @@ pub enum MergeError {
     /// The same replication appears in both.
     #[error("replication {0} appears in both tallies")]
     DuplicateReplication(u32),
+    /// The two were made for runs of different sizes or years.
+    #[error("the tallies were made for different runs (tail of {0} and {1} values, years of {2} and {3} cycles)")]
+    Layout(u64, u64, u32, u32),
 }
 
 impl ArmTally {
-    /// Adds one replication, keeping replication order.
-    pub fn push(&mut self, tally: ReplicationTally) {
+    /// An empty tally whose years have `cycles_per_year` cycles (0: keep no years) and whose
+    /// per-cycle loss tail keeps `tail_capacity` values.
+    pub fn new(cycles_per_year: u32, tail_capacity: u64) -> Self {
+        ArmTally {
+            replications: Vec::new(),
+            cycles_per_year,
+            cycle_tail: CycleLossTail::with_capacity(tail_capacity),
+            cycle_sums: Vec::new(),
+        }
+    }
+
+    /// An empty tally for an arm of `scenario`: its year (none without a `[finance]` table) and a
+    /// tail sized for the whole run.
+    pub fn for_scenario(scenario: &crate::scenario::Scenario) -> Self {
+        let finance = scenario.finance();
+        ArmTally::new(
+            if *finance == crate::scenario::Finance::default() {
+                0
+            } else {
+                finance.cycles_per_year()
+            },
+            crate::stats::cycle_tail::tail_capacity(scenario.replications(), scenario.cycles()),
+        )
+    }
+
+    /// An empty tally made like this one (same year and tail size).
+    pub fn empty_like(&self) -> Self {
+        ArmTally::new(self.cycles_per_year, self.cycle_tail.capacity())
+    }
+
+    /// Adds one replication, keeping replication order: its per-cycle records go into the pooled
+    /// accumulators and the replication's digest, and are then dropped.
+    pub fn push(&mut self, mut tally: ReplicationTally) {
+        self.absorb_cycles(&mut tally);
+        tally.cycles = Vec::new();
+        self.insert(tally);
+    }
+
+    /// As [`ArmTally::push`], but the replication keeps its per-cycle records (for tests and
+    /// studies that read them; memory then grows with replications x cycles).
+    pub fn push_keeping_cycles(&mut self, mut tally: ReplicationTally) {
+        self.absorb_cycles(&mut tally);
+        self.insert(tally);
+    }
+
+    fn absorb_cycles(&mut self, tally: &mut ReplicationTally) {
+        if tally.cycles.is_empty() {
+            // already digested (read back from a file): its cycles are in some pooled accumulator
+            return;
+        }
+        tally.digest_cycles(self.cycles_per_year);
+        if self.cycle_sums.len() < tally.cycles.len() {
+            self.cycle_sums.resize_with(tally.cycles.len(), CycleSums::default);
+        }
+        for (c, (record, sums)) in tally.cycles.iter().zip(&mut self.cycle_sums).enumerate() {
+            sums.add(record);
+            if record.disbursed > 0.0 {
+                self.cycle_tail.push(TailEntry {
+                    loss_rate: record.loss / record.disbursed,
+                    replication: tally.replication,
+                    cycle: c as u32,
+                });
+            }
+        }
+    }
+
+    fn insert(&mut self, tally: ReplicationTally) {
         let at = self.replications.partition_point(|r| r.replication < tally.replication);
         self.replications.insert(at, tally);
     }
 
-    /// Merges another shard of the same arm; refuses overlapping replications.
+    /// Merges another part of the same arm (a shard, a batch, a checkpoint line); refuses
+    /// overlapping replications and tallies made for another run's size or year. A refused merge
+    /// leaves `self` unchanged.
     pub fn merge(&mut self, other: ArmTally) -> Result<(), MergeError> {
+        if (self.cycle_tail.capacity(), self.cycles_per_year) != (other.cycle_tail.capacity(), other.cycles_per_year)
+        {
+            return Err(MergeError::Layout(
+                self.cycle_tail.capacity(),
+                other.cycle_tail.capacity(),
+                self.cycles_per_year,
+                other.cycles_per_year,
+            ));
+        }
+        let follows = match (self.replications.last(), other.replications.first()) {
+            (Some(last), Some(first)) => first.replication > last.replication,
+            _ => true,
+        };
+        if follows {
+            // the usual case (a batch, the next shard): appending keeps the order
+            self.replications.extend(other.replications);
+            self.merge_pooled(&other.cycle_tail, &other.cycle_sums);
+            return Ok(());
+        }
         let mut merged = Vec::with_capacity(self.replications.len() + other.replications.len());
         let mut a = std::mem::take(&mut self.replications).into_iter().peekable();
         let mut b = other.replications.into_iter().peekable();
@@ -238,7 +459,40 @@ impl ArmTally {
             merged.push(if take_a { a.next() } else { b.next() }.expect("peeked"));
         }
         self.replications = merged;
+        self.merge_pooled(&other.cycle_tail, &other.cycle_sums);
         Ok(())
+    }
+
+    fn merge_pooled(&mut self, tail: &CycleLossTail, sums: &[CycleSums]) {
+        self.cycle_tail.merge(tail);
+        if self.cycle_sums.len() < sums.len() {
+            self.cycle_sums.resize_with(sums.len(), CycleSums::default);
+        }
+        for (mine, theirs) in self.cycle_sums.iter_mut().zip(sums) {
+            mine.merge(theirs);
+        }
+    }
+
+    /// Merges `part` (replications `range`, disjoint from those held) and returns what a file
+    /// needs to rebuild this tally from its parts: the part's replications and cycle sums, and
+    /// of its per-cycle loss rates only those still in the tail after the merge (a rate not kept
+    /// now can never be kept later, as the tail's smallest value only rises).
+    pub fn merge_part(&mut self, part: ArmTally, range: std::ops::Range<u32>) -> Result<ArmTally, MergeError> {
+        let mut record = part.empty_like();
+        record.replications = part
+            .replications
+            .iter()
+            .map(|r| ReplicationTally {
+                cycles: Vec::new(),
+                ..r.clone()
+            })
+            .collect();
+        record.cycle_sums = part.cycle_sums.clone();
+        self.merge(part)?;
+        for e in self.cycle_tail.from_replications(range) {
+            record.cycle_tail.push(e);
+        }
+        Ok(record)
     }
 
     /// Number of replications held.
@@ -250,6 +504,11 @@ impl ArmTally {
     pub fn is_empty(&self) -> bool {
         self.replications.is_empty()
     }
+
+    /// Counted cycles that lent, over all replications: how many per-cycle loss rates there are.
+    pub fn lent_cycles(&self) -> usize {
+        self.replications.iter().map(|r| r.lent_cycles as usize).sum()
+    }
 }
 
 #[cfg(test)]
@@ -260,7 +519,37 @@ mod tests {
         let mut t = ReplicationTally::new(r, 3, 2);
         t.group_cycles = u64::from(r) + 1;
         t.loss = 0.1 * f64::from(r);
+        for c in 0..4 {
+            t.cycles.push(CycleRecord {
+                served: 10 + r,
+                groups: 3,
+                groups_repaid: (r + c) % 4,
+                loss: 0.1 * f64::from((r * 7 + c * 3) % 11),
+                disbursed: if c == 3 && r % 3 == 0 { 0.0 } else { 10.0 },
+                ..Default::default()
+            });
+        }
         t
+    }
+
+    #[test]
+    fn the_digest_keeps_what_the_outputs_need_of_the_cycles() {
+        let mut one = ArmTally::new(2, 5);
+        let mut kept = ArmTally::new(2, 5);
+        (0..10).for_each(|r| {
+            one.push(tally(r));
+            kept.push_keeping_cycles(tally(r));
+        });
+        let t = &kept.replications[3];
+        assert!(one.replications.iter().all(|r| r.cycles.is_empty()));
+        assert_eq!(t.lent_cycles, 3);
+        let worst = t.cycles[..3].iter().map(|c| c.loss / c.disbursed).fold(0.0, f64::max);
+        assert_eq!(t.worst_cycle_loss, Some(worst));
+        assert_eq!(t.years.len(), 2);
+        assert_eq!(t.years[1].loss, t.cycles[2].loss + t.cycles[3].loss);
+        assert_eq!(one.lent_cycles(), 36);
+        assert_eq!(one.cycle_tail.len(), 5);
+        assert_eq!(one.cycle_sums[0].served, (10..20).sum::<u64>());
     }
 
     #[test]
@@ -278,6 +567,19 @@ mod tests {
         }
         even.merge(odd).unwrap();
         assert_eq!(even, one);
+        // a tail that keeps fewer values than the run has still merges exactly
+        let mut one = ArmTally::new(2, 7);
+        (0..10).for_each(|r| one.push(tally(r)));
+        let mut first = ArmTally::new(2, 7);
+        (0..4).for_each(|r| first.push(tally(r)));
+        let mut rest = ArmTally::new(2, 7);
+        (4..10).for_each(|r| rest.push(tally(r)));
+        first.merge(rest).unwrap();
+        assert_eq!(first, one);
+        assert_eq!(
+            ArmTally::new(1, 7).merge(ArmTally::new(2, 7)),
+            Err(MergeError::Layout(7, 7, 1, 2))
+        );
     }
 
     #[test]

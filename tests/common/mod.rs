@@ -13,7 +13,12 @@ pub fn scenario(text: &str) -> Scenario {
 
 /// Simulates on every core.
 pub fn simulate(s: &Scenario) -> RunResults {
-    run::simulate(s, RunOptions::default(), &mut |_| {}).expect("simulation runs")
+    // the law tests read the per-cycle records, which a run drops unless asked to keep them
+    let options = RunOptions {
+        keep_cycle_records: true,
+        ..Default::default()
+    };
+    run::simulate(s, options, &mut |_| {}).expect("simulation runs")
 }
 
 /// Summary of arm `arm`.
