@@ -329,7 +329,9 @@ pub fn read(path: &Path) -> Result<TallyFile, CheckpointError> {
             tallies = batch.arms.iter().map(ArmTally::empty_like).collect();
         }
         for (tally, part) in tallies.iter_mut().zip(batch.arms) {
-            tally.merge(part).map_err(|e| malformed(line, format!("a batch that does not fit: {e}")))?;
+            tally
+                .merge(part)
+                .map_err(|e| malformed(line, format!("a batch that does not fit: {e}")))?;
         }
         done_until = batch.end;
         valid_bytes += n as u64;

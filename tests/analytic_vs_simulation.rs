@@ -18,7 +18,8 @@ fn cycle_hit_shares(s: &Scenario) -> Vec<f64> {
             ..Default::default()
         },
         &mut |_| {},
-    ).unwrap();
+    )
+    .unwrap();
     results.arms[0]
         .replications
         .iter()

@@ -728,8 +728,15 @@ fn invariants_hold_on_random_valid_scenarios() {
         }
         let s = Scenario::from_toml_str(&text, "generated.toml")
             .map_err(|e| TestCaseError::fail(format!("the generator wrote an invalid scenario: {e}\n{text}")))?;
-        let results = loancycle::run::simulate(&s, loancycle::run::RunOptions { threads: Some(1), keep_cycle_records: true }, &mut |_| {})
-            .map_err(|e| TestCaseError::fail(e.to_string()))?;
+        let results = loancycle::run::simulate(
+            &s,
+            loancycle::run::RunOptions {
+                threads: Some(1),
+                keep_cycle_records: true,
+            },
+            &mut |_| {},
+        )
+        .map_err(|e| TestCaseError::fail(e.to_string()))?;
         for (arm, tally) in results.arms.iter().enumerate() {
             check(tally.replications.len() == s.replications() as usize, || {
                 "replication count".into()

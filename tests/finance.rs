@@ -14,7 +14,15 @@ fn scenario(text: &str) -> Scenario {
 
 fn run(text: &str) -> RunReport {
     let s = scenario(text);
-    let results = run::simulate(&s, RunOptions { threads: Some(2), ..Default::default() }, &mut |_| {}).expect("runs");
+    let results = run::simulate(
+        &s,
+        RunOptions {
+            threads: Some(2),
+            ..Default::default()
+        },
+        &mut |_| {},
+    )
+    .expect("runs");
     report::build(&s, text, "inline.toml", &results)
 }
 

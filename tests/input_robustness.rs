@@ -337,7 +337,15 @@ fn simulate_without_panic(name: &str, bytes: &[u8], scenario: Scenario) {
     let scenario = Scenario::from_toml_str_with(&text, ORIGIN, &fewer)
         .unwrap_or_else(|e| panic!("{name}: refused with fewer replications: {e}"));
     catch_unwind(AssertUnwindSafe(|| {
-        let results = simulate(&scenario, RunOptions { threads: Some(1), ..Default::default() }, &mut |_| {}).expect("simulates");
+        let results = simulate(
+            &scenario,
+            RunOptions {
+                threads: Some(1),
+                ..Default::default()
+            },
+            &mut |_| {},
+        )
+        .expect("simulates");
         for (tally, arm) in results.arms.iter().zip(scenario.arms()) {
             summarize_arm(tally, arm.policy().group_size());
         }

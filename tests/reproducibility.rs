@@ -62,8 +62,24 @@ const SCENARIO: &str = r#"
 #[test]
 fn results_are_identical_for_one_and_two_threads() {
     let s = scenario(SCENARIO);
-    let one = run::simulate(&s, RunOptions { threads: Some(1), ..Default::default() }, &mut |_| {}).unwrap();
-    let two = run::simulate(&s, RunOptions { threads: Some(2), ..Default::default() }, &mut |_| {}).unwrap();
+    let one = run::simulate(
+        &s,
+        RunOptions {
+            threads: Some(1),
+            ..Default::default()
+        },
+        &mut |_| {},
+    )
+    .unwrap();
+    let two = run::simulate(
+        &s,
+        RunOptions {
+            threads: Some(2),
+            ..Default::default()
+        },
+        &mut |_| {},
+    )
+    .unwrap();
     assert_eq!(one.arms, two.arms);
     // and the run did something: loans, losses and exclusions happened
     let t = &one.arms[2].replications[0];
@@ -82,7 +98,12 @@ fn dropping_the_cycle_records_changes_no_figure() {
     let kept = run::simulate(&s, options(true), &mut |_| {}).unwrap();
     let dropped = run::simulate(&s, options(false), &mut |_| {}).unwrap();
     assert!(kept.arms[0].replications[0].cycles.len() == s.cycles() as usize);
-    assert!(dropped.arms.iter().all(|a| a.replications.iter().all(|r| r.cycles.is_empty())));
+    assert!(
+        dropped
+            .arms
+            .iter()
+            .all(|a| a.replications.iter().all(|r| r.cycles.is_empty()))
+    );
     for (a, arm) in s.arms().iter().enumerate() {
         let k = arm.policy().group_size();
         let json = |t| serde_json::to_string(&loancycle::stats::summary::summarize_arm(t, k)).unwrap();
@@ -106,8 +127,24 @@ fn a_different_seed_gives_different_results() {
         },
     )
     .unwrap();
-    let a = run::simulate(&s, RunOptions { threads: Some(2), ..Default::default() }, &mut |_| {}).unwrap();
-    let b = run::simulate(&other, RunOptions { threads: Some(2), ..Default::default() }, &mut |_| {}).unwrap();
+    let a = run::simulate(
+        &s,
+        RunOptions {
+            threads: Some(2),
+            ..Default::default()
+        },
+        &mut |_| {},
+    )
+    .unwrap();
+    let b = run::simulate(
+        &other,
+        RunOptions {
+            threads: Some(2),
+            ..Default::default()
+        },
+        &mut |_| {},
+    )
+    .unwrap();
     assert_ne!(a.arms, b.arms);
 }
 
@@ -300,8 +337,24 @@ fn behaviour_and_growth_are_reproducible_and_pinned() {
         liability = ["joint", "individual"]
         "#,
     );
-    let one = run::simulate(&s, RunOptions { threads: Some(1), ..Default::default() }, &mut |_| {}).unwrap();
-    let two = run::simulate(&s, RunOptions { threads: Some(2), ..Default::default() }, &mut |_| {}).unwrap();
+    let one = run::simulate(
+        &s,
+        RunOptions {
+            threads: Some(1),
+            ..Default::default()
+        },
+        &mut |_| {},
+    )
+    .unwrap();
+    let two = run::simulate(
+        &s,
+        RunOptions {
+            threads: Some(2),
+            ..Default::default()
+        },
+        &mut |_| {},
+    )
+    .unwrap();
     assert_eq!(one.arms, two.arms);
     let t = loancycle::engine::simulate_replication(&s, 0, 1);
     let u = loancycle::engine::simulate_replication(&s, 3, 4);
@@ -353,7 +406,10 @@ fn the_kept_tail_gives_the_figures_of_all_values() {
     let results = run::simulate(&s, options, &mut |_| {}).unwrap();
     for (a, arm) in s.arms().iter().enumerate() {
         let kept = &results.arms[a];
-        assert!((kept.cycle_tail.len() as u64) < kept.lent_cycles() as u64, "the tail is pruned");
+        assert!(
+            (kept.cycle_tail.len() as u64) < kept.lent_cycles() as u64,
+            "the tail is pruned"
+        );
         let mut everything = loancycle::stats::ArmTally::new(kept.cycles_per_year, u64::MAX);
         kept.replications.iter().cloned().for_each(|r| everything.push(r));
         assert_eq!(everything.cycle_tail.len(), everything.lent_cycles());

@@ -265,5 +265,8 @@ fn shards_merge_exactly_when_the_loss_tail_keeps_only_the_top() {
     let header: Vec<&str> = summary.lines().next().unwrap().split(',').collect();
     let column = header.iter().position(|h| *h == "loss_cycle_p99").unwrap();
     let row: Vec<&str> = summary.lines().nth(1).unwrap().split(',').collect();
-    assert!(!row[column].is_empty(), "the per-cycle 99% quantile is read from the tail");
+    assert!(
+        !row[column].is_empty(),
+        "the per-cycle 99% quantile is read from the tail"
+    );
 }

@@ -142,7 +142,8 @@ pub fn estimate_part(scenario: &Scenario, threads: usize, replications_held: u32
     let tasks = replications * arms;
     let workers = (threads.max(1) as u64).min(tasks.max(1));
     let batch = u64::from(crate::run::batch_replications(replications_held, workers as usize)).min(replications);
-    let tail = crate::stats::cycle_tail::tail_capacity(scenario.replications, scenario.cycles).min(replications * cycles);
+    let tail =
+        crate::stats::cycle_tail::tail_capacity(scenario.replications, scenario.cycles).min(replications * cycles);
     let cycle_sums = cycles * (std::mem::size_of::<CycleSums>() as u64 + CYCLE_SUMS_HEAP_BYTES);
     MemoryEstimate {
         workers,

@@ -142,24 +142,33 @@ pub fn write_all(
     stop: &dyn Fn() -> bool,
 ) -> Result<Vec<PathBuf>, OutputError> {
     prepare_destination(dir, force)?;
-    // Render everything first so a rendering problem cannot leave a partial set of files.
+    // Render everything first so a rendering problem cannot leave a partial set of files; the
+    // long per-replication table is streamed into its temporary file instead of held in memory.
     let mut files = vec![
-        ("summary.csv", tables::summary_csv(report)),
-        ("timeseries.csv", tables::timeseries_csv(report)),
-        ("differences.csv", tables::differences_csv(report)),
-        ("replications.csv", tables::replications_csv(report)),
+        ("summary.csv", Some(tables::summary_csv(report))),
+        ("timeseries.csv", Some(tables::timeseries_csv(report))),
+        ("differences.csv", Some(tables::differences_csv(report))),
+        ("replications.csv", None),
     ];
     let group_size = tables::group_size_csv(report);
     let with_group_size = group_size.is_some();
     if let Some(bytes) = group_size {
-        files.push(("group_size.csv", bytes));
+        files.push(("group_size.csv", Some(bytes)));
     }
-    files.push(("summary.json", tables::summary_json(report)));
+    files.push(("summary.json", Some(tables::summary_json(report))));
     // All temporary files first; only when every one is complete are they renamed into place.
     let mut staged: Vec<(PathBuf, &str)> = Vec::new();
     for (name, bytes) in &files {
         let tmp = dir.join(format!(".{name}.partial-{}", std::process::id()));
-        if let Err(e) = std::fs::write(&tmp, bytes) {
+        let written = match bytes {
+            Some(bytes) => std::fs::write(&tmp, bytes),
+            None => std::fs::File::create(&tmp).and_then(|f| {
+                let mut out = std::io::BufWriter::new(f);
+                tables::write_replications_csv(&mut out, report)?;
+                out.into_inner().map(drop).map_err(|e| e.into_error())
+            }),
+        };
+        if let Err(e) = written {
             let _ = std::fs::remove_file(&tmp);
             for (p, _) in &staged {
                 let _ = std::fs::remove_file(p);

@@ -66,21 +66,41 @@ pub fn matching_name(m: Matching) -> &'static str {
 /// CSV bytes of serialised rows; the header comes from the row type's field names. Without rows
 /// the header is still written, taken from a default row.
 fn csv_bytes<R: Serialize + Default>(rows: impl IntoIterator<Item = R>) -> Vec<u8> {
+    let mut bytes = Vec::new();
     // Writing to memory cannot fail except on a broken invariant (a row type csv cannot flatten),
     // which the tests catch.
-    let mut w = csv::Writer::from_writer(Vec::new());
+    write_csv(&mut bytes, rows).expect("in-memory csv");
+    bytes
+}
+
+/// Writes serialised rows as CSV to `out` as they come, so a long table is never held whole.
+fn write_csv<R: Serialize + Default>(
+    out: impl std::io::Write,
+    rows: impl IntoIterator<Item = R>,
+) -> std::io::Result<()> {
+    let mut w = csv::Writer::from_writer(out);
     let mut any = false;
     for row in rows {
-        w.serialize(row).expect("in-memory csv");
+        w.serialize(row).map_err(csv_error)?;
         any = true;
     }
-    if any {
-        return w.into_inner().expect("in-memory csv");
+    if !any {
+        // the header alone, taken from a default row whose values are cut off
+        let mut header = csv::Writer::from_writer(Vec::new());
+        header.serialize(R::default()).map_err(csv_error)?;
+        let bytes = header.into_inner().map_err(|e| csv_error(e.into_error().into()))?;
+        let end = bytes.iter().position(|&b| b == b'\n').map_or(bytes.len(), |i| i + 1);
+        let mut inner = w.into_inner().map_err(|e| e.into_error())?;
+        return inner.write_all(&bytes[..end]);
     }
-    w.serialize(R::default()).expect("in-memory csv");
-    let bytes = w.into_inner().expect("in-memory csv");
-    let header_end = bytes.iter().position(|&b| b == b'\n').map_or(bytes.len(), |i| i + 1);
-    bytes[..header_end].to_vec()
+    w.flush()
+}
+
+fn csv_error(e: csv::Error) -> std::io::Error {
+    match e.into_kind() {
+        csv::ErrorKind::Io(io) => io,
+        other => std::io::Error::other(format!("{other:?}")),
+    }
 }
 
 /// One row of summary.csv: the field names are the column names, in column order.
@@ -394,46 +414,57 @@ struct ReplicationRow<'a> {
 
 /// replications.csv: one row per arm and replication, in arm order then replication order.
 pub fn replications_csv(report: &RunReport) -> Vec<u8> {
-    csv_bytes(report.arms.iter().flat_map(|a| {
-        a.replications.iter().map(move |r| ReplicationRow {
-            arm: a.arm.label(),
-            replication: r.replication,
-            group_repayment_rate: Cell(r.group_repayment_rate()),
-            groups_repaid: r.groups_repaid,
-            group_cycles: r.group_cycles,
-            loss_rate: Cell(r.loss_rate()),
-            loss: Cell(Some(r.loss)),
-            disbursed: Cell(Some(r.disbursed)),
-            net_yield: Cell(r.net_yield()),
-            collected: Cell(Some(r.collected)),
-            recovered: Cell(Some(r.recovered)),
-            served_share: Cell(r.served_share()),
-            excluded_share: Cell(r.excluded_share()),
-            served_slot_cycles: r.served_slot_cycles,
-            excluded_slot_cycles: r.excluded_slot_cycles,
-            slot_cycles: r.slot_cycles,
-            member_default_rate: Cell(r.member_default_rate()),
-            member_defaults: r.member_defaults,
-            member_loans: r.member_loans,
-            worst_cycle_loss: Cell(r.worst_cycle_loss),
-            exclusion_events: r.exclusion_events,
-            exclusion_event_rate: Cell(r.exclusion_event_rate()),
-            removals: r.removals,
-            removal_rate: Cell(r.removal_rate()),
-            entrants: r.entrants,
-            entrant_rate: Cell(r.entrant_rate()),
-            clients_reached: r.clients_reached,
-            removed_slot_cycles: r.removed_slot_cycles,
-            removed_share: Cell(r.removed_share()),
-            strategic_default_rate: Cell(r.strategic_default_rate()),
-            strategic_defaults: r.strategic_defaults,
-            able_members: r.able_members,
-            mean_principal: Cell(r.mean_principal()),
-            fees: Cell(Some(r.fees)),
-            cost_of_funds: Cell(Some(r.cost_of_funds)),
-            operating_cost: Cell(Some(r.operating_cost)),
-        })
-    }))
+    let mut bytes = Vec::new();
+    write_replications_csv(&mut bytes, report).expect("in-memory csv");
+    bytes
+}
+
+/// Writes replications.csv to `out` row by row (it has a row per replication and arm, so it is
+/// the one table that can be large).
+pub fn write_replications_csv(out: impl std::io::Write, report: &RunReport) -> std::io::Result<()> {
+    write_csv(
+        out,
+        report.arms.iter().flat_map(|a| {
+            a.replications.iter().map(move |r| ReplicationRow {
+                arm: a.arm.label(),
+                replication: r.replication,
+                group_repayment_rate: Cell(r.group_repayment_rate()),
+                groups_repaid: r.groups_repaid,
+                group_cycles: r.group_cycles,
+                loss_rate: Cell(r.loss_rate()),
+                loss: Cell(Some(r.loss)),
+                disbursed: Cell(Some(r.disbursed)),
+                net_yield: Cell(r.net_yield()),
+                collected: Cell(Some(r.collected)),
+                recovered: Cell(Some(r.recovered)),
+                served_share: Cell(r.served_share()),
+                excluded_share: Cell(r.excluded_share()),
+                served_slot_cycles: r.served_slot_cycles,
+                excluded_slot_cycles: r.excluded_slot_cycles,
+                slot_cycles: r.slot_cycles,
+                member_default_rate: Cell(r.member_default_rate()),
+                member_defaults: r.member_defaults,
+                member_loans: r.member_loans,
+                worst_cycle_loss: Cell(r.worst_cycle_loss),
+                exclusion_events: r.exclusion_events,
+                exclusion_event_rate: Cell(r.exclusion_event_rate()),
+                removals: r.removals,
+                removal_rate: Cell(r.removal_rate()),
+                entrants: r.entrants,
+                entrant_rate: Cell(r.entrant_rate()),
+                clients_reached: r.clients_reached,
+                removed_slot_cycles: r.removed_slot_cycles,
+                removed_share: Cell(r.removed_share()),
+                strategic_default_rate: Cell(r.strategic_default_rate()),
+                strategic_defaults: r.strategic_defaults,
+                able_members: r.able_members,
+                mean_principal: Cell(r.mean_principal()),
+                fees: Cell(Some(r.fees)),
+                cost_of_funds: Cell(Some(r.cost_of_funds)),
+                operating_cost: Cell(Some(r.operating_cost)),
+            })
+        }),
+    )
 }
 
 /// One row of timeseries.csv.

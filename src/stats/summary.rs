@@ -1,8 +1,8 @@
 //! Per-arm figures computed from an arm's replications: the rows of summary.csv and the time series.
 
 use crate::scenario::Scenario;
-use crate::stats::{cycle_tail, ArmTally, CycleSums};
 use crate::stats::estimate::{self, RatioEstimate};
+use crate::stats::{ArmTally, CycleSums, cycle_tail};
 use serde::Serialize;
 
 /// Every figure reported for one arm. `None` is an empty cell (zero denominator, too few values).

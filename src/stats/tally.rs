@@ -419,8 +419,7 @@ impl ArmTally {
     /// overlapping replications and tallies made for another run's size or year. A refused merge
     /// leaves `self` unchanged.
     pub fn merge(&mut self, other: ArmTally) -> Result<(), MergeError> {
-        if (self.cycle_tail.capacity(), self.cycles_per_year) != (other.cycle_tail.capacity(), other.cycles_per_year)
-        {
+        if (self.cycle_tail.capacity(), self.cycles_per_year) != (other.cycle_tail.capacity(), other.cycles_per_year) {
             return Err(MergeError::Layout(
                 self.cycle_tail.capacity(),
                 other.cycle_tail.capacity(),
