@@ -106,10 +106,10 @@ impl CycleLossTail {
     pub fn push(&mut self, entry: TailEntry) {
         if (self.kept.len() as u64) < self.capacity {
             self.kept.push(Reverse(entry));
-        } else if let Some(mut smallest) = self.kept.peek_mut() {
-            if entry > smallest.0 {
-                *smallest = Reverse(entry);
-            }
+        } else if let Some(mut smallest) = self.kept.peek_mut()
+            && entry > smallest.0
+        {
+            *smallest = Reverse(entry);
         }
     }
 

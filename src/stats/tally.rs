@@ -524,7 +524,7 @@ mod tests {
                 groups: 3,
                 groups_repaid: (r + c) % 4,
                 loss: 0.1 * f64::from((r * 7 + c * 3) % 11),
-                disbursed: if c == 3 && r % 3 == 0 { 0.0 } else { 10.0 },
+                disbursed: if c == 3 && r.is_multiple_of(3) { 0.0 } else { 10.0 },
                 ..Default::default()
             });
         }
