@@ -8,7 +8,6 @@
 use crate::engine;
 use crate::scenario::Scenario;
 use crate::stats::{ArmTally, ReplicationTally};
-use rayon::prelude::*;
 
 /// Options of a simulation run.
 #[derive(Debug, Clone, Copy, Default)]
@@ -154,40 +153,93 @@ pub fn simulate_range(
     if done > 0 {
         progress(done);
     }
-    while first < range.end && !stop() {
-        let last = first.saturating_add(batch).min(range.end);
-        let tasks: Vec<(u32, usize)> = (first..last).flat_map(|r| (0..arms).map(move |a| (r, a))).collect();
-        let results: Vec<ReplicationTally> = pool.install(|| {
-            tasks
-                .par_iter()
-                .map(|&(r, a)| engine::simulate_replication(scenario, a, r))
-                .collect()
-        });
-        let mut parts: Vec<ArmTally> = tallies.iter().map(ArmTally::empty_like).collect();
-        for (&(_, a), tally) in tasks.iter().zip(results) {
-            if options.keep_cycle_records {
-                parts[a].push_keeping_cycles(tally);
-            } else {
-                parts[a].push(tally);
+    // Tasks are (replication, arm) pairs in replication-major order, spawned ahead of the batch
+    // being waited for, so that workers never idle at a batch boundary; results are committed in
+    // batch order as each batch completes. A stop lets the batch in hand finish and spawns nothing
+    // after it.
+    let start = first;
+    let total = (range.end - start) as usize * arms;
+    let batch_tasks = batch as usize * arms;
+    let window = 2 * batch_tasks + threads;
+    let task = |i: usize| (start + (i / arms) as u32, i % arms);
+    let (sender, receiver) = std::sync::mpsc::channel::<(usize, ReplicationTally)>();
+    let mut failure: Option<RunError> = None;
+    pool.in_place_scope_fifo(|scope| {
+        let mut spawned = 0usize;
+        let mut limit = total;
+        let mut pending: std::collections::BTreeMap<usize, ReplicationTally> = std::collections::BTreeMap::new();
+        let mut committed = 0usize;
+        loop {
+            if limit == total && stop() {
+                // finish the batch in hand (the one the last spawned task belongs to), nothing after
+                limit = if spawned == committed { committed } else { spawned.div_ceil(batch_tasks) * batch_tasks }
+                    .min(total);
+            }
+            while spawned < limit && spawned < committed + window {
+                let sender = sender.clone();
+                let (r, a) = task(spawned);
+                let i = spawned;
+                scope.spawn_fifo(move |_| {
+                    // the receiver outlives the scope, so the send cannot fail
+                    let _ = sender.send((i, engine::simulate_replication(scenario, a, r)));
+                });
+                spawned += 1;
+            }
+            if committed >= limit {
+                break;
+            }
+            let batch_end = (committed + batch_tasks).min(total);
+            if (committed..batch_end).all(|i| pending.contains_key(&i)) {
+                let last = task(batch_end - 1).0 + 1;
+                let mut parts: Vec<ArmTally> = tallies.iter().map(ArmTally::empty_like).collect();
+                for i in committed..batch_end {
+                    let tally = pending.remove(&i).expect("checked above");
+                    if options.keep_cycle_records {
+                        parts[i % arms].push_keeping_cycles(tally);
+                    } else {
+                        parts[i % arms].push(tally);
+                    }
+                }
+                let mut added = Vec::with_capacity(arms);
+                for (tally, part) in tallies.iter_mut().zip(parts) {
+                    match tally.merge_part(part, first..last) {
+                        Ok(record) => added.push(record),
+                        Err(e) => {
+                            failure = Some(RunError::Checkpoint(format!("cannot continue the run's tallies: {e}")));
+                            break;
+                        }
+                    }
+                }
+                if failure.is_none() {
+                    let finished = Batch {
+                        first,
+                        end: last,
+                        arms: added,
+                    };
+                    if let Err(e) = on_batch(&finished) {
+                        failure = Some(RunError::Checkpoint(e));
+                    }
+                }
+                if failure.is_some() {
+                    // spawn nothing more; the tasks in flight finish and are dropped
+                    break;
+                }
+                done += (batch_end - committed) as u64;
+                progress(done);
+                committed = batch_end;
+                first = last;
+                continue;
+            }
+            match receiver.recv() {
+                Ok((i, tally)) => {
+                    pending.insert(i, tally);
+                }
+                Err(_) => unreachable!("the sender is held here"),
             }
         }
-        let mut added = Vec::with_capacity(arms);
-        for (tally, part) in tallies.iter_mut().zip(parts) {
-            added.push(
-                tally
-                    .merge_part(part, first..last)
-                    .map_err(|e| RunError::Checkpoint(format!("cannot continue the run's tallies: {e}")))?,
-            );
-        }
-        let finished = Batch {
-            first,
-            end: last,
-            arms: added,
-        };
-        on_batch(&finished).map_err(RunError::Checkpoint)?;
-        done += tasks.len() as u64;
-        progress(done);
-        first = last;
+    });
+    if let Some(e) = failure {
+        return Err(e);
     }
     Ok(PartialRun {
         results: RunResults::from_tallies(tallies),
