@@ -10,7 +10,7 @@ use super::book::LoanRecord;
 use super::pool::Pool;
 use super::streams::{self, Purpose, cycle_stream_id, unit_f64};
 use crate::scenario::Liability;
-use crate::stats::CycleRecord;
+use crate::stats::{CycleRecord, ReplicationTally};
 
 /// Slack of the joint repayment test, per member and per unit of amount due: sums of identical
 /// shortfalls and surpluses must not flip the verdict through rounding. It absorbs rounding only.
@@ -30,10 +30,15 @@ pub struct MemberPosition {
 /// The position of a member with capacity `capacity` owing `due`.
 #[inline]
 pub fn member_position(capacity: f64, due: f64) -> MemberPosition {
+    // Plain comparisons instead of f64::max and f64::min: the same values for every input, NaN
+    // included (a NaN difference gives 0, a NaN capacity pays `due`), without the extra
+    // instructions those functions spend on NaN operands.
+    let short = due - capacity;
+    let spare = capacity - due;
     MemberPosition {
-        shortfall: (due - capacity).max(0.0),
-        surplus: (capacity - due).max(0.0),
-        paid_own: capacity.min(due),
+        shortfall: if short > 0.0 { short } else { 0.0 },
+        surplus: if spare > 0.0 { spare } else { 0.0 },
+        paid_own: if capacity < due { capacity } else { due },
     }
 }
 
@@ -244,9 +249,32 @@ impl ArmReplication<'_> {
             let id = cycle_stream_id(Purpose::Temptation, cycle, 0, v as u32);
             self.dense.fill(&self.key, id, size, 2);
         }
+        if !DYNAMIC {
+            // Every slot's capacity in slot order, read below by the groups' members: the income and
+            // multiplier arrays are then read sequentially, not in the shuffled order of the groups.
+            // Unserved slots get a value nobody reads.
+            let range = self.layout.range(v);
+            let size = range.len();
+            if self.capacities.len() < size {
+                self.capacities.resize(size, 0.0);
+            }
+            let first_due = terms.first_due;
+            for ((c, &w), &m) in self.capacities[..size]
+                .iter_mut()
+                .zip(&self.pool.income[range.clone()])
+                .zip(&self.pool.multiplier[range])
+            {
+                // the expression of `capacity` without income growth, so the same value
+                *c = first_due * w * m;
+            }
+        }
         let (mut last_threshold, mut last_survival) = (f64::NAN, 0.0);
         let (first, last) = (self.groups.village_first[v], self.groups.len());
         self.group_repaid.resize(last, false);
+        // The village's tallies accumulate in locals (registers) and are written back once: the
+        // sums of money start from the tally's values and add group after group, so every float
+        // is summed in the same order as when added to the tally directly.
+        let mut sums_of = VillageSums::from_tally(&self.tally, record);
         for (group, repaid) in self.groups.iter_from(first).zip(&mut self.group_repaid[first..]) {
             let k = group.len();
             let (mut group_due, mut group_principal) = if progressive {
@@ -265,9 +293,11 @@ impl ArmReplication<'_> {
                     group_due += due;
                     group_principal += principal;
                 }
-                // Without growth the income path is a constant 0 here, so the inlined branch folds away.
-                let income_growth = if DYNAMIC { terms.income_growth } else { 0.0 };
-                let c = capacity(&self.pool, i, terms.first_due, income_growth, cycle);
+                let c = if DYNAMIC {
+                    capacity(&self.pool, i, terms.first_due, terms.income_growth, cycle)
+                } else {
+                    self.capacities[i - village_start]
+                };
                 let mut position = member_position(c, due);
                 let short = position.shortfall > 0.0;
                 let mut walked = false;
@@ -318,7 +348,7 @@ impl ArmReplication<'_> {
                         let (principal, position) = if DYNAMIC {
                             terms.position(&self.pool, i as usize, cycle)
                         } else {
-                            let c = capacity(&self.pool, i as usize, terms.first_due, 0.0, cycle);
+                            let c = self.capacities[i as usize - village_start];
                             (terms.first_principal, member_position(c, terms.first_due))
                         };
                         if position.shortfall > 0.0 {
@@ -357,7 +387,7 @@ impl ArmReplication<'_> {
             if counted {
                 let unpaid_principal = settlement.unpaid_principal;
                 let loss = (1.0 - recovery) * unpaid_principal;
-                let t = &mut self.tally;
+                let t = &mut sums_of;
                 t.group_cycles += 1;
                 t.member_loans += k as u64;
                 t.member_shortfalls += u64::from(n_short);
@@ -365,23 +395,100 @@ impl ArmReplication<'_> {
                 t.able_members += (k as u32 - n_short) as u64;
                 t.strategic_defaults += u64::from(n_walked);
                 t.shortfall_free_groups += u64::from(n_short == 0);
-                t.count_group_shortfalls(k, n_short as usize);
+                self.tally.count_group_shortfalls(k, n_short as usize);
                 t.due += group_due;
                 t.collected += settlement.collected;
                 t.disbursed += group_principal;
                 t.unpaid_principal += unpaid_principal;
                 t.loss += loss;
                 t.recovered += recovery * unpaid_principal;
-                record.disbursed += group_principal;
-                record.loss += loss;
-                record.shortfalls += n_short;
-                if settlement.repaid {
-                    t.groups_repaid += 1;
-                    record.groups_repaid += 1;
-                }
+                t.record_disbursed += group_principal;
+                t.record_loss += loss;
+                t.record_shortfalls += n_short;
+                t.groups_repaid += u64::from(settlement.repaid);
+                t.record_groups_repaid += u32::from(settlement.repaid);
                 t.groups_rescued += u64::from(settlement.rescued);
             }
         }
+        if counted {
+            sums_of.write_back(&mut self.tally, record);
+        }
+    }
+}
+
+/// A village's share of the tallies, accumulated in locals during its settlement.
+#[derive(Clone, Copy)]
+struct VillageSums {
+    group_cycles: u64,
+    member_loans: u64,
+    member_shortfalls: u64,
+    member_defaults: u64,
+    able_members: u64,
+    strategic_defaults: u64,
+    shortfall_free_groups: u64,
+    groups_repaid: u64,
+    groups_rescued: u64,
+    due: f64,
+    collected: f64,
+    disbursed: f64,
+    unpaid_principal: f64,
+    loss: f64,
+    recovered: f64,
+    record_disbursed: f64,
+    record_loss: f64,
+    record_shortfalls: u32,
+    record_groups_repaid: u32,
+}
+
+impl VillageSums {
+    /// Counts start at 0 and are added on write-back; sums of money start at the running totals so
+    /// that each addition is the one the tally would have made.
+    #[inline(always)]
+    fn from_tally(t: &ReplicationTally, record: &CycleRecord) -> Self {
+        VillageSums {
+            group_cycles: 0,
+            member_loans: 0,
+            member_shortfalls: 0,
+            member_defaults: 0,
+            able_members: 0,
+            strategic_defaults: 0,
+            shortfall_free_groups: 0,
+            groups_repaid: 0,
+            groups_rescued: 0,
+            due: t.due,
+            collected: t.collected,
+            disbursed: t.disbursed,
+            unpaid_principal: t.unpaid_principal,
+            loss: t.loss,
+            recovered: t.recovered,
+            record_disbursed: record.disbursed,
+            record_loss: record.loss,
+            record_shortfalls: 0,
+            record_groups_repaid: 0,
+        }
+    }
+
+    #[inline(always)]
+    fn write_back(self, t: &mut ReplicationTally, record: &mut CycleRecord) {
+        t.group_cycles += self.group_cycles;
+        t.member_loans += self.member_loans;
+        t.member_shortfalls += self.member_shortfalls;
+        t.member_defaults += self.member_defaults;
+        t.able_members += self.able_members;
+        t.strategic_defaults += self.strategic_defaults;
+        t.shortfall_free_groups += self.shortfall_free_groups;
+        t.groups_repaid += self.groups_repaid;
+        t.groups_rescued += self.groups_rescued;
+        t.due = self.due;
+        t.collected = self.collected;
+        t.disbursed = self.disbursed;
+        t.unpaid_principal = self.unpaid_principal;
+        t.loss = self.loss;
+        t.recovered = self.recovered;
+        record.disbursed = self.record_disbursed;
+        record.loss = self.record_loss;
+        record.shortfalls += self.record_shortfalls;
+        record.groups_repaid += self.record_groups_repaid;
     }
 }
 

@@ -121,35 +121,51 @@ pub fn open(key: &[u8; 32], stream_id: u64) -> ChaCha8Rng {
     rng
 }
 
-/// A densely generated run of per-slot blocks of one stream, kept as the generator's bytes (words
-/// are little-endian, as ChaCha defines them), reused across fills to avoid allocation.
+/// A densely generated run of per-slot blocks of one stream, kept as 64-bit words (pairs of the
+/// generator's 32-bit words, the first one low, as ChaCha's little-endian bytes give them), reused
+/// across fills to avoid allocation.
 #[derive(Debug, Default, Clone)]
 pub struct DenseBlocks {
+    /// The generator's bytes, staged before they become words.
     bytes: Vec<u8>,
+    /// Word pairs: 32-bit words `2j` (low half) and `2j + 1` (high half).
+    words: Vec<u64>,
 }
 
 impl DenseBlocks {
-    /// Fills the blocks of `slots` consecutive slot indices (from 0), `width` words each.
+    /// Fills the blocks of `slots` consecutive slot indices (from 0), `width` 32-bit words each.
     pub fn fill(&mut self, key: &[u8; 32], stream_id: u64, slots: usize, width: usize) {
+        // A whole number of word pairs: an odd total generates one word more, never read.
+        let pairs = (slots * width).div_ceil(2);
         // Resizing only grows the buffer; the generator overwrites every byte that is read.
-        self.bytes.resize(slots * width * 4, 0);
+        self.bytes.resize(pairs * 8, 0);
         let mut rng = open(key, stream_id);
-        rng.fill_bytes(&mut self.bytes);
+        rng.fill_bytes(&mut self.bytes[..pairs * 8]);
+        // Converted once here, so that the hot loops read plain words without slicing bytes.
+        if self.words.len() < pairs {
+            self.words.resize(pairs, 0);
+        }
+        for (word, bytes) in self.words[..pairs].iter_mut().zip(self.bytes.chunks_exact(8)) {
+            *word = u64::from_le_bytes(bytes.try_into().expect("8 bytes"));
+        }
     }
 
-    /// Word `word` of the run (block `m` of width `W` starts at word `m * W`).
+    /// 32-bit word `word` of the run (block `m` of width `W` starts at word `m * W`).
     #[inline]
     pub fn word(&self, word: usize) -> u32 {
-        let bytes: [u8; 4] = self.bytes[4 * word..4 * word + 4].try_into().expect("4 bytes");
-        u32::from_le_bytes(bytes)
+        (self.words[word / 2] >> (32 * (word % 2))) as u32
     }
 
     /// The 64-bit value of 2-word block `index` (low word first).
     #[inline]
     pub fn u64_at(&self, index: u32) -> u64 {
-        let i = index as usize * 8;
-        let bytes: [u8; 8] = self.bytes[i..i + 8].try_into().expect("8 bytes");
-        u64::from_le_bytes(bytes)
+        self.words[index as usize]
+    }
+
+    /// The 64-bit values of the first `len` 2-word blocks, for loops that read them in order.
+    #[inline]
+    pub fn pairs(&self, len: usize) -> &[u64] {
+        &self.words[..len]
     }
 }
 
