@@ -56,12 +56,15 @@ impl ArmReplication<'_> {
     /// Step 2: forms the village's groups and counts its shares of the pool.
     pub(super) fn formation(&mut self, v: usize, cycle: u32, counted: bool, record: &mut CycleRecord) {
         let range = self.layout.range(v);
-        self.pool.assigned[range.clone()].fill(false);
         self.groups.village_first[v] = self.groups.len();
-        if self.policy.formation == Formation::Persistent && !self.previous.is_empty() {
+        // `assigned` marks the members of kept groups; without kept groups nobody is marked and
+        // the flags are neither cleared nor read.
+        let kept = self.policy.formation == Formation::Persistent && !self.previous.is_empty();
+        if kept {
+            self.pool.assigned[range.clone()].fill(false);
             self.keep_persistent_groups(v, cycle);
         }
-        let counts = self.form_village(v, cycle);
+        let counts = self.form_village(v, cycle, kept);
         if counted {
             // Served members are exactly the grouped ones.
             let (occupied, excluded) = match counts {
@@ -127,7 +130,7 @@ impl ArmReplication<'_> {
     /// Orders the village's unassigned eligible members and cuts them into groups (of k, or by
     /// [`cut`] when sizes may vary). Returns the village's occupied and excluded slot counts when
     /// its pass over the slots counted them on the way.
-    fn form_village(&mut self, v: usize, cycle: u32) -> Option<(u64, u64)> {
+    fn form_village(&mut self, v: usize, cycle: u32, kept: bool) -> Option<(u64, u64)> {
         let k = self.policy.group_size as usize;
         let (min, max) = (
             self.policy.min_group_size() as usize,
@@ -154,23 +157,21 @@ impl ArmReplication<'_> {
                     // only grows: every entry read below is written first
                     scratch.candidates.resize(size, 0);
                 }
-                let mut len = 0usize;
-                let assigned = &self.pool.assigned[start..end];
-                let occupied = &self.pool.occupied[start..end];
-                let through = &self.pool.excluded_through[start..end];
+                let pass = CandidatePass {
+                    assigned: &self.pool.assigned[start..end],
+                    occupied: &self.pool.occupied[start..end],
+                    through: &self.pool.excluded_through[start..end],
+                    random: if needs_keys { self.dense.pairs(size) } else { &[] },
+                    index_mask,
+                    cycle,
+                };
                 let candidates = &mut scratch.candidates[..size];
-                // The pass over the slots also counts the occupied and excluded ones (branch-free).
-                let (mut n_occupied, mut n_excluded) = (0u64, 0u64);
-                let random: &[u64] = if needs_keys { self.dense.pairs(size) } else { &[] };
-                for m in 0..size {
-                    let (a, o, t) = (assigned[m], occupied[m], through[m]);
-                    let word = if needs_keys { random[m] & !index_mask } else { 0 };
-                    // written unconditionally, kept only when eligible: avoids a hard-to-predict branch
-                    candidates[len] = word | m as u64;
-                    len += usize::from(!a & o & (t < cycle));
-                    n_occupied += u64::from(o);
-                    n_excluded += u64::from(o & (t >= cycle));
-                }
+                let (len, n_occupied, n_excluded) = match (kept, needs_keys) {
+                    (false, true) => pass.run::<false, true>(candidates),
+                    (true, true) => pass.run::<true, true>(candidates),
+                    (false, false) => pass.run::<false, false>(candidates),
+                    (true, false) => pass.run::<true, false>(candidates),
+                };
                 counts = Some((n_occupied, n_excluded));
                 let order: &[u64] = if needs_keys {
                     sort_uniform_keys(
@@ -181,25 +182,21 @@ impl ArmReplication<'_> {
                 } else {
                     &scratch.candidates[..len]
                 };
-                let assigned = &mut self.pool.assigned;
-                let mut take = |c: &u64| {
-                    let i = start + (c & index_mask) as usize;
-                    assigned[i] = true;
-                    i as u32
-                };
+                // the new groups' members need no `assigned` mark: nothing reads it after this pass
+                let take = |c: &u64| (start + (c & index_mask) as usize) as u32;
                 if varying {
                     let (groups, full) = cut(len, k, min, max);
                     self.groups.push_even_groups(groups, order[..full].iter().map(take));
                 } else {
                     let full = len / k * k;
-                    self.groups.push_equal_groups(k, order[..full].iter().map(&mut take));
+                    self.groups.push_equal_groups(k, order[..full].iter().map(take));
                 }
             }
             Matching::Assortative => {
                 scratch.assortative.clear();
                 for m in 0..size {
                     let i = start + m;
-                    if !self.pool.assigned[i] && self.pool.eligible(i, cycle) {
+                    if !(kept && self.pool.assigned[i]) && self.pool.eligible(i, cycle) {
                         let random = if needs_keys { self.dense.u64_at(m as u32) } else { 0 };
                         scratch.assortative.push((self.pool.risk[i], random, i as u32));
                     }
@@ -207,11 +204,7 @@ impl ArmReplication<'_> {
                 scratch
                     .assortative
                     .sort_unstable_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)).then(a.2.cmp(&b.2)));
-                let assigned = &mut self.pool.assigned;
-                let mut take = |&(_, _, i): &(f64, u64, u32)| {
-                    assigned[i as usize] = true;
-                    i
-                };
+                let take = |&(_, _, i): &(f64, u64, u32)| i;
                 let len = scratch.assortative.len();
                 if varying {
                     let (groups, full) = cut(len, k, min, max);
@@ -220,11 +213,47 @@ impl ArmReplication<'_> {
                 } else {
                     let full = len / k * k;
                     self.groups
-                        .push_equal_groups(k, scratch.assortative[..full].iter().map(&mut take));
+                        .push_equal_groups(k, scratch.assortative[..full].iter().map(take));
                 }
             }
         }
         counts
+    }
+}
+
+/// The pass of random formation over one village's slots: the sort keys of the eligible members
+/// not in kept groups, and the occupied and excluded counts.
+struct CandidatePass<'a> {
+    assigned: &'a [bool],
+    occupied: &'a [bool],
+    through: &'a [u32],
+    /// The slots' formation words (empty when groups have one member and need no order).
+    random: &'a [u64],
+    index_mask: u64,
+    cycle: u32,
+}
+
+impl CandidatePass<'_> {
+    /// Writes the candidates' keys to the front of `candidates` (one entry per slot of room) and
+    /// returns (candidates, occupied, excluded). `KEPT`: some members are in kept groups (read
+    /// `assigned`); `KEYS`: the order is random (read the words).
+    #[inline(always)]
+    fn run<const KEPT: bool, const KEYS: bool>(&self, candidates: &mut [u64]) -> (usize, u64, u64) {
+        let size = self.occupied.len();
+        let (assigned, occupied, through) = (&self.assigned[..size], self.occupied, &self.through[..size]);
+        let random = if KEYS { &self.random[..size] } else { &[][..] };
+        let (mut len, mut n_occupied, mut n_excluded) = (0usize, 0u64, 0u64);
+        for m in 0..size {
+            let (o, t) = (occupied[m], through[m]);
+            let free = !(KEPT && assigned[m]);
+            let word = if KEYS { random[m] & !self.index_mask } else { 0 };
+            // written unconditionally, kept only when eligible: avoids a hard-to-predict branch
+            candidates[len] = word | m as u64;
+            len += usize::from(free & o & (t < self.cycle));
+            n_occupied += u64::from(o);
+            n_excluded += u64::from(o & (t >= self.cycle));
+        }
+        (len, n_occupied, n_excluded)
     }
 }
 

@@ -85,8 +85,9 @@ struct ArmReplication<'a> {
     shocks: ShockState,
     /// Dense random blocks of the step at work (formation keys, shock uniforms, dropout).
     dense: DenseBlocks,
-    /// The capacities of the village being settled, by slot within the village.
-    capacities: Vec<f64>,
+    /// The positions of the village being settled, by slot within the village (arms whose amounts
+    /// due and incomes never change).
+    positions: Vec<settlement::MemberPosition>,
     tally: ReplicationTally,
     /// Where each loan of a counted cycle goes, when a loan book is being written.
     book: Option<&'a mut dyn LoanBookSink>,
@@ -123,7 +124,7 @@ impl<'a> ArmReplication<'a> {
             formation_scratch: FormationScratch::default(),
             shocks,
             dense: DenseBlocks::default(),
-            capacities: Vec::new(),
+            positions: Vec::new(),
             tally: ReplicationTally::with_group_sizes(
                 replication,
                 policy.min_group_size(),

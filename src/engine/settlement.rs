@@ -250,22 +250,22 @@ impl ArmReplication<'_> {
             self.dense.fill(&self.key, id, size, 2);
         }
         if !DYNAMIC {
-            // Every slot's capacity in slot order, read below by the groups' members: the income and
-            // multiplier arrays are then read sequentially, not in the shuffled order of the groups.
-            // Unserved slots get a value nobody reads.
+            // Every slot's position in slot order, read below by the groups' members: the income and
+            // multiplier arrays are then read sequentially, not in the shuffled order of the groups,
+            // and the arithmetic runs as one straight loop. Unserved slots get a value nobody reads.
             let range = self.layout.range(v);
             let size = range.len();
-            if self.capacities.len() < size {
-                self.capacities.resize(size, 0.0);
+            if self.positions.len() < size {
+                self.positions.resize(size, member_position(0.0, 0.0));
             }
             let first_due = terms.first_due;
-            for ((c, &w), &m) in self.capacities[..size]
+            for ((position, &w), &m) in self.positions[..size]
                 .iter_mut()
                 .zip(&self.pool.income[range.clone()])
                 .zip(&self.pool.multiplier[range])
             {
                 // the expression of `capacity` without income growth, so the same value
-                *c = first_due * w * m;
+                *position = member_position(first_due * w * m, first_due);
             }
         }
         let (mut last_threshold, mut last_survival) = (f64::NAN, 0.0);
@@ -293,12 +293,14 @@ impl ArmReplication<'_> {
                     group_due += due;
                     group_principal += principal;
                 }
-                let c = if DYNAMIC {
-                    capacity(&self.pool, i, terms.first_due, terms.income_growth, cycle)
+                let mut position = if DYNAMIC {
+                    member_position(
+                        capacity(&self.pool, i, terms.first_due, terms.income_growth, cycle),
+                        due,
+                    )
                 } else {
-                    self.capacities[i - village_start]
+                    self.positions[i - village_start]
                 };
-                let mut position = member_position(c, due);
                 let short = position.shortfall > 0.0;
                 let mut walked = false;
                 if let (false, Some((b, access_value, sanction))) = (short, behaviour) {
@@ -348,8 +350,7 @@ impl ArmReplication<'_> {
                         let (principal, position) = if DYNAMIC {
                             terms.position(&self.pool, i as usize, cycle)
                         } else {
-                            let c = self.capacities[i as usize - village_start];
-                            (terms.first_principal, member_position(c, terms.first_due))
+                            (terms.first_principal, self.positions[i as usize - village_start])
                         };
                         if position.shortfall > 0.0 {
                             unpaid_principal +=

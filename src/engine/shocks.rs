@@ -253,7 +253,13 @@ impl ArmReplication<'_> {
                         }
                     }
                 } else if state.shared_risk {
-                    let conditional = normal::cdf((thresholds[members[0] as usize] - common) / idiosyncratic);
+                    // Every member shares the threshold last cached (one risk multiplier, and every
+                    // member's threshold recomputed when the probability changes): read it from the
+                    // shock state rather than from a member's entry in the large threshold array,
+                    // a cache miss per village.
+                    let shared = state.last_threshold[threshold_row].1;
+                    debug_assert_eq!(shared.to_bits(), thresholds[members[0] as usize].to_bits());
+                    let conditional = normal::cdf((shared - common) / idiosyncratic);
                     for &i in members {
                         if draw(i) < conditional {
                             hit(i);
