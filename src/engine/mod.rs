@@ -87,7 +87,7 @@ struct ArmReplication<'a> {
     dense: DenseBlocks,
     /// The positions of the village being settled, by slot within the village (arms whose amounts
     /// due and incomes never change).
-    positions: Vec<settlement::MemberPosition>,
+    positions: settlement::SlotPositions,
     tally: ReplicationTally,
     /// Where each loan of a counted cycle goes, when a loan book is being written.
     book: Option<&'a mut dyn LoanBookSink>,
@@ -124,7 +124,7 @@ impl<'a> ArmReplication<'a> {
             formation_scratch: FormationScratch::default(),
             shocks,
             dense: DenseBlocks::default(),
-            positions: Vec::new(),
+            positions: settlement::SlotPositions::default(),
             tally: ReplicationTally::with_group_sizes(
                 replication,
                 policy.min_group_size(),

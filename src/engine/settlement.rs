@@ -255,17 +255,25 @@ impl ArmReplication<'_> {
             // and the arithmetic runs as one straight loop. Unserved slots get a value nobody reads.
             let range = self.layout.range(v);
             let size = range.len();
-            if self.positions.len() < size {
-                self.positions.resize(size, member_position(0.0, 0.0));
+            let positions = &mut self.positions;
+            if positions.shortfall.len() < size {
+                positions.shortfall.resize(size, 0.0);
+                positions.surplus.resize(size, 0.0);
+                positions.paid_own.resize(size, 0.0);
             }
             let first_due = terms.first_due;
-            for ((position, &w), &m) in self.positions[..size]
-                .iter_mut()
-                .zip(&self.pool.income[range.clone()])
-                .zip(&self.pool.multiplier[range])
-            {
+            let (income, multiplier) = (&self.pool.income[range.clone()], &self.pool.multiplier[range]);
+            let (shortfall, surplus, paid_own) = (
+                &mut positions.shortfall[..size],
+                &mut positions.surplus[..size],
+                &mut positions.paid_own[..size],
+            );
+            for m in 0..size {
                 // the expression of `capacity` without income growth, so the same value
-                *position = member_position(first_due * w * m, first_due);
+                let position = member_position(first_due * income[m] * multiplier[m], first_due);
+                shortfall[m] = position.shortfall;
+                surplus[m] = position.surplus;
+                paid_own[m] = position.paid_own;
             }
         }
         let (mut last_threshold, mut last_survival) = (f64::NAN, 0.0);
@@ -288,7 +296,11 @@ impl ArmReplication<'_> {
             let (mut n_short, mut n_walked) = (0u32, 0u32);
             for &i in group {
                 let i = i as usize;
-                let (principal, due) = terms.loan(&self.pool, i);
+                let (principal, due) = if DYNAMIC {
+                    terms.loan(&self.pool, i)
+                } else {
+                    (terms.first_principal, terms.first_due)
+                };
                 if progressive {
                     group_due += due;
                     group_principal += principal;
@@ -299,7 +311,7 @@ impl ArmReplication<'_> {
                         due,
                     )
                 } else {
-                    self.positions[i - village_start]
+                    self.positions.at(i - village_start)
                 };
                 let short = position.shortfall > 0.0;
                 let mut walked = false;
@@ -350,7 +362,7 @@ impl ArmReplication<'_> {
                         let (principal, position) = if DYNAMIC {
                             terms.position(&self.pool, i as usize, cycle)
                         } else {
-                            (terms.first_principal, self.positions[i as usize - village_start])
+                            (terms.first_principal, self.positions.at(i as usize - village_start))
                         };
                         if position.shortfall > 0.0 {
                             unpaid_principal +=
@@ -413,6 +425,27 @@ impl ArmReplication<'_> {
         }
         if counted {
             sums_of.write_back(&mut self.tally, record);
+        }
+    }
+}
+
+/// The positions of one village's slots, by slot within the village, as three arrays so that the
+/// loop computing them runs on vectors.
+#[derive(Debug, Default)]
+pub(super) struct SlotPositions {
+    shortfall: Vec<f64>,
+    surplus: Vec<f64>,
+    paid_own: Vec<f64>,
+}
+
+impl SlotPositions {
+    /// The position of slot `m` of the village.
+    #[inline(always)]
+    fn at(&self, m: usize) -> MemberPosition {
+        MemberPosition {
+            shortfall: self.shortfall[m],
+            surplus: self.surplus[m],
+            paid_own: self.paid_own[m],
         }
     }
 }
