@@ -260,8 +260,10 @@ impl ArmReplication<'_> {
                     let shared = state.last_threshold[threshold_row].1;
                     debug_assert_eq!(shared.to_bits(), thresholds[members[0] as usize].to_bits());
                     let conditional = normal::cdf((shared - common) / idiosyncratic);
+                    // the same decision as draw(i) < conditional, on the words
+                    let bound = crate::maths::unit_bound(conditional);
                     for &i in members {
-                        if draw(i) < conditional {
+                        if dense.u64_at(i - start as u32) >> 11 < bound {
                             hit(i);
                         }
                     }
