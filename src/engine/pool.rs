@@ -25,7 +25,9 @@ pub(super) struct Pool {
     pub threshold: Vec<f64>,
     /// Whether the member is in a group this cycle.
     pub assigned: Vec<bool>,
-    /// Capacity multiplier prod (1 - s) this cycle.
+    /// Capacity multiplier prod (1 - s) this cycle of each member of the village at work, by slot
+    /// within the village: only the first village-size entries are used (the shock step sets them
+    /// and the settlement reads them before the next village), so they stay in cache.
     pub multiplier: Vec<f64>,
     /// Whether the member fell short of the amount due this cycle (S > 0).
     pub short: Vec<bool>,

@@ -132,14 +132,14 @@ pub fn loan_unpaid_principal(unpaid: f64, principal: f64, cover: f64, total_unpa
 
 /// Capacity C = w_t D_0 prod(1 - s) of the member at internal index `i` in `cycle`, where D_0 is the
 /// amount due at the starting principal and w_t = w (1 + income_growth)^t, t counting the cycles since
-/// her entry. One expression for the settlement and the loan book, so both judge the same capacity.
+/// her entry, `m` her slot within the village (the multiplier's index). One expression for the settlement and the loan book, so both judge the same capacity.
 #[inline(always)]
-fn capacity(pool: &Pool, i: usize, first_due: f64, income_growth: f64, cycle: u32) -> f64 {
+fn capacity(pool: &Pool, i: usize, m: usize, first_due: f64, income_growth: f64, cycle: u32) -> f64 {
     if income_growth == 0.0 {
-        first_due * pool.income[i] * pool.multiplier[i]
+        first_due * pool.income[i] * pool.multiplier[m]
     } else {
         let t = f64::from(cycle.saturating_sub(pool.entry_cycle[i]));
-        first_due * (pool.income[i] * libm::pow(1.0 + income_growth, t)) * pool.multiplier[i]
+        first_due * (pool.income[i] * libm::pow(1.0 + income_growth, t)) * pool.multiplier[m]
     }
 }
 
@@ -181,12 +181,12 @@ impl Terms {
 
     /// Her position this cycle, walking away included (as the settlement left it in `pool.walked`).
     #[inline(always)]
-    fn position(&self, pool: &Pool, i: usize, cycle: u32) -> (f64, MemberPosition) {
+    fn position(&self, pool: &Pool, i: usize, m: usize, cycle: u32) -> (f64, MemberPosition) {
         let (principal, due) = self.loan(pool, i);
         if pool.walked[i] {
             return (principal, walk_away_position(due));
         }
-        let c = capacity(pool, i, self.first_due, self.income_growth, cycle);
+        let c = capacity(pool, i, m, self.first_due, self.income_growth, cycle);
         (principal, member_position(c, due))
     }
 }
@@ -262,7 +262,7 @@ impl ArmReplication<'_> {
                 positions.paid_own.resize(size, 0.0);
             }
             let first_due = terms.first_due;
-            let (income, multiplier) = (&self.pool.income[range.clone()], &self.pool.multiplier[range]);
+            let (income, multiplier) = (&self.pool.income[range.clone()], &self.pool.multiplier[..size]);
             let (shortfall, surplus, paid_own) = (
                 &mut positions.shortfall[..size],
                 &mut positions.surplus[..size],
@@ -307,7 +307,14 @@ impl ArmReplication<'_> {
                 }
                 let mut position = if DYNAMIC {
                     member_position(
-                        capacity(&self.pool, i, terms.first_due, terms.income_growth, cycle),
+                        capacity(
+                            &self.pool,
+                            i,
+                            i - village_start,
+                            terms.first_due,
+                            terms.income_growth,
+                            cycle,
+                        ),
                         due,
                     )
                 } else {
@@ -360,7 +367,7 @@ impl ArmReplication<'_> {
                     let mut unpaid_principal = 0.0;
                     for &i in group {
                         let (principal, position) = if DYNAMIC {
-                            terms.position(&self.pool, i as usize, cycle)
+                            terms.position(&self.pool, i as usize, i as usize - village_start, cycle)
                         } else {
                             (terms.first_principal, self.positions.at(i as usize - village_start))
                         };
@@ -538,6 +545,7 @@ impl ArmReplication<'_> {
         let lambda = self.policy.peer_cover();
         let joint = self.policy.liability() == Liability::Joint;
         let (pool, layout) = (&self.pool, &self.layout);
+        let village_start = layout.village_start[v];
         for ((number, group), &repaid) in self
             .groups
             .iter_from(self.groups.village_first[v])
@@ -546,7 +554,7 @@ impl ArmReplication<'_> {
         {
             let mut sums = GroupPosition::default();
             for &i in group {
-                let (_, position) = terms.position(pool, i as usize, cycle);
+                let (_, position) = terms.position(pool, i as usize, i as usize - village_start, cycle);
                 sums.shortfall += position.shortfall;
                 sums.surplus += position.surplus;
                 sums.paid_own += position.paid_own;
@@ -556,7 +564,7 @@ impl ArmReplication<'_> {
             // walked away) in proportion to those amounts.
             for &i in group {
                 let i = i as usize;
-                let (_, position) = terms.position(pool, i, cycle);
+                let (_, position) = terms.position(pool, i, i - village_start, cycle);
                 let due = terms.loan(pool, i).1;
                 let paid = match (joint, repaid) {
                     (true, true) => due,

@@ -161,7 +161,7 @@ impl ArmReplication<'_> {
         let (g_start, g_end) = (self.groups.village_first[v], self.groups.len());
         // The whole village in slot order rather than the served members in group order: a
         // sequential fill, and only served members' multipliers are ever read.
-        self.pool.multiplier[self.layout.range(v)].fill(1.0);
+        self.pool.multiplier[..self.layout.range(v).len()].fill(1.0);
         if g_start == g_end {
             return;
         }
@@ -325,7 +325,7 @@ impl ArmReplication<'_> {
         let hits = &self.shocks.hits;
         if let Some(s) = shock.severity.fixed_value() {
             for &i in hits {
-                self.pool.multiplier[i as usize] *= 1.0 - s;
+                self.pool.multiplier[(i - start) as usize] *= 1.0 - s;
             }
             return;
         }
@@ -346,7 +346,7 @@ impl ArmReplication<'_> {
                     .severity
                     .sample(&mut SlotDraws::<4>::seek(&self.key, id, i - start))
             };
-            self.pool.multiplier[i as usize] *= 1.0 - s;
+            self.pool.multiplier[(i - start) as usize] *= 1.0 - s;
         }
     }
 }
