@@ -39,6 +39,25 @@ pub fn unit_f64(x: u64) -> f64 {
     (x >> 11) as f64 * (1.0 / (1u64 << 53) as f64)
 }
 
+/// The integer form of a comparison with a uniform from [`unit_f64`]: `unit_f64(x) < p` exactly when
+/// `x >> 11 < unit_bound(p)`, for every word and every p, NaN included. A loop comparing many draws
+/// with one probability converts the probability once instead of converting every draw.
+#[inline]
+pub fn unit_bound(p: f64) -> u64 {
+    // unit_f64(x) = n 2^-53 exactly, n = x >> 11 an integer below 2^53; n 2^-53 < p iff n < p 2^53
+    // (a scaling by a power of two, exact), iff n < ceil(p 2^53). NaN and p <= 0 admit no draw,
+    // p >= 1 every draw.
+    let scale = (1u64 << 53) as f64;
+    let scaled = (p * scale).ceil();
+    if scaled >= scale {
+        1 << 53
+    } else if scaled > 0.0 {
+        scaled as u64
+    } else {
+        0
+    }
+}
+
 /// ln C(n, i) through ln-gamma (statrs 0.18), about n * 1e-16 absolute.
 fn ln_choose(n: u32, i: u32) -> f64 {
     let (n, i) = (f64::from(n), f64::from(i));
@@ -206,6 +225,51 @@ mod tests {
         assert_eq!(unit_f64(0), 0.0);
         assert_eq!(unit_f64(u64::MAX), 1.0 - f64::EPSILON / 2.0);
         assert_eq!(unit_f64(1 << 63), 0.5);
+    }
+
+    /// The integer bound against the floating-point comparison it replaces, at draws on both sides
+    /// of each probability, at the probability's own value, and at the edges (0, 1, NaN, subnormal).
+    #[test]
+    fn unit_bound_decides_like_the_float_comparison() {
+        let mut words = vec![0u64, 1 << 11, u64::MAX, 1 << 63, (1 << 63) - 1];
+        let mut probabilities = vec![
+            0.0,
+            -0.0,
+            -1.0,
+            1.0,
+            2.0,
+            f64::NAN,
+            f64::INFINITY,
+            f64::NEG_INFINITY,
+            f64::MIN_POSITIVE,
+            5e-324,
+            1e-300,
+            1.0 - f64::EPSILON / 2.0,
+        ];
+        let mut state = 0x9e37_79b9_7f4a_7c15u64;
+        for _ in 0..2000 {
+            // SplitMix64 steps: any well-mixed words serve
+            state = state.wrapping_add(0x9e37_79b9_7f4a_7c15);
+            let mut z = state;
+            z = (z ^ (z >> 30)).wrapping_mul(0xbf58_476d_1ce4_e5b9);
+            z = (z ^ (z >> 27)).wrapping_mul(0x94d0_49bb_1331_11eb);
+            z ^= z >> 31;
+            words.push(z);
+            // a probability exactly on a draw's value, and its neighbours
+            let on = unit_f64(z);
+            probabilities.extend([on, f64::from_bits(on.to_bits() + 1), on * 0.999_999_9, on.sqrt()]);
+        }
+        for &p in &probabilities {
+            let bound = unit_bound(p);
+            for &x in &words {
+                assert_eq!(unit_f64(x) < p, x >> 11 < bound, "x = {x}, p = {p:e}");
+            }
+            // the draws just below and at the bound itself
+            for n in [bound.saturating_sub(1), bound.min((1 << 53) - 1)] {
+                let x = n << 11;
+                assert_eq!(unit_f64(x) < p, x >> 11 < bound, "n = {n}, p = {p:e}");
+            }
+        }
     }
 
     #[test]

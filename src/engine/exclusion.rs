@@ -31,6 +31,7 @@ impl ArmReplication<'_> {
                     match exclusion {
                         Exclusion::Cycles(e) => self.pool.excluded_through[i] = cycle + e,
                         Exclusion::Permanent => {
+                            self.pool.vacancies[v] += 1;
                             self.pool.occupied[i] = false;
                             self.pool.removed[i] = true;
                         }
@@ -60,10 +61,13 @@ impl ArmReplication<'_> {
             size,
             2,
         );
+        let mut departures = 0u32;
         for m in 0..size {
             if self.pool.occupied[start + m] && unit_f64(self.dense.u64_at(m as u32)) < q {
                 self.pool.occupied[start + m] = false;
+                departures += 1;
             }
         }
+        self.pool.vacancies[v] += departures;
     }
 }

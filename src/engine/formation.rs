@@ -56,23 +56,25 @@ impl ArmReplication<'_> {
     /// Step 2: forms the village's groups and counts its shares of the pool.
     pub(super) fn formation(&mut self, v: usize, cycle: u32, counted: bool, record: &mut CycleRecord) {
         let range = self.layout.range(v);
-        self.pool.assigned[range.clone()].fill(false);
         self.groups.village_first[v] = self.groups.len();
-        if self.policy.formation == Formation::Persistent && !self.previous.is_empty() {
+        // `assigned` marks the members of kept groups; without kept groups nobody is marked and
+        // the flags are neither cleared nor read.
+        let kept = self.policy.formation == Formation::Persistent && !self.previous.is_empty();
+        if kept {
+            self.pool.assigned[range.clone()].fill(false);
             self.keep_persistent_groups(v, cycle);
         }
-        self.form_village(v, cycle);
+        let counts = self.form_village(v, cycle, kept);
         if counted {
-            // Branch-free counts: served members are exactly the grouped ones.
-            let mut occupied = 0u64;
-            let mut excluded = 0u64;
-            for (&occ, &through) in self.pool.occupied[range.clone()]
-                .iter()
-                .zip(&self.pool.excluded_through[range.clone()])
-            {
-                occupied += u64::from(occ);
-                excluded += u64::from(occ & (through >= cycle));
-            }
+            // Served members are exactly the grouped ones.
+            let (occupied, excluded) = match counts {
+                Some(counts) => counts,
+                None => occupied_and_excluded(
+                    &self.pool.occupied[range.clone()],
+                    &self.pool.excluded_through[range.clone()],
+                    cycle,
+                ),
+            };
             let first = self.groups.village_first[v];
             let last = self.groups.len();
             let served = self.groups.member_range(first, last).len() as u64;
@@ -126,8 +128,9 @@ impl ArmReplication<'_> {
     }
 
     /// Orders the village's unassigned eligible members and cuts them into groups (of k, or by
-    /// [`cut`] when sizes may vary).
-    fn form_village(&mut self, v: usize, cycle: u32) {
+    /// [`cut`] when sizes may vary). Returns the village's occupied and excluded slot counts when
+    /// its pass over the slots counted them on the way.
+    fn form_village(&mut self, v: usize, cycle: u32, kept: bool) -> Option<(u64, u64)> {
         let k = self.policy.group_size as usize;
         let (min, max) = (
             self.policy.min_group_size() as usize,
@@ -142,6 +145,7 @@ impl ArmReplication<'_> {
             self.dense.fill(&self.key, id, size, 2);
         }
         let scratch = &mut self.formation_scratch;
+        let mut counts = None;
         match self.policy.matching {
             Matching::Random => {
                 // Sort keys pack the slot's random word above its index in the village, so one
@@ -149,56 +153,50 @@ impl ArmReplication<'_> {
                 // Village sizes are below 2^28 (validated), so the index fits in the low bits.
                 let index_bits = usize::BITS - size.leading_zeros();
                 let index_mask = (1u64 << index_bits) - 1;
-                scratch.candidates.clear();
-                scratch.candidates.resize(size, 0);
-                let mut len = 0usize;
-                let assigned = &self.pool.assigned[start..end];
-                let occupied = &self.pool.occupied[start..end];
-                let through = &self.pool.excluded_through[start..end];
-                let candidates = &mut scratch.candidates[..];
-                if needs_keys {
-                    let dense = &self.dense;
-                    for (m, ((&a, &o), &t)) in assigned.iter().zip(occupied).zip(through).enumerate() {
-                        let random = dense.u64_at(m as u32);
-                        // written unconditionally, kept only when eligible: avoids a hard-to-predict branch
-                        candidates[len] = (random & !index_mask) | m as u64;
-                        len += usize::from(!a & o & (t < cycle));
-                    }
-                } else {
-                    for (m, ((&a, &o), &t)) in assigned.iter().zip(occupied).zip(through).enumerate() {
-                        candidates[len] = m as u64;
-                        len += usize::from(!a & o & (t < cycle));
-                    }
+                if scratch.candidates.len() < size {
+                    // only grows: every entry read below is written first
+                    scratch.candidates.resize(size, 0);
                 }
-                scratch.candidates.truncate(len);
-                if needs_keys {
+                let pass = CandidatePass {
+                    assigned: &self.pool.assigned[start..end],
+                    occupied: &self.pool.occupied[start..end],
+                    through: &self.pool.excluded_through[start..end],
+                    random: if needs_keys { self.dense.pairs(size) } else { &[] },
+                    index_mask,
+                    cycle,
+                };
+                let candidates = &mut scratch.candidates[..size];
+                let (len, n_occupied, n_excluded) = match (kept, needs_keys) {
+                    (false, true) => pass.run::<false, true>(candidates),
+                    (true, true) => pass.run::<true, true>(candidates),
+                    (false, false) => pass.run::<false, false>(candidates),
+                    (true, false) => pass.run::<true, false>(candidates),
+                };
+                counts = Some((n_occupied, n_excluded));
+                let order: &[u64] = if needs_keys {
                     sort_uniform_keys(
-                        &mut scratch.candidates,
+                        &scratch.candidates[..len],
                         &mut scratch.sort_scratch,
                         &mut scratch.sort_counts,
-                    );
-                }
-                let assigned = &mut self.pool.assigned;
-                let mut take = |c: &u64| {
-                    let i = start + (c & index_mask) as usize;
-                    assigned[i] = true;
-                    i as u32
+                    )
+                } else {
+                    &scratch.candidates[..len]
                 };
+                // the new groups' members need no `assigned` mark: nothing reads it after this pass
+                let take = |c: &u64| (start + (c & index_mask) as usize) as u32;
                 if varying {
                     let (groups, full) = cut(len, k, min, max);
-                    self.groups
-                        .push_even_groups(groups, scratch.candidates[..full].iter().map(take));
+                    self.groups.push_even_groups(groups, order[..full].iter().map(take));
                 } else {
                     let full = len / k * k;
-                    self.groups
-                        .push_equal_groups(k, scratch.candidates[..full].iter().map(&mut take));
+                    self.groups.push_equal_groups(k, order[..full].iter().map(take));
                 }
             }
             Matching::Assortative => {
                 scratch.assortative.clear();
                 for m in 0..size {
                     let i = start + m;
-                    if !self.pool.assigned[i] && self.pool.eligible(i, cycle) {
+                    if !(kept && self.pool.assigned[i]) && self.pool.eligible(i, cycle) {
                         let random = if needs_keys { self.dense.u64_at(m as u32) } else { 0 };
                         scratch.assortative.push((self.pool.risk[i], random, i as u32));
                     }
@@ -206,11 +204,7 @@ impl ArmReplication<'_> {
                 scratch
                     .assortative
                     .sort_unstable_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)).then(a.2.cmp(&b.2)));
-                let assigned = &mut self.pool.assigned;
-                let mut take = |&(_, _, i): &(f64, u64, u32)| {
-                    assigned[i as usize] = true;
-                    i
-                };
+                let take = |&(_, _, i): &(f64, u64, u32)| i;
                 let len = scratch.assortative.len();
                 if varying {
                     let (groups, full) = cut(len, k, min, max);
@@ -219,48 +213,100 @@ impl ArmReplication<'_> {
                 } else {
                     let full = len / k * k;
                     self.groups
-                        .push_equal_groups(k, scratch.assortative[..full].iter().map(&mut take));
+                        .push_equal_groups(k, scratch.assortative[..full].iter().map(take));
                 }
             }
         }
+        counts
     }
+}
+
+/// The pass of random formation over one village's slots: the sort keys of the eligible members
+/// not in kept groups, and the occupied and excluded counts.
+struct CandidatePass<'a> {
+    assigned: &'a [bool],
+    occupied: &'a [bool],
+    through: &'a [u32],
+    /// The slots' formation words (empty when groups have one member and need no order).
+    random: &'a [u64],
+    index_mask: u64,
+    cycle: u32,
+}
+
+impl CandidatePass<'_> {
+    /// Writes the candidates' keys to the front of `candidates` (one entry per slot of room) and
+    /// returns (candidates, occupied, excluded). `KEPT`: some members are in kept groups (read
+    /// `assigned`); `KEYS`: the order is random (read the words).
+    #[inline(always)]
+    fn run<const KEPT: bool, const KEYS: bool>(&self, candidates: &mut [u64]) -> (usize, u64, u64) {
+        let size = self.occupied.len();
+        let (assigned, occupied, through) = (&self.assigned[..size], self.occupied, &self.through[..size]);
+        let random = if KEYS { &self.random[..size] } else { &[][..] };
+        let (mut len, mut n_occupied, mut n_excluded) = (0usize, 0u64, 0u64);
+        for m in 0..size {
+            let (o, t) = (occupied[m], through[m]);
+            let free = !(KEPT && assigned[m]);
+            let word = if KEYS { random[m] & !self.index_mask } else { 0 };
+            // written unconditionally, kept only when eligible: avoids a hard-to-predict branch
+            candidates[len] = word | m as u64;
+            len += usize::from(free & o & (t < self.cycle));
+            n_occupied += u64::from(o);
+            n_excluded += u64::from(o & (t >= self.cycle));
+        }
+        (len, n_occupied, n_excluded)
+    }
+}
+
+/// Occupied slots and excluded members among `occupied` slots whose exclusions end at `through`.
+fn occupied_and_excluded(occupied: &[bool], through: &[u32], cycle: u32) -> (u64, u64) {
+    let (mut n_occupied, mut n_excluded) = (0u64, 0u64);
+    for (&o, &t) in occupied.iter().zip(through) {
+        n_occupied += u64::from(o);
+        n_excluded += u64::from(o & (t >= cycle));
+    }
+    (n_occupied, n_excluded)
 }
 
 /// Sorts keys whose high bits are uniformly random in expected linear time: a counting pass on the
 /// top bits spreads them into about one key per bucket, then insertion sort fixes the few keys that
-/// share a bucket. Gives exactly the order of a comparison sort.
-pub(super) fn sort_uniform_keys(keys: &mut Vec<u64>, scratch: &mut Vec<u64>, counts: &mut Vec<u32>) {
+/// share a bucket. Gives exactly the order of a comparison sort, in `sorted` (a buffer reused
+/// between calls), and returns it.
+pub(super) fn sort_uniform_keys<'a>(keys: &[u64], sorted: &'a mut Vec<u64>, counts: &mut Vec<u32>) -> &'a [u64] {
     let n = keys.len();
+    if sorted.len() < n {
+        // only grows: every entry returned is written first
+        sorted.resize(n, 0);
+    }
+    let sorted = &mut sorted[..n];
     if n < 2 {
-        return;
+        sorted.copy_from_slice(keys);
+        return sorted;
     }
     let bits = (usize::BITS - (n - 1).leading_zeros()).clamp(1, 20);
     let shift = 64 - bits;
     counts.clear();
     counts.resize((1usize << bits) + 1, 0);
-    for &key in keys.iter() {
+    for &key in keys {
         counts[(key >> shift) as usize + 1] += 1;
     }
     for b in 1..counts.len() {
         counts[b] += counts[b - 1];
     }
-    scratch.clear();
-    scratch.resize(n, 0);
-    for &key in keys.iter() {
+    for &key in keys {
         let bucket = (key >> shift) as usize;
-        scratch[counts[bucket] as usize] = key;
+        sorted[counts[bucket] as usize] = key;
         counts[bucket] += 1;
     }
     for i in 1..n {
-        let key = scratch[i];
+        let key = sorted[i];
         let mut j = i;
-        while j > 0 && scratch[j - 1] > key {
-            scratch[j] = scratch[j - 1];
+        while j > 0 && sorted[j - 1] > key {
+            sorted[j] = sorted[j - 1];
             j -= 1;
         }
-        scratch[j] = key;
+        sorted[j] = key;
     }
-    std::mem::swap(keys, scratch);
+    sorted
 }
 
 #[cfg(test)]

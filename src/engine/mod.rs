@@ -85,6 +85,9 @@ struct ArmReplication<'a> {
     shocks: ShockState,
     /// Dense random blocks of the step at work (formation keys, shock uniforms, dropout).
     dense: DenseBlocks,
+    /// The positions of the village being settled, by slot within the village (arms whose amounts
+    /// due and incomes never change).
+    positions: settlement::SlotPositions,
     tally: ReplicationTally,
     /// Where each loan of a counted cycle goes, when a loan book is being written.
     book: Option<&'a mut dyn LoanBookSink>,
@@ -112,7 +115,7 @@ impl<'a> ArmReplication<'a> {
             policy,
             key,
             due: arm.amount_due(),
-            pool: Pool::new(n, shocks.member_shocks.len()),
+            pool: Pool::new(&layout, shocks.member_shocks.len()),
             layout,
             groups: Groups::new(villages, n),
             group_repaid: Vec::new(),
@@ -121,6 +124,7 @@ impl<'a> ArmReplication<'a> {
             formation_scratch: FormationScratch::default(),
             shocks,
             dense: DenseBlocks::default(),
+            positions: settlement::SlotPositions::default(),
             tally: ReplicationTally::with_group_sizes(
                 replication,
                 policy.min_group_size(),
@@ -369,9 +373,10 @@ mod tests {
             }
             let mut expected = keys.clone();
             expected.sort_unstable();
-            let (mut scratch, mut counts) = (Vec::new(), Vec::new());
-            formation::sort_uniform_keys(&mut keys, &mut scratch, &mut counts);
-            assert_eq!(keys, expected, "n = {n}");
+            // a buffer left longer by an earlier, larger sort must not leak into the result
+            let (mut sorted, mut counts) = (vec![7; 1500], Vec::new());
+            let result = formation::sort_uniform_keys(&keys, &mut sorted, &mut counts);
+            assert_eq!(result, expected, "n = {n}");
         }
     }
 }

@@ -25,7 +25,9 @@ pub(super) struct Pool {
     pub threshold: Vec<f64>,
     /// Whether the member is in a group this cycle.
     pub assigned: Vec<bool>,
-    /// Capacity multiplier prod (1 - s) this cycle.
+    /// Capacity multiplier prod (1 - s) this cycle of each member of the village at work, by slot
+    /// within the village: only the first village-size entries are used (the shock step sets them
+    /// and the settlement reads them before the next village), so they stay in cache.
     pub multiplier: Vec<f64>,
     /// Whether the member fell short of the amount due this cycle (S > 0).
     pub short: Vec<bool>,
@@ -39,11 +41,14 @@ pub(super) struct Pool {
     pub principal: Vec<f64>,
     /// The cycle she entered in (her income ratio grows from it).
     pub entry_cycle: Vec<u32>,
+    /// Empty slots per village, so that entry skips villages with none without scanning them.
+    pub vacancies: Vec<u32>,
 }
 
 impl Pool {
-    /// An empty pool of `n` slots with `member_shocks` member-scope shocks.
-    pub fn new(n: usize, member_shocks: usize) -> Self {
+    /// An empty pool of the slots of `layout` with `member_shocks` member-scope shocks.
+    pub fn new(layout: &Layout, member_shocks: usize) -> Self {
+        let n = layout.n;
         Pool {
             occupied: vec![false; n],
             entrants: vec![0; n],
@@ -60,6 +65,7 @@ impl Pool {
             walked: vec![false; n],
             principal: vec![0.0; n],
             entry_cycle: vec![0; n],
+            vacancies: (0..layout.villages).map(|v| layout.range(v).len() as u32).collect(),
         }
     }
 
@@ -204,9 +210,10 @@ impl ArmReplication<'_> {
     /// are replaced). Each entrant's attributes come from its own (slot, entrant) stream, so a
     /// rejection sampler's retries can never shift another entrant's draws.
     pub(super) fn entry(&mut self, v: usize, cycle: u32) {
-        if cycle > 1 && !self.arm.replace_departures() {
+        if (cycle > 1 && !self.arm.replace_departures()) || self.pool.vacancies[v] == 0 {
             return;
         }
+        self.pool.vacancies[v] = 0;
         for i in self.layout.range(v) {
             if self.pool.occupied[i] {
                 continue;

@@ -10,7 +10,7 @@ use super::book::LoanRecord;
 use super::pool::Pool;
 use super::streams::{self, Purpose, cycle_stream_id, unit_f64};
 use crate::scenario::Liability;
-use crate::stats::CycleRecord;
+use crate::stats::{CycleRecord, ReplicationTally};
 
 /// Slack of the joint repayment test, per member and per unit of amount due: sums of identical
 /// shortfalls and surpluses must not flip the verdict through rounding. It absorbs rounding only.
@@ -30,10 +30,15 @@ pub struct MemberPosition {
 /// The position of a member with capacity `capacity` owing `due`.
 #[inline]
 pub fn member_position(capacity: f64, due: f64) -> MemberPosition {
+    // Plain comparisons instead of f64::max and f64::min: the same values for every input, NaN
+    // included (a NaN difference gives 0, a NaN capacity pays `due`), without the extra
+    // instructions those functions spend on NaN operands.
+    let short = due - capacity;
+    let spare = capacity - due;
     MemberPosition {
-        shortfall: (due - capacity).max(0.0),
-        surplus: (capacity - due).max(0.0),
-        paid_own: capacity.min(due),
+        shortfall: if short > 0.0 { short } else { 0.0 },
+        surplus: if spare > 0.0 { spare } else { 0.0 },
+        paid_own: if capacity < due { capacity } else { due },
     }
 }
 
@@ -127,14 +132,14 @@ pub fn loan_unpaid_principal(unpaid: f64, principal: f64, cover: f64, total_unpa
 
 /// Capacity C = w_t D_0 prod(1 - s) of the member at internal index `i` in `cycle`, where D_0 is the
 /// amount due at the starting principal and w_t = w (1 + income_growth)^t, t counting the cycles since
-/// her entry. One expression for the settlement and the loan book, so both judge the same capacity.
+/// her entry, `m` her slot within the village (the multiplier's index). One expression for the settlement and the loan book, so both judge the same capacity.
 #[inline(always)]
-fn capacity(pool: &Pool, i: usize, first_due: f64, income_growth: f64, cycle: u32) -> f64 {
+fn capacity(pool: &Pool, i: usize, m: usize, first_due: f64, income_growth: f64, cycle: u32) -> f64 {
     if income_growth == 0.0 {
-        first_due * pool.income[i] * pool.multiplier[i]
+        first_due * pool.income[i] * pool.multiplier[m]
     } else {
         let t = f64::from(cycle.saturating_sub(pool.entry_cycle[i]));
-        first_due * (pool.income[i] * libm::pow(1.0 + income_growth, t)) * pool.multiplier[i]
+        first_due * (pool.income[i] * libm::pow(1.0 + income_growth, t)) * pool.multiplier[m]
     }
 }
 
@@ -176,12 +181,12 @@ impl Terms {
 
     /// Her position this cycle, walking away included (as the settlement left it in `pool.walked`).
     #[inline(always)]
-    fn position(&self, pool: &Pool, i: usize, cycle: u32) -> (f64, MemberPosition) {
+    fn position(&self, pool: &Pool, i: usize, m: usize, cycle: u32) -> (f64, MemberPosition) {
         let (principal, due) = self.loan(pool, i);
         if pool.walked[i] {
             return (principal, walk_away_position(due));
         }
-        let c = capacity(pool, i, self.first_due, self.income_growth, cycle);
+        let c = capacity(pool, i, m, self.first_due, self.income_growth, cycle);
         (principal, member_position(c, due))
     }
 }
@@ -244,9 +249,40 @@ impl ArmReplication<'_> {
             let id = cycle_stream_id(Purpose::Temptation, cycle, 0, v as u32);
             self.dense.fill(&self.key, id, size, 2);
         }
+        if !DYNAMIC {
+            // Every slot's position in slot order, read below by the groups' members: the income and
+            // multiplier arrays are then read sequentially, not in the shuffled order of the groups,
+            // and the arithmetic runs as one straight loop. Unserved slots get a value nobody reads.
+            let range = self.layout.range(v);
+            let size = range.len();
+            let positions = &mut self.positions;
+            if positions.shortfall.len() < size {
+                positions.shortfall.resize(size, 0.0);
+                positions.surplus.resize(size, 0.0);
+                positions.paid_own.resize(size, 0.0);
+            }
+            let first_due = terms.first_due;
+            let (income, multiplier) = (&self.pool.income[range.clone()], &self.pool.multiplier[..size]);
+            let (shortfall, surplus, paid_own) = (
+                &mut positions.shortfall[..size],
+                &mut positions.surplus[..size],
+                &mut positions.paid_own[..size],
+            );
+            for m in 0..size {
+                // the expression of `capacity` without income growth, so the same value
+                let position = member_position(first_due * income[m] * multiplier[m], first_due);
+                shortfall[m] = position.shortfall;
+                surplus[m] = position.surplus;
+                paid_own[m] = position.paid_own;
+            }
+        }
         let (mut last_threshold, mut last_survival) = (f64::NAN, 0.0);
         let (first, last) = (self.groups.village_first[v], self.groups.len());
         self.group_repaid.resize(last, false);
+        // The village's tallies accumulate in locals (registers) and are written back once: the
+        // sums of money start from the tally's values and add group after group, so every float
+        // is summed in the same order as when added to the tally directly.
+        let mut sums_of = VillageSums::from_tally(&self.tally, record);
         for (group, repaid) in self.groups.iter_from(first).zip(&mut self.group_repaid[first..]) {
             let k = group.len();
             let (mut group_due, mut group_principal) = if progressive {
@@ -260,15 +296,30 @@ impl ArmReplication<'_> {
             let (mut n_short, mut n_walked) = (0u32, 0u32);
             for &i in group {
                 let i = i as usize;
-                let (principal, due) = terms.loan(&self.pool, i);
+                let (principal, due) = if DYNAMIC {
+                    terms.loan(&self.pool, i)
+                } else {
+                    (terms.first_principal, terms.first_due)
+                };
                 if progressive {
                     group_due += due;
                     group_principal += principal;
                 }
-                // Without growth the income path is a constant 0 here, so the inlined branch folds away.
-                let income_growth = if DYNAMIC { terms.income_growth } else { 0.0 };
-                let c = capacity(&self.pool, i, terms.first_due, income_growth, cycle);
-                let mut position = member_position(c, due);
+                let mut position = if DYNAMIC {
+                    member_position(
+                        capacity(
+                            &self.pool,
+                            i,
+                            i - village_start,
+                            terms.first_due,
+                            terms.income_growth,
+                            cycle,
+                        ),
+                        due,
+                    )
+                } else {
+                    self.positions.at(i - village_start)
+                };
                 let short = position.shortfall > 0.0;
                 let mut walked = false;
                 if let (false, Some((b, access_value, sanction))) = (short, behaviour) {
@@ -316,10 +367,9 @@ impl ArmReplication<'_> {
                     let mut unpaid_principal = 0.0;
                     for &i in group {
                         let (principal, position) = if DYNAMIC {
-                            terms.position(&self.pool, i as usize, cycle)
+                            terms.position(&self.pool, i as usize, i as usize - village_start, cycle)
                         } else {
-                            let c = capacity(&self.pool, i as usize, terms.first_due, 0.0, cycle);
-                            (terms.first_principal, member_position(c, terms.first_due))
+                            (terms.first_principal, self.positions.at(i as usize - village_start))
                         };
                         if position.shortfall > 0.0 {
                             unpaid_principal +=
@@ -357,7 +407,7 @@ impl ArmReplication<'_> {
             if counted {
                 let unpaid_principal = settlement.unpaid_principal;
                 let loss = (1.0 - recovery) * unpaid_principal;
-                let t = &mut self.tally;
+                let t = &mut sums_of;
                 t.group_cycles += 1;
                 t.member_loans += k as u64;
                 t.member_shortfalls += u64::from(n_short);
@@ -365,23 +415,121 @@ impl ArmReplication<'_> {
                 t.able_members += (k as u32 - n_short) as u64;
                 t.strategic_defaults += u64::from(n_walked);
                 t.shortfall_free_groups += u64::from(n_short == 0);
-                t.count_group_shortfalls(k, n_short as usize);
+                self.tally.count_group_shortfalls(k, n_short as usize);
                 t.due += group_due;
                 t.collected += settlement.collected;
                 t.disbursed += group_principal;
                 t.unpaid_principal += unpaid_principal;
                 t.loss += loss;
                 t.recovered += recovery * unpaid_principal;
-                record.disbursed += group_principal;
-                record.loss += loss;
-                record.shortfalls += n_short;
-                if settlement.repaid {
-                    t.groups_repaid += 1;
-                    record.groups_repaid += 1;
-                }
+                t.record_disbursed += group_principal;
+                t.record_loss += loss;
+                t.record_shortfalls += n_short;
+                t.groups_repaid += u64::from(settlement.repaid);
+                t.record_groups_repaid += u32::from(settlement.repaid);
                 t.groups_rescued += u64::from(settlement.rescued);
             }
         }
+        if counted {
+            sums_of.write_back(&mut self.tally, record);
+        }
+    }
+}
+
+/// The positions of one village's slots, by slot within the village, as three arrays so that the
+/// loop computing them runs on vectors.
+#[derive(Debug, Default)]
+pub(super) struct SlotPositions {
+    shortfall: Vec<f64>,
+    surplus: Vec<f64>,
+    paid_own: Vec<f64>,
+}
+
+impl SlotPositions {
+    /// The position of slot `m` of the village.
+    #[inline(always)]
+    fn at(&self, m: usize) -> MemberPosition {
+        MemberPosition {
+            shortfall: self.shortfall[m],
+            surplus: self.surplus[m],
+            paid_own: self.paid_own[m],
+        }
+    }
+}
+
+/// A village's share of the tallies, accumulated in locals during its settlement.
+#[derive(Clone, Copy)]
+struct VillageSums {
+    group_cycles: u64,
+    member_loans: u64,
+    member_shortfalls: u64,
+    member_defaults: u64,
+    able_members: u64,
+    strategic_defaults: u64,
+    shortfall_free_groups: u64,
+    groups_repaid: u64,
+    groups_rescued: u64,
+    due: f64,
+    collected: f64,
+    disbursed: f64,
+    unpaid_principal: f64,
+    loss: f64,
+    recovered: f64,
+    record_disbursed: f64,
+    record_loss: f64,
+    record_shortfalls: u32,
+    record_groups_repaid: u32,
+}
+
+impl VillageSums {
+    /// Counts start at 0 and are added on write-back; sums of money start at the running totals so
+    /// that each addition is the one the tally would have made.
+    #[inline(always)]
+    fn from_tally(t: &ReplicationTally, record: &CycleRecord) -> Self {
+        VillageSums {
+            group_cycles: 0,
+            member_loans: 0,
+            member_shortfalls: 0,
+            member_defaults: 0,
+            able_members: 0,
+            strategic_defaults: 0,
+            shortfall_free_groups: 0,
+            groups_repaid: 0,
+            groups_rescued: 0,
+            due: t.due,
+            collected: t.collected,
+            disbursed: t.disbursed,
+            unpaid_principal: t.unpaid_principal,
+            loss: t.loss,
+            recovered: t.recovered,
+            record_disbursed: record.disbursed,
+            record_loss: record.loss,
+            record_shortfalls: 0,
+            record_groups_repaid: 0,
+        }
+    }
+
+    #[inline(always)]
+    fn write_back(self, t: &mut ReplicationTally, record: &mut CycleRecord) {
+        t.group_cycles += self.group_cycles;
+        t.member_loans += self.member_loans;
+        t.member_shortfalls += self.member_shortfalls;
+        t.member_defaults += self.member_defaults;
+        t.able_members += self.able_members;
+        t.strategic_defaults += self.strategic_defaults;
+        t.shortfall_free_groups += self.shortfall_free_groups;
+        t.groups_repaid += self.groups_repaid;
+        t.groups_rescued += self.groups_rescued;
+        t.due = self.due;
+        t.collected = self.collected;
+        t.disbursed = self.disbursed;
+        t.unpaid_principal = self.unpaid_principal;
+        t.loss = self.loss;
+        t.recovered = self.recovered;
+        record.disbursed = self.record_disbursed;
+        record.loss = self.record_loss;
+        record.shortfalls += self.record_shortfalls;
+        record.groups_repaid += self.record_groups_repaid;
     }
 }
 
@@ -397,6 +545,7 @@ impl ArmReplication<'_> {
         let lambda = self.policy.peer_cover();
         let joint = self.policy.liability() == Liability::Joint;
         let (pool, layout) = (&self.pool, &self.layout);
+        let village_start = layout.village_start[v];
         for ((number, group), &repaid) in self
             .groups
             .iter_from(self.groups.village_first[v])
@@ -405,7 +554,7 @@ impl ArmReplication<'_> {
         {
             let mut sums = GroupPosition::default();
             for &i in group {
-                let (_, position) = terms.position(pool, i as usize, cycle);
+                let (_, position) = terms.position(pool, i as usize, i as usize - village_start, cycle);
                 sums.shortfall += position.shortfall;
                 sums.surplus += position.surplus;
                 sums.paid_own += position.paid_own;
@@ -415,7 +564,7 @@ impl ArmReplication<'_> {
             // walked away) in proportion to those amounts.
             for &i in group {
                 let i = i as usize;
-                let (_, position) = terms.position(pool, i, cycle);
+                let (_, position) = terms.position(pool, i, i - village_start, cycle);
                 let due = terms.loan(pool, i).1;
                 let paid = match (joint, repaid) {
                     (true, true) => due,

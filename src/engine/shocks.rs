@@ -29,6 +29,10 @@ pub(super) struct ShockState {
     pub member_shocks: Vec<usize>,
     /// The probability each threshold row was computed for.
     pub cached_probability: Vec<f64>,
+    /// Per threshold row, the last hit probability turned into a threshold and its threshold:
+    /// members with the same risk share them, so the inverse normal is computed once, not per
+    /// member.
+    last_threshold: Vec<(f64, f64)>,
     /// Whether every member has the same risk multiplier (a fixed risk distribution).
     shared_risk: bool,
     /// This cycle's state of every shock.
@@ -56,6 +60,7 @@ impl ShockState {
             .collect();
         ShockState {
             cached_probability: vec![f64::NAN; member_shocks.len()],
+            last_threshold: vec![(f64::NAN, f64::NAN); member_shocks.len()],
             member_shocks,
             shared_risk: arm.risk.fixed_value().is_some(),
             cycle: Vec::new(),
@@ -81,8 +86,12 @@ impl ArmReplication<'_> {
     pub(super) fn set_threshold(&mut self, row: usize, i: usize, probability: f64) {
         let n = self.layout.n;
         let pi = (self.pool.risk[i] * probability).min(1.0);
+        let last = &mut self.shocks.last_threshold[row];
+        if pi.to_bits() != last.0.to_bits() {
+            *last = (pi, normal::inv_cdf(pi));
+        }
         self.pool.hit_probability[row * n + i] = pi;
-        self.pool.threshold[row * n + i] = normal::inv_cdf(pi);
+        self.pool.threshold[row * n + i] = last.1;
     }
 
     /// Recomputes cached hit thresholds of member-scope shocks whose probability changed (a stress
@@ -150,9 +159,9 @@ impl ArmReplication<'_> {
     /// Step 3: every shock at its scope; records each served member's capacity multiplier.
     pub(super) fn shocks(&mut self, v: usize, cycle: u32) {
         let (g_start, g_end) = (self.groups.village_first[v], self.groups.len());
-        for &i in &self.groups.members[self.groups.member_range(g_start, g_end)] {
-            self.pool.multiplier[i as usize] = 1.0;
-        }
+        // The whole village in slot order rather than the served members in group order: a
+        // sequential fill, and only served members' multipliers are ever read.
+        self.pool.multiplier[..self.layout.range(v).len()].fill(1.0);
         if g_start == g_end {
             return;
         }
@@ -244,9 +253,17 @@ impl ArmReplication<'_> {
                         }
                     }
                 } else if state.shared_risk {
-                    let conditional = normal::cdf((thresholds[members[0] as usize] - common) / idiosyncratic);
+                    // Every member shares the threshold last cached (one risk multiplier, and every
+                    // member's threshold recomputed when the probability changes): read it from the
+                    // shock state rather than from a member's entry in the large threshold array,
+                    // a cache miss per village.
+                    let shared = state.last_threshold[threshold_row].1;
+                    debug_assert_eq!(shared.to_bits(), thresholds[members[0] as usize].to_bits());
+                    let conditional = normal::cdf((shared - common) / idiosyncratic);
+                    // the same decision as draw(i) < conditional, on the words
+                    let bound = crate::maths::unit_bound(conditional);
                     for &i in members {
-                        if draw(i) < conditional {
+                        if dense.u64_at(i - start as u32) >> 11 < bound {
                             hit(i);
                         }
                     }
@@ -308,7 +325,7 @@ impl ArmReplication<'_> {
         let hits = &self.shocks.hits;
         if let Some(s) = shock.severity.fixed_value() {
             for &i in hits {
-                self.pool.multiplier[i as usize] *= 1.0 - s;
+                self.pool.multiplier[(i - start) as usize] *= 1.0 - s;
             }
             return;
         }
@@ -329,7 +346,7 @@ impl ArmReplication<'_> {
                     .severity
                     .sample(&mut SlotDraws::<4>::seek(&self.key, id, i - start))
             };
-            self.pool.multiplier[i as usize] *= 1.0 - s;
+            self.pool.multiplier[(i - start) as usize] *= 1.0 - s;
         }
     }
 }

@@ -121,35 +121,45 @@ pub fn open(key: &[u8; 32], stream_id: u64) -> ChaCha8Rng {
     rng
 }
 
-/// A densely generated run of per-slot blocks of one stream, kept as the generator's bytes (words
-/// are little-endian, as ChaCha defines them), reused across fills to avoid allocation.
+/// A densely generated run of per-slot blocks of one stream, kept as 64-bit words (pairs of the
+/// generator's 32-bit words, the first one low, as ChaCha's little-endian bytes give them on every
+/// platform), reused across fills to avoid allocation.
 #[derive(Debug, Default, Clone)]
 pub struct DenseBlocks {
-    bytes: Vec<u8>,
+    /// Word pairs: 32-bit words `2j` (low half) and `2j + 1` (high half).
+    words: Vec<u64>,
 }
 
 impl DenseBlocks {
-    /// Fills the blocks of `slots` consecutive slot indices (from 0), `width` words each.
+    /// Fills the blocks of `slots` consecutive slot indices (from 0), `width` 32-bit words each.
     pub fn fill(&mut self, key: &[u8; 32], stream_id: u64, slots: usize, width: usize) {
-        // Resizing only grows the buffer; the generator overwrites every byte that is read.
-        self.bytes.resize(slots * width * 4, 0);
-        let mut rng = open(key, stream_id);
-        rng.fill_bytes(&mut self.bytes);
+        // A whole number of word pairs: an odd total generates one word more, never read.
+        let pairs = (slots * width).div_ceil(2);
+        if self.words.len() < pairs {
+            // only grows: the generator overwrites every word that is read
+            self.words.resize(pairs, 0);
+        }
+        // `Rng::fill` writes the stream's bytes straight into the words and reads them as
+        // little-endian, so the hot loops read plain words with no staging copy.
+        rand::Rng::fill(&mut open(key, stream_id), &mut self.words[..pairs]);
     }
 
-    /// Word `word` of the run (block `m` of width `W` starts at word `m * W`).
+    /// 32-bit word `word` of the run (block `m` of width `W` starts at word `m * W`).
     #[inline]
     pub fn word(&self, word: usize) -> u32 {
-        let bytes: [u8; 4] = self.bytes[4 * word..4 * word + 4].try_into().expect("4 bytes");
-        u32::from_le_bytes(bytes)
+        (self.words[word / 2] >> (32 * (word % 2))) as u32
     }
 
     /// The 64-bit value of 2-word block `index` (low word first).
     #[inline]
     pub fn u64_at(&self, index: u32) -> u64 {
-        let i = index as usize * 8;
-        let bytes: [u8; 8] = self.bytes[i..i + 8].try_into().expect("8 bytes");
-        u64::from_le_bytes(bytes)
+        self.words[index as usize]
+    }
+
+    /// The 64-bit values of the first `len` 2-word blocks, for loops that read them in order.
+    #[inline]
+    pub fn pairs(&self, len: usize) -> &[u64] {
+        &self.words[..len]
     }
 }
 
@@ -249,6 +259,28 @@ mod tests {
             let mut b = SlotDraws::<4>::seek(&key, id, m);
             for _ in 0..6 {
                 assert_eq!(a.next_u32(), b.next_u32());
+            }
+        }
+    }
+
+    /// Dense words against rand_chacha's own word sequence of the same stream, read one word at a
+    /// time: word pair j is words 2j (low) and 2j + 1 (high), also for an odd number of words.
+    #[test]
+    fn dense_words_are_the_stream_words_in_order() {
+        let key = replication_key(7, 2);
+        let id = cycle_stream_id(Purpose::Formation, 4, 0, 9);
+        let mut dense = DenseBlocks::default();
+        for (slots, width) in [(1usize, 1usize), (37, 2), (101, 3), (250, 4)] {
+            dense.fill(&key, id, slots, width);
+            let mut reference = open(&key, id);
+            let words: Vec<u32> = (0..slots * width).map(|_| reference.next_u32()).collect();
+            for (j, &w) in words.iter().enumerate() {
+                assert_eq!(dense.word(j), w, "word {j} of {slots} x {width}");
+            }
+            for j in 0..slots * width / 2 {
+                let expected = u64::from(words[2 * j]) | (u64::from(words[2 * j + 1]) << 32);
+                assert_eq!(dense.u64_at(j as u32), expected);
+                assert_eq!(dense.pairs(j + 1)[j], expected);
             }
         }
     }
