@@ -172,8 +172,12 @@ pub fn simulate_range(
         loop {
             if limit == total && stop() {
                 // finish the batch in hand (the one the last spawned task belongs to), nothing after
-                limit = if spawned == committed { committed } else { spawned.div_ceil(batch_tasks) * batch_tasks }
-                    .min(total);
+                limit = if spawned == committed {
+                    committed
+                } else {
+                    spawned.div_ceil(batch_tasks) * batch_tasks
+                }
+                .min(total);
             }
             while spawned < limit && spawned < committed + window {
                 let sender = sender.clone();
