@@ -223,11 +223,13 @@ fn money_section(out: &mut String, report: &RunReport, width: usize) {
     let Some(first) = report.arms.first() else { return };
     if *report.scenario.finance() == crate::scenario::Finance::default() {
         // Without costs the self-sufficiency ratio counts losses only and reads as a comfort it is
-        // not: the tables wait for a [finance] table (summary.csv has the figures either way).
+        // not: the tables wait for a [finance] table (summary.csv has the money figures either way;
+        // the annual loss quantiles need a year of more than one cycle and are left empty).
         let _ = writeln!(
             out,
             "money and capital: no [finance] table, so a year is one cycle and costs and fees are zero; add \
-             [finance] for the money and capital tables (the figures are in summary.csv either way)"
+             [finance] for the money and capital tables and the annual loss quantiles (the money figures are in \
+             summary.csv either way)"
         );
         return;
     }
