@@ -130,13 +130,21 @@ pub fn loan_unpaid_principal(unpaid: f64, principal: f64, cover: f64, total_unpa
     (unpaid - cover * unpaid / total_unpaid).max(0.0).min(principal)
 }
 
+/// Capacity D_0 w prod(1 - s) without income growth, shared by [`capacity`] and the settlement's
+/// slot-order loop so that both compute the same value.
+#[inline(always)]
+fn steady_capacity(first_due: f64, income: f64, multiplier: f64) -> f64 {
+    first_due * income * multiplier
+}
+
 /// Capacity C = w_t D_0 prod(1 - s) of the member at internal index `i` in `cycle`, where D_0 is the
 /// amount due at the starting principal and w_t = w (1 + income_growth)^t, t counting the cycles since
-/// her entry, `m` her slot within the village (the multiplier's index). One expression for the settlement and the loan book, so both judge the same capacity.
+/// her entry, `m` her slot within the village (the multiplier's index). One expression for the
+/// settlement and the loan book, so both judge the same capacity.
 #[inline(always)]
 fn capacity(pool: &Pool, i: usize, m: usize, first_due: f64, income_growth: f64, cycle: u32) -> f64 {
     if income_growth == 0.0 {
-        first_due * pool.income[i] * pool.multiplier[m]
+        steady_capacity(first_due, pool.income[i], pool.multiplier[m])
     } else {
         let t = f64::from(cycle.saturating_sub(pool.entry_cycle[i]));
         first_due * (pool.income[i] * libm::pow(1.0 + income_growth, t)) * pool.multiplier[m]
@@ -269,8 +277,7 @@ impl ArmReplication<'_> {
                 &mut positions.paid_own[..size],
             );
             for m in 0..size {
-                // the expression of `capacity` without income growth, so the same value
-                let position = member_position(first_due * income[m] * multiplier[m], first_due);
+                let position = member_position(steady_capacity(first_due, income[m], multiplier[m]), first_due);
                 shortfall[m] = position.shortfall;
                 surplus[m] = position.surplus;
                 paid_own[m] = position.paid_own;
