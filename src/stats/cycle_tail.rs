@@ -123,19 +123,16 @@ impl CycleLossTail {
 
     /// The kept values, largest first.
     pub fn descending(&self) -> Vec<TailEntry> {
-        let mut v: Vec<TailEntry> = self.kept.iter().map(|e| e.0).collect();
-        v.sort_unstable_by(|a, b| b.cmp(a));
-        v
+        self.descending_where(|_| true)
     }
 
     /// The kept values from replications `range`, largest first.
     pub fn from_replications(&self, range: std::ops::Range<u32>) -> Vec<TailEntry> {
-        let mut v: Vec<TailEntry> = self
-            .kept
-            .iter()
-            .map(|e| e.0)
-            .filter(|e| range.contains(&e.replication))
-            .collect();
+        self.descending_where(|e| range.contains(&e.replication))
+    }
+
+    fn descending_where(&self, keep: impl Fn(&TailEntry) -> bool) -> Vec<TailEntry> {
+        let mut v: Vec<TailEntry> = self.kept.iter().map(|e| e.0).filter(|e| keep(e)).collect();
         v.sort_unstable_by(|a, b| b.cmp(a));
         v
     }

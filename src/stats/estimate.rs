@@ -297,21 +297,12 @@ pub fn quantile_interval_sorted(sorted: &[f64], q: f64) -> Option<(f64, f64)> {
 /// (Woodruff 1952, "Confidence intervals for medians and other position measures"): the share of
 /// values at or below the estimated quantile gets its standard error from the replications (the
 /// ratio estimator), and q -/+ 1.959964 SE is read back through the order statistics of all values.
-/// With independent values it agrees with the binomial ranks to first order. `sorted_all` holds
-/// every value in ascending order; `counts(x)` gives each replication's (values <= x, values).
-/// `None` with fewer than two replications, without a quantile, or when either end falls outside
-/// the values.
+/// With independent values it agrees with the binomial ranks to first order. Of the `n` values,
+/// `at(i)` gives the `i`-th smallest (0-based) where it is held; `counts(x)` gives each
+/// replication's (values <= x, values). `None` with fewer than two replications, without a
+/// quantile, when either end falls outside the values, or when an order statistic the interval
+/// needs is not held.
 pub fn clustered_quantile_interval(
-    sorted_all: &[f64],
-    q: f64,
-    counts: impl Fn(f64) -> Vec<(f64, f64)>,
-) -> Option<(f64, f64)> {
-    clustered_quantile_interval_ranked(sorted_all.len(), q, |i| sorted_all.get(i).copied(), counts)
-}
-
-/// As [`clustered_quantile_interval`], for `n` values of which `at(i)` gives the `i`-th smallest
-/// (0-based) where it is held; `None` when an order statistic the interval needs is not held.
-pub fn clustered_quantile_interval_ranked(
     n: usize,
     q: f64,
     at: impl Fn(usize) -> Option<f64>,
@@ -353,7 +344,7 @@ mod order_statistic_tests {
                 .map(|r| (r.iter().filter(|&&v| v <= x).count() as f64, r.len() as f64))
                 .collect()
         };
-        let (lo, hi) = clustered_quantile_interval(&all, 0.5, counts).unwrap();
+        let (lo, hi) = clustered_quantile_interval(all.len(), 0.5, |i| all.get(i).copied(), counts).unwrap();
         let (blo, bhi) = quantile_interval_sorted(&all, 0.5).unwrap();
         assert!(hi - lo > 2.0 * (bhi - blo), "{lo}..{hi} against {blo}..{bhi}");
     }

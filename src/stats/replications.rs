@@ -90,7 +90,7 @@ impl ReplicationFigures {
             served_slot_cycles: t.served_slot_cycles,
             excluded_slot_cycles: t.excluded_slot_cycles,
             slot_cycles: t.slot_cycles(),
-            worst_cycle_loss: worst_cycle_loss(t),
+            worst_cycle_loss: t.worst_cycle_loss,
             exclusion_events: t.exclusion_events,
             removals: t.removals,
             entrants: t.entrants,
@@ -199,11 +199,6 @@ impl ReplicationFigures {
     }
 }
 
-/// The largest single-cycle loss rate of a replication's counted cycles, over those that lent.
-pub fn worst_cycle_loss(t: &ReplicationTally) -> Option<f64> {
-    t.worst_cycle_loss
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -220,8 +215,10 @@ mod tests {
             });
         }
         t.digest_cycles(1);
-        assert_eq!(worst_cycle_loss(&t), Some(0.06));
-        assert_eq!(worst_cycle_loss(&ReplicationTally::new(0, 2, 0)), None);
+        assert_eq!(t.worst_cycle_loss, Some(0.06));
+        let mut none = ReplicationTally::new(0, 2, 0);
+        none.digest_cycles(1);
+        assert_eq!(none.worst_cycle_loss, None);
     }
 
     #[test]

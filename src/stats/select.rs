@@ -133,7 +133,7 @@ impl ConstrainedFigure {
 }
 
 fn worst_cycle_loss(t: &ReplicationTally) -> Option<f64> {
-    crate::stats::replications::worst_cycle_loss(t)
+    t.worst_cycle_loss
 }
 
 /// The figure named `name`, or a message listing the ones allowed.

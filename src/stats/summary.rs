@@ -245,12 +245,8 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
             })
             .collect()
     };
-    let cycle_ci =
-        |q: f64| estimate::clustered_quantile_interval_ranked(lent_cycles, q, cycle_at, cycle_counts).unzip();
-    let worst: Vec<f64> = reps
-        .iter()
-        .filter_map(crate::stats::replications::worst_cycle_loss)
-        .collect();
+    let cycle_ci = |q: f64| estimate::clustered_quantile_interval(lent_cycles, q, cycle_at, cycle_counts).unzip();
+    let worst: Vec<f64> = reps.iter().filter_map(|r| r.worst_cycle_loss).collect();
     let worst = estimate::sorted(&worst);
     let worst_ci = |q: f64| estimate::quantile_interval_sorted(&worst, q).unzip();
     let (loss_p50_ci_low, loss_p50_ci_high) = horizon_ci(0.5);
