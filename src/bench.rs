@@ -9,7 +9,7 @@
 //! is a bound the engine cannot beat. `scripts/bench.sh` sets the engine's rate beside it.
 
 use crate::engine::streams::{DenseBlocks, Purpose, SlotDraws, cycle_stream_id, replication_key, unit_f64};
-use crate::run::{RunError, RunOptions, worker_threads};
+use crate::run::{RunError, RunOptions, worker_pool};
 use crate::scenario::{Scenario, ShockScope};
 use rand::distr::Distribution;
 use rand_distr::StandardNormal;
@@ -27,14 +27,7 @@ pub struct BareDraws {
 /// Draws the random numbers of every replication of every arm of `scenario`, across threads like
 /// a run.
 pub fn bare_draws(scenario: &Scenario, options: RunOptions) -> Result<BareDraws, RunError> {
-    let threads = worker_threads(&options);
-    let pool = rayon::ThreadPoolBuilder::new()
-        .num_threads(threads)
-        .build()
-        .map_err(|e| RunError::ThreadPool {
-            threads,
-            reason: e.to_string(),
-        })?;
+    let (pool, _) = worker_pool(&options)?;
     let arms = scenario.arms().len();
     let tasks: Vec<(u32, usize)> = (0..scenario.replications())
         .flat_map(|r| (0..arms).map(move |a| (r, a)))

@@ -129,14 +129,7 @@ pub fn simulate_range(
     on_batch: &mut dyn FnMut(&Batch) -> Result<(), String>,
     progress: &mut dyn FnMut(u64),
 ) -> Result<PartialRun, RunError> {
-    let threads = worker_threads(&options);
-    let pool = rayon::ThreadPoolBuilder::new()
-        .num_threads(threads)
-        .build()
-        .map_err(|e| RunError::ThreadPool {
-            threads,
-            reason: e.to_string(),
-        })?;
+    let (pool, threads) = worker_pool(&options)?;
     let arms = scenario.arms.len();
     // Tallies read back from a file that holds no batch yet start afresh, sized for this run.
     let mut already = already.into_iter();
@@ -265,6 +258,19 @@ impl RunResults {
             served_member_cycles,
         }
     }
+}
+
+/// The thread pool of a run with `options`, and its number of threads.
+pub fn worker_pool(options: &RunOptions) -> Result<(rayon::ThreadPool, usize), RunError> {
+    let threads = worker_threads(options);
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(threads)
+        .build()
+        .map_err(|e| RunError::ThreadPool {
+            threads,
+            reason: e.to_string(),
+        })?;
+    Ok((pool, threads))
 }
 
 /// Worker threads a run with `options` uses: the requested number, or every core.
