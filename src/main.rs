@@ -242,6 +242,17 @@ enum Failure {
     Interrupted(usize, String),
 }
 
+/// A destination the user chose badly is bad input; a failure of the machine is a running failure.
+impl From<output::OutputError> for Failure {
+    fn from(e: output::OutputError) -> Self {
+        if e.is_bad_destination() {
+            Failure::BadInput(e.to_string())
+        } else {
+            Failure::Running(e.to_string())
+        }
+    }
+}
+
 impl Failure {
     fn exit_code(&self) -> u8 {
         match self {
@@ -575,15 +586,6 @@ fn execute(command: Command) -> Result<(), Failure> {
                 threads: threads.map(usize::from),
                 ..Default::default()
             };
-            // a shard holds only its own replications
-            let held = shard.map_or(scenario.replications(), |id| {
-                loancycle::shard::range(id.index, id.count, scenario.replications()).len() as u32
-            });
-            run::check_memory(&scenario, &options, held, max_memory)
-                .map_err(|e| Failure::BadInput(format!("{origin}: {e}")))?;
-            if let Some(path) = &loan_book {
-                loancycle::loanbook::check_destination(path, force).map_err(|e| Failure::BadInput(e.to_string()))?;
-            }
             let (range, checkpoint_path, final_shard) = match shard {
                 Some(id) => (
                     loancycle::shard::range(id.index, id.count, scenario.replications()),
@@ -596,6 +598,12 @@ fn execute(command: Command) -> Result<(), Failure> {
                     None,
                 ),
             };
+            // a shard holds only its own replications
+            run::check_memory(&scenario, &options, range.len() as u32, max_memory)
+                .map_err(|e| Failure::BadInput(format!("{origin}: {e}")))?;
+            if let Some(path) = &loan_book {
+                loancycle::loanbook::check_destination(path, force).map_err(|e| Failure::BadInput(e.to_string()))?;
+            }
             // A shard directory holds shard files, not results; an earlier shard or checkpoint is
             // kept unless --force or --resume says what to do with it.
             let existing = final_shard.iter().chain([&checkpoint_path]).find(|p| p.exists());
@@ -606,13 +614,7 @@ fn execute(command: Command) -> Result<(), Failure> {
                     path.file_name().unwrap_or_default().to_string_lossy()
                 )));
             }
-            let created = output::prepare_destination(&out, force || resume || shard.is_some()).map_err(|e| {
-                if e.is_bad_destination() {
-                    Failure::BadInput(e.to_string())
-                } else {
-                    Failure::Running(e.to_string())
-                }
-            })?;
+            let created = output::prepare_destination(&out, force || resume || shard.is_some())?;
             if let (Some(done), true, false) = (&final_shard, resume, checkpoint_path.exists())
                 && done.exists()
             {
@@ -834,13 +836,7 @@ fn execute(command: Command) -> Result<(), Failure> {
                 &merged.results,
                 merged.baseline,
             );
-            let paths = output::write_all(&out, &report, force, &|| false).map_err(|e| {
-                if e.is_bad_destination() {
-                    Failure::BadInput(e.to_string())
-                } else {
-                    Failure::Running(e.to_string())
-                }
-            })?;
+            let paths = output::write_all(&out, &report, force, &|| false)?;
             if !quiet {
                 print!("{}", terminal::summary_table(&report));
                 for p in paths {

@@ -521,13 +521,18 @@ pub fn difference_rows_csv(differences: &[crate::stats::compare::ArmDifference])
         se: Cell(d.standard_error),
         ci_low: Cell(d.ci_low),
         ci_high: Cell(d.ci_high),
-        significant: match d.significant {
-            Some(true) => "true",
-            Some(false) => "false",
-            None => "",
-        },
+        significant: significance_text(d.significant),
         se_ratio: Cell(d.se_ratio),
     }))
+}
+
+/// The `significant` cell of differences.csv and contrasts.csv.
+fn significance_text(significant: Option<bool>) -> &'static str {
+    match significant {
+        Some(true) => "true",
+        Some(false) => "false",
+        None => "",
+    }
 }
 
 /// One row of contrasts.csv: a pair of arms differing only in the contrasted key.
@@ -562,11 +567,7 @@ pub fn contrasts_csv(contrasts: &[crate::stats::compare::Contrast]) -> Vec<u8> {
             se: Cell(d.standard_error),
             ci_low: Cell(d.ci_low),
             ci_high: Cell(d.ci_high),
-            significant: match d.significant {
-                Some(true) => "true",
-                Some(false) => "false",
-                None => "",
-            },
+            significant: significance_text(d.significant),
             se_ratio: Cell(d.se_ratio),
         }
     }))
