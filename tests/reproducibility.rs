@@ -62,24 +62,8 @@ const SCENARIO: &str = r#"
 #[test]
 fn results_are_identical_for_one_and_two_threads() {
     let s = scenario(SCENARIO);
-    let one = run::simulate(
-        &s,
-        RunOptions {
-            threads: Some(1),
-            ..Default::default()
-        },
-        &mut |_| {},
-    )
-    .unwrap();
-    let two = run::simulate(
-        &s,
-        RunOptions {
-            threads: Some(2),
-            ..Default::default()
-        },
-        &mut |_| {},
-    )
-    .unwrap();
+    let one = simulate_on(&s, 1);
+    let two = simulate_on(&s, 2);
     assert_eq!(one.arms, two.arms);
     // and the run did something: loans, losses and exclusions happened
     let t = &one.arms[2].replications[0];
@@ -127,24 +111,8 @@ fn a_different_seed_gives_different_results() {
         },
     )
     .unwrap();
-    let a = run::simulate(
-        &s,
-        RunOptions {
-            threads: Some(2),
-            ..Default::default()
-        },
-        &mut |_| {},
-    )
-    .unwrap();
-    let b = run::simulate(
-        &other,
-        RunOptions {
-            threads: Some(2),
-            ..Default::default()
-        },
-        &mut |_| {},
-    )
-    .unwrap();
+    let a = simulate_on(&s, 2);
+    let b = simulate_on(&other, 2);
     assert_ne!(a.arms, b.arms);
 }
 
@@ -337,24 +305,8 @@ fn behaviour_and_growth_are_reproducible_and_pinned() {
         liability = ["joint", "individual"]
         "#,
     );
-    let one = run::simulate(
-        &s,
-        RunOptions {
-            threads: Some(1),
-            ..Default::default()
-        },
-        &mut |_| {},
-    )
-    .unwrap();
-    let two = run::simulate(
-        &s,
-        RunOptions {
-            threads: Some(2),
-            ..Default::default()
-        },
-        &mut |_| {},
-    )
-    .unwrap();
+    let one = simulate_on(&s, 1);
+    let two = simulate_on(&s, 2);
     assert_eq!(one.arms, two.arms);
     let t = loancycle::engine::simulate_replication(&s, 0, 1);
     let u = loancycle::engine::simulate_replication(&s, 3, 4);

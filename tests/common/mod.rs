@@ -21,6 +21,15 @@ pub fn simulate(s: &Scenario) -> RunResults {
     run::simulate(s, options, &mut |_| {}).expect("simulation runs")
 }
 
+/// Simulates on `threads` worker threads, keeping only what `run` keeps (no per-cycle records).
+pub fn simulate_on(s: &Scenario, threads: usize) -> RunResults {
+    let options = RunOptions {
+        threads: Some(threads),
+        ..Default::default()
+    };
+    run::simulate(s, options, &mut |_| {}).expect("simulation runs")
+}
+
 /// Summary of arm `arm`.
 pub fn arm_summary(s: &Scenario, results: &RunResults, arm: usize) -> ArmSummary {
     summary::summarize_arm(&results.arms[arm], s.arms()[arm].policy().group_size())
