@@ -36,8 +36,8 @@ fn peak_rss_bytes(text: &str, threads: usize) -> u64 {
 }
 
 /// The estimate must lie within this factor of the measured peak, either way. Calibrated on the
-/// project machine (x86-64 Linux, glibc), where the estimates of the two runs below were 1.05 and
-/// 1.03 times their measured peaks.
+/// project machine (x86-64 Linux, glibc): the runs below gave 1.02 (large pool) and 1.11 (many
+/// replications) with the binary of `cargo test`, 1.06 and 1.22 with the release binary.
 const FACTOR: f64 = 1.25;
 
 fn assert_estimate_close(label: &str, text: &str, threads: usize) {
@@ -45,6 +45,7 @@ fn assert_estimate_close(label: &str, text: &str, threads: usize) {
     let estimated = memory::estimate(&s, threads).total_bytes() as f64;
     let measured = peak_rss_bytes(text, threads) as f64;
     let ratio = estimated / measured;
+    eprintln!("{label}: estimate / measured peak = {ratio:.3}");
     assert!(
         (1.0 / FACTOR..=FACTOR).contains(&ratio),
         "{label}: estimated {estimated:.0} bytes, measured peak {measured:.0} bytes (ratio {ratio:.3})"

@@ -297,7 +297,24 @@ pub(super) fn sort_uniform_keys<'a>(keys: &[u64], sorted: &'a mut Vec<u64>, coun
         sorted[counts[bucket] as usize] = key;
         counts[bucket] += 1;
     }
-    for i in 1..n {
+    // The scatter leaves the keys ordered by bucket and, within a bucket, in arrival order. A key
+    // is out of place exactly when some earlier key is larger: a branch-free pass over the running
+    // maximum lists those (about one key in eight), and insertion moves only them. Insertion in
+    // ascending position order sees the same prefix set as a full insertion sort would, so the
+    // result is that of a full sort.
+    let misplaced = counts;
+    if misplaced.len() < n {
+        misplaced.resize(n, 0);
+    }
+    let mut len = 0usize;
+    let mut max = sorted[0];
+    for (i, &key) in sorted.iter().enumerate().skip(1) {
+        misplaced[len] = i as u32;
+        len += usize::from(key < max);
+        max = max.max(key);
+    }
+    for &i in &misplaced[..len] {
+        let i = i as usize;
         let key = sorted[i];
         let mut j = i;
         while j > 0 && sorted[j - 1] > key {

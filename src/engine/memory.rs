@@ -31,17 +31,18 @@ pub const BYTES_PER_GIB: f64 = 1_073_741_824.0;
 /// (about 5.5 MiB on x86-64 Linux; the unoptimised test build, about 15 MiB), rounded up.
 const BASE_BYTES: u64 = 8 << 20;
 
-/// Per slot and worker: occupied, entrants, income, risk, excluded-through, assigned, multiplier,
-/// short, walked, removed, reached, principal, entry cycle (50 bytes), group members and offsets
-/// (about 5), padding of the allocator.
-const SLOT_BYTES: u64 = 55;
+/// Per slot and worker: occupied, entrants, income, risk, excluded-through, assigned, short, walked,
+/// removed, reached, principal, entry cycle (42 bytes), group members and offsets (about 5), padding
+/// of the allocator.
+const SLOT_BYTES: u64 = 47;
 /// Per slot, worker and member-scope shock: the cached hit probability and threshold.
 const SLOT_SHOCK_BYTES: u64 = 16;
 /// Per slot and worker under persistent formation: last cycle's members, offsets and entrant numbers.
 const SLOT_PERSISTENT_BYTES: u64 = 9;
 /// Per slot of the largest village and worker: dense random blocks (up to 4 words), formation keys
-/// and their sorting buffer, the assortative order and hits.
-const VILLAGE_SLOT_BYTES: u64 = 16 + 8 + 8 + 24 + 4;
+/// and their sorting buffer, the assortative order, hits, the capacity multipliers and the slot
+/// positions of the settlement.
+const VILLAGE_SLOT_BYTES: u64 = 16 + 8 + 8 + 24 + 4 + 8 + 24;
 /// Per village, shock and worker: the cycle's village block of two words.
 const VILLAGE_SHOCK_BYTES: u64 = 8;
 /// Per kept per-cycle loss rate: the entry (16 bytes), doubled for the heap's growth by doubling.

@@ -371,12 +371,21 @@ mod tests {
                 keys[1] = keys[0];
                 keys[2] = 3;
             }
-            let mut expected = keys.clone();
-            expected.sort_unstable();
-            // a buffer left longer by an earlier, larger sort must not leak into the result
-            let (mut sorted, mut counts) = (vec![7; 1500], Vec::new());
-            let result = formation::sort_uniform_keys(&keys, &mut sorted, &mut counts);
-            assert_eq!(result, expected, "n = {n}");
+            // and keys with only three random high bits crowd a few buckets, so that keys move
+            // many places in the pass that fixes the order within buckets
+            let crowded: Vec<u64> = keys
+                .iter()
+                .enumerate()
+                .map(|(m, &k)| (k >> 61 << 61) | m as u64)
+                .collect();
+            for keys in [keys, crowded] {
+                let mut expected = keys.clone();
+                expected.sort_unstable();
+                // a buffer left longer by an earlier, larger sort must not leak into the result
+                let (mut sorted, mut counts) = (vec![7; 1500], Vec::new());
+                let result = formation::sort_uniform_keys(&keys, &mut sorted, &mut counts);
+                assert_eq!(result, expected, "n = {n}");
+            }
         }
     }
 }

@@ -58,7 +58,7 @@ impl Pool {
             hit_probability: vec![0.0; member_shocks * n],
             threshold: vec![f64::NEG_INFINITY; member_shocks * n],
             assigned: vec![false; n],
-            multiplier: vec![1.0; n],
+            multiplier: vec![1.0; (0..layout.villages).map(|v| layout.range(v).len()).max().unwrap_or(0)],
             short: vec![false; n],
             removed: vec![false; n],
             reached: vec![false; n],
