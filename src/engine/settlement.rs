@@ -378,10 +378,10 @@ impl ArmReplication<'_> {
                         } else {
                             (terms.first_principal, self.positions.at(i as usize - village_start))
                         };
-                        if position.shortfall > 0.0 {
-                            unpaid_principal +=
-                                loan_unpaid_principal(position.shortfall, principal, cover, sums.shortfall);
-                        }
+                        // A loan without a shortfall adds exactly +0 (its share of the cover is 0
+                        // / a positive sum), so every loan is added without a branch on which
+                        // members fell short, an event no predictor can learn.
+                        unpaid_principal += loan_unpaid_principal(position.shortfall, principal, cover, sums.shortfall);
                     }
                     s.unpaid_principal = unpaid_principal;
                 }
