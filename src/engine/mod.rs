@@ -277,18 +277,25 @@ mod tests {
         assert_eq!(first.iter().filter(|g| second.contains(g)).count(), intact);
     }
 
-    /// A shortfall the rounding slack absorbs leaves the group repaid, but no peer paid anything,
-    /// so it is no rescue. Incomes 1e-12 below the amount due and no shock: every member is short by
-    /// a rounding-sized amount in every cycle.
+    /// A capacity a rounding-sized amount below the amount due is no shortfall: incomes 1e-12 below
+    /// the amount due and no shock leave every member paying in full, every group shortfall-free
+    /// and nobody rescued, under joint and individual liability alike.
     #[test]
-    fn a_shortfall_absorbed_by_the_slack_alone_is_no_rescue() {
-        let s = scenario("[borrowers]\nincome = 0.999999999999\n[policy]\ngroup_size = 4\npeer_cover = 1.0\n");
-        let t = simulate_replication(&s, 0, 0);
-        assert!(t.group_cycles > 0);
-        assert_eq!(t.member_shortfalls, t.member_loans, "every member is short");
-        assert_eq!(t.groups_repaid, t.group_cycles, "rounding must not default a group");
-        assert_eq!(t.groups_rescued, 0, "nobody covered anything");
-        assert_eq!(t.shortfall_free_groups, 0);
+    fn a_shortfall_within_the_rounding_slack_is_no_shortfall() {
+        for liability in ["joint", "individual"] {
+            let s = scenario(&format!(
+                "[borrowers]\nincome = 0.999999999999\n[policy]\ngroup_size = 4\npeer_cover = 1.0\nliability = \"{liability}\"\n"
+            ));
+            let t = simulate_replication(&s, 0, 0);
+            assert!(t.group_cycles > 0);
+            assert_eq!(t.member_shortfalls, 0, "{liability}: nobody is short");
+            assert_eq!(
+                t.groups_repaid, t.group_cycles,
+                "{liability}: rounding must not default a group"
+            );
+            assert_eq!(t.shortfall_free_groups, t.group_cycles, "{liability}");
+            assert_eq!(t.groups_rescued, 0, "{liability}: nobody covered anything");
+        }
     }
 
     /// Independent members, each short exactly when hit (probability q = 0.1): the share of

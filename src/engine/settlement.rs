@@ -27,18 +27,22 @@ pub struct MemberPosition {
     pub paid_own: f64,
 }
 
-/// The position of a member with capacity `capacity` owing `due`.
+/// The position of a member with capacity `capacity` owing `due`. A capacity within the rounding
+/// slack of the amount due (|C - D| <= `REPAYMENT_SLACK` D) pays D exactly, with neither shortfall
+/// nor surplus: a capacity that equals D on paper but is computed a few units in the last place
+/// below it (an income ratio times (1 - s), say) must not make her short, under either liability.
 #[inline]
 pub fn member_position(capacity: f64, due: f64) -> MemberPosition {
     // Plain comparisons instead of f64::max and f64::min: the same values for every input, NaN
     // included (a NaN difference gives 0, a NaN capacity pays `due`), without the extra
     // instructions those functions spend on NaN operands.
+    let slack = REPAYMENT_SLACK * due;
     let short = due - capacity;
     let spare = capacity - due;
     MemberPosition {
-        shortfall: if short > 0.0 { short } else { 0.0 },
-        surplus: if spare > 0.0 { spare } else { 0.0 },
-        paid_own: if capacity < due { capacity } else { due },
+        shortfall: if short > slack { short } else { 0.0 },
+        surplus: if spare > slack { spare } else { 0.0 },
+        paid_own: if short > slack { capacity } else { due },
     }
 }
 
@@ -58,8 +62,8 @@ pub struct GroupPosition {
 pub struct Settlement {
     /// Whether the unit repaid the amount due in full.
     pub repaid: bool,
-    /// Whether it repaid only because peers covered a shortfall: repaid, with the sum of shortfalls
-    /// above the rounding slack.
+    /// Whether it repaid although a member fell short (beyond the rounding slack of her own amount
+    /// due): repaid, with a positive sum of shortfalls, which the peers' cover paid.
     pub rescued: bool,
     /// Amount collected.
     pub collected: f64,
@@ -82,7 +86,10 @@ pub fn settle_joint(group: GroupPosition, group_due: f64, group_principal: f64, 
     if group.shortfall <= peer_cover * group.surplus + slack {
         Settlement {
             repaid: true,
-            rescued: group.shortfall > slack,
+            // Shortfalls within a member's own slack are already 0 (`member_position`), so a
+            // positive sum means somebody fell short and the group repaid all the same: repaid =
+            // shortfall-free + rescued, exactly.
+            rescued: group.shortfall > 0.0,
             collected: group_due,
             unpaid_principal: 0.0,
         }
@@ -632,19 +639,37 @@ mod tests {
         assert_eq!(broke.unpaid_principal, 18.0);
     }
 
+    /// A capacity a rounding-sized amount from the amount due pays it exactly, under either
+    /// liability; one just beyond the slack is short, and a jointly liable group with that member
+    /// and no surplus defaults.
     #[test]
-    fn a_shortfall_within_the_rounding_slack_is_no_rescue() {
+    fn a_capacity_within_the_rounding_slack_pays_the_amount_due() {
         let due = 110.0;
-        let tiny = member_position(due * (1.0 - 1e-12), due);
-        assert!(tiny.shortfall > 0.0);
+        for capacity in [due * (1.0 - 1e-12), due * (1.0 + 1e-12), 1.25 * 0.8 * due] {
+            let p = member_position(capacity, due);
+            assert_eq!(
+                (p.shortfall, p.surplus, p.paid_own),
+                (0.0, 0.0, due),
+                "capacity {capacity}"
+            );
+            assert!(settle_individual(p, 100.0).repaid);
+            let sums = GroupPosition {
+                shortfall: 5.0 * p.shortfall,
+                surplus: 5.0 * p.surplus,
+                paid_own: 5.0 * p.paid_own,
+            };
+            let s = settle_joint(sums, 5.0 * due, 500.0, 0.0);
+            assert!(s.repaid && !s.rescued, "nobody fell short");
+        }
+        let beyond = member_position(due * (1.0 - 1e-8), due);
+        assert!(beyond.shortfall > 0.0 && beyond.paid_own < due);
+        assert!(!settle_individual(beyond, 100.0).repaid);
         let sums = GroupPosition {
-            shortfall: 5.0 * tiny.shortfall,
+            shortfall: beyond.shortfall,
             surplus: 0.0,
-            paid_own: 5.0 * tiny.paid_own,
+            paid_own: beyond.paid_own + 4.0 * due,
         };
-        let s = settle_joint(sums, 5.0 * due, 500.0, 0.0);
-        assert!(s.repaid, "rounding must not default a group");
-        assert!(!s.rescued, "nobody covered anything");
+        assert!(!settle_joint(sums, 5.0 * due, 500.0, 0.0).repaid);
     }
 
     #[test]
