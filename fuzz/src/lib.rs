@@ -67,8 +67,15 @@ pub fn exercise(text: &str) {
     if member_cycles > MAX_MEMBER_CYCLES {
         return;
     }
-    let results = simulate(&scenario, RunOptions { threads: Some(1), keep_cycle_records: true }, &mut |_| {})
-        .expect("a validated small scenario simulates");
+    let results = simulate(
+        &scenario,
+        RunOptions {
+            threads: Some(1),
+            keep_cycle_records: true,
+        },
+        &mut |_| {},
+    )
+    .expect("a validated small scenario simulates");
     check_invariants(&scenario, &results.arms);
     let report = loancycle::report::build(&scenario, text, ORIGIN, &results);
     let _ = tables::summary_csv(&report);
@@ -127,7 +134,10 @@ pub fn check_invariants(scenario: &Scenario, arms: &[loancycle::stats::ArmTally]
                 "a loan below the first principal or above the cap; {id}"
             );
             if !arm.progressive() {
-                assert!(close(r.disbursed, first), "fixed loans, yet disbursed != loans x principal; {id}");
+                assert!(
+                    close(r.disbursed, first),
+                    "fixed loans, yet disbursed != loans x principal; {id}"
+                );
             }
             assert_eq!(
                 r.able_members + r.member_shortfalls,
@@ -172,8 +182,14 @@ pub fn check_invariants(scenario: &Scenario, arms: &[loancycle::stats::ArmTally]
                 .map(|(n, c)| n as u64 * c)
                 .sum();
             let shortfall_free: u64 = by_size.iter().map(|(_, cells)| cells[0]).sum();
-            assert_eq!(hist_groups, r.group_cycles, "histogram does not count every group; {id}");
-            assert_eq!(hist_short, r.member_shortfalls, "histogram shortfalls != shortfalls; {id}");
+            assert_eq!(
+                hist_groups, r.group_cycles,
+                "histogram does not count every group; {id}"
+            );
+            assert_eq!(
+                hist_short, r.member_shortfalls,
+                "histogram shortfalls != shortfalls; {id}"
+            );
             assert_eq!(
                 r.shortfall_free_groups, shortfall_free,
                 "shortfall-free groups != groups with nobody short in the histogram; {id}"
@@ -202,7 +218,10 @@ pub fn check_invariants(scenario: &Scenario, arms: &[loancycle::stats::ArmTally]
             } else {
                 assert_eq!(r.groups_rescued, 0, "individual: a group was rescued; {id}");
                 if walkers == 0 {
-                    assert_eq!(r.groups_repaid, shortfall_free, "individual: repaid != shortfall-free; {id}");
+                    assert_eq!(
+                        r.groups_repaid, shortfall_free,
+                        "individual: repaid != shortfall-free; {id}"
+                    );
                 }
                 assert_eq!(
                     r.member_defaults,
@@ -218,7 +237,10 @@ pub fn check_invariants(scenario: &Scenario, arms: &[loancycle::stats::ArmTally]
                     }
                 }
                 Exclusion::Permanent => {
-                    assert_eq!(r.excluded_slot_cycles, 0, "permanent exclusion counted as excluded; {id}");
+                    assert_eq!(
+                        r.excluded_slot_cycles, 0,
+                        "permanent exclusion counted as excluded; {id}"
+                    );
                 }
                 Exclusion::Cycles(_) => {}
             }
@@ -244,12 +266,20 @@ pub fn check_invariants(scenario: &Scenario, arms: &[loancycle::stats::ArmTally]
                 assert_eq!(r.fees, 0.0, "fees without a fee rate; {id}");
             }
             if finance.cost_of_funds() == 0.0 && finance.operating_cost() == 0.0 {
-                assert_eq!(r.cost_of_funds + r.operating_cost, 0.0, "costs without [finance] costs; {id}");
+                assert_eq!(
+                    r.cost_of_funds + r.operating_cost,
+                    0.0,
+                    "costs without [finance] costs; {id}"
+                );
             }
             assert!(r.net_income().is_finite(), "net income {}; {id}", r.net_income());
 
             let slots = u64::from(scenario.borrowers()) * u64::from(scenario.cycles());
-            assert_eq!(r.slot_cycles(), slots, "slot-cycles != borrowers x counted cycles; {id}");
+            assert_eq!(
+                r.slot_cycles(),
+                slots,
+                "slot-cycles != borrowers x counted cycles; {id}"
+            );
             assert_eq!(r.cycles.len() as u32, scenario.cycles(), "cycle records; {id}");
             let served: u64 = r.cycles.iter().map(|c| u64::from(c.served)).sum();
             let groups: u64 = r.cycles.iter().map(|c| u64::from(c.groups)).sum();
@@ -929,7 +959,12 @@ impl ScenarioSpec {
         field(&mut out, "interest_rate", &self.interest_rate, Kind::Probability);
         field(&mut out, "recovery_rate", &self.recovery_rate, Kind::Probability);
         field(&mut out, "growth", &self.loan_growth, field_kind("loan.growth"));
-        field(&mut out, "max_multiple", &self.max_multiple, field_kind("loan.max_multiple"));
+        field(
+            &mut out,
+            "max_multiple",
+            &self.max_multiple,
+            field_kind("loan.max_multiple"),
+        );
         if self.income.0.is_some() || self.risk.0.is_some() || self.income_growth.0.is_some() {
             out.push_str("[borrowers]\n");
             if let Some(d) = &self.income.0 {
@@ -938,7 +973,12 @@ impl ScenarioSpec {
             if let Some(d) = &self.risk.0 {
                 let _ = writeln!(out, "risk = {}", d.text(false));
             }
-            field(&mut out, "income_growth", &self.income_growth, field_kind("borrowers.income_growth"));
+            field(
+                &mut out,
+                "income_growth",
+                &self.income_growth,
+                field_kind("borrowers.income_growth"),
+            );
         }
         for (i, shock) in self.shocks.iter().take(8).enumerate() {
             shock.write(&mut out, i, None);
