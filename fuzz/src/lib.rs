@@ -547,6 +547,8 @@ pub enum Kind {
     Bool,
     /// A multiple of the first loan: >= 1.
     Multiple,
+    /// A number strictly between 0 and 1 (a discount factor).
+    OpenUnit,
     /// The name of the shock at this index (`s0`, `s1`, ...), which `[sweep]` keys name.
     ShockName(usize),
 }
@@ -654,6 +656,7 @@ impl Value {
                     Kind::Text => quote(&format!("s{n}")),
                     Kind::Bool => (n % 2 == 0).to_string(),
                     Kind::Multiple => float(1.0 + f64::from(n) / 32.0),
+                    Kind::OpenUnit => float((f64::from(n) + 1.0) / 257.0),
                     Kind::ShockName(i) => quote(&format!("s{i}")),
                 }
             }
@@ -678,6 +681,18 @@ impl<'a, T: Arbitrary<'a>, const P: u8> Arbitrary<'a> for Maybe<T, P> {
     fn arbitrary(u: &mut Unstructured<'a>) -> ArbResult<Self> {
         let present = u.arbitrary::<u8>()? < P;
         Ok(Maybe(if present { Some(u.arbitrary()?) } else { None }))
+    }
+}
+
+/// A field that is present when the first byte is above 255 - `P`, so that an input that runs out of
+/// bytes (the rest read as zeros) leaves it out, where `Maybe` would write it.
+#[derive(Debug)]
+pub struct Seldom<T, const P: u8>(pub Option<T>);
+
+impl<'a, T: Arbitrary<'a>, const P: u8> Arbitrary<'a> for Seldom<T, P> {
+    fn arbitrary(u: &mut Unstructured<'a>) -> ArbResult<Self> {
+        let present = u.arbitrary::<u8>()? > 255 - P;
+        Ok(Seldom(if present { Some(u.arbitrary()?) } else { None }))
     }
 }
 
@@ -824,14 +839,15 @@ pub struct ShockSpec {
     stress: Rare<Vec<StressSpec>>,
 }
 
-/// One `[sweep]` key with its list; `range` replaces the list by 1..=n (deep sweeps).
+/// One `[sweep]` key with its list; `range` replaces the list by 1..=n (deep sweeps, and the empty
+/// list at n = 0); no values at all make a list of one plausible value.
 #[derive(Debug, Arbitrary)]
 pub struct SweepAxis {
     key: u8,
     /// Whether a dotted path is written as a dotted key (`loan.growth`) rather than quoted.
     dotted: bool,
     values: Vec<Value>,
-    range: Rare<u16>,
+    range: Seldom<u16, 64>,
 }
 
 /// The `[behaviour]` table (strategic default); every field may be missing.
@@ -902,7 +918,7 @@ pub struct ScenarioSpec {
     behaviour: Maybe<BehaviourSpec, 80>,
     finance: Maybe<FinanceSpec, 80>,
     /// A table written as a plain value at the top of the file (see `TABLE_NAMES`).
-    table_as_value: Maybe<(u8, Value), 8>,
+    table_as_value: Seldom<(u8, Value), 8>,
     sweep: Rare<Vec<SweepAxis>>,
     /// A line written verbatim at the end (unknown fields, stray syntax).
     extra: Maybe<String, 16>,
@@ -930,6 +946,7 @@ fn field_kind(key: &str) -> Kind {
         "loan.principal" | "borrowers.income" | "borrowers.risk" | "behaviour.temptation" => Kind::Real,
         "behaviour.loan_value" | "behaviour.social_sanction" | "finance.operating_cost" => Kind::Real,
         "loan.max_multiple" => Kind::Multiple,
+        "behaviour.discount" => Kind::OpenUnit,
         "pool.replace_departures" => Kind::Bool,
         "finance.cycles_per_year" => Kind::Count(1, 3),
         "cycles" | "seed" => Kind::Count(1, 6),
@@ -1009,7 +1026,7 @@ impl ScenarioSpec {
         if let Some(b) = &self.behaviour.0 {
             out.push_str("[behaviour]\n");
             field(&mut out, "loan_value", &b.loan_value, Kind::Real);
-            field(&mut out, "discount", &b.discount, Kind::Probability);
+            field(&mut out, "discount", &b.discount, field_kind("behaviour.discount"));
             if let Some(d) = &b.temptation.0 {
                 let _ = writeln!(out, "temptation = {}", d.text(false));
             }
@@ -1034,6 +1051,7 @@ impl ScenarioSpec {
                 seen.push(key);
                 let list = match axis.range.0 {
                     Some(n) => (1..=u32::from(n)).map(|i| i.to_string()).collect::<Vec<_>>(),
+                    None if axis.values.is_empty() => vec![Value::Plausible(axis.key).text(field_kind(key))],
                     None => axis.values.iter().take(64).map(|v| v.text(field_kind(key))).collect(),
                 };
                 let written = if axis.dotted && key.split('.').all(|k| !quote_key(k).starts_with('"')) {
