@@ -1,4 +1,5 @@
-//! Structured scenarios: every field of the format, present or missing, with plausible values,
+//! Structured scenarios: every table and field of the format (`[behaviour]`, `[finance]`, group
+//! size ranges and growing loans and incomes included), present or missing, with plausible values,
 //! extreme numbers, NaN and infinity spellings, huge integers, unicode text, deep sweeps and many
 //! shocks, written as TOML text and run through what the binary does with a file.
 //! Set FUZZ_PRINT_TOML=1 when replaying an input to see the text it stands for.

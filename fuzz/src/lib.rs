@@ -10,7 +10,7 @@ use arbitrary::{Arbitrary, Result as ArbResult, Unstructured};
 use loancycle::analytic::report::analyze;
 use loancycle::output::{analysis, tables, terminal};
 use loancycle::run::{RunOptions, simulate};
-use loancycle::scenario::{Liability, Overrides, Scenario};
+use loancycle::scenario::{Exclusion, Finance, Liability, Overrides, Scenario};
 use loancycle::stats::summary::summarize_arm;
 use std::fmt::Write as _;
 
@@ -67,8 +67,15 @@ pub fn exercise(text: &str) {
     if member_cycles > MAX_MEMBER_CYCLES {
         return;
     }
-    let results = simulate(&scenario, RunOptions { threads: Some(1), keep_cycle_records: true }, &mut |_| {})
-        .expect("a validated small scenario simulates");
+    let results = simulate(
+        &scenario,
+        RunOptions {
+            threads: Some(1),
+            keep_cycle_records: true,
+        },
+        &mut |_| {},
+    )
+    .expect("a validated small scenario simulates");
     check_invariants(&scenario, &results.arms);
     let report = loancycle::report::build(&scenario, text, ORIGIN, &results);
     let _ = tables::summary_csv(&report);
@@ -85,13 +92,24 @@ fn at_most(a: f64, b: f64) -> bool {
     a <= b + ROUNDING * b.abs().max(1.0)
 }
 
-/// The engine's accounting identities, per replication, and the summary's ranges, per arm.
+fn close(a: f64, b: f64) -> bool {
+    at_most(a, b) && at_most(b, a)
+}
+
+/// The engine's accounting identities, per replication, and the summary's ranges, per arm: the
+/// general ones of `tests/engine_properties.rs` (DEVELOPERS.md, "Inputs that must not crash it"),
+/// which hold whatever the scenario switches on: group sizes in a range, `[behaviour]`, growing loans
+/// and incomes, `[finance]`, any exclusion, formation and matching.
 pub fn check_invariants(scenario: &Scenario, arms: &[loancycle::stats::ArmTally]) {
+    let finance = scenario.finance();
     for (a, tally) in arms.iter().enumerate() {
-        let policy = scenario.arms()[a].policy();
+        let arm = &scenario.arms()[a];
+        let policy = arm.policy();
         let (smallest, largest) = (u64::from(policy.min_group_size()), u64::from(policy.max_group_size()));
+        let k = u64::from(policy.group_size());
+        let joint = policy.liability() == Liability::Joint;
         for r in &tally.replications {
-            let id = format!("arm {a}, replication {}: {r:?}", r.replication);
+            let id = format!("arm {a} ({}), replication {}: {r:?}", arm.label(), r.replication);
             assert!(at_most(r.collected, r.due), "collected > due; {id}");
             assert!(r.collected >= 0.0, "collected < 0; {id}");
             assert!(r.loss >= 0.0, "loss < 0; {id}");
@@ -101,33 +119,161 @@ pub fn check_invariants(scenario: &Scenario, arms: &[loancycle::stats::ArmTally]
                 "unpaid principal > disbursed; {id}"
             );
             assert!(
-                at_most(r.loss + r.recovered, r.unpaid_principal) && at_most(r.unpaid_principal, r.loss + r.recovered),
+                close(r.loss + r.recovered, r.unpaid_principal),
                 "loss + recovered != unpaid principal; {id}"
             );
+            assert!(
+                close(r.due, r.disbursed * (1.0 + arm.interest_rate())),
+                "due != disbursed x (1 + interest rate); {id}"
+            );
+            // Every loan lies between the first principal and its cap (one principal when loans
+            // do not grow).
+            let first = r.member_loans as f64 * arm.principal();
+            assert!(
+                at_most(first, r.disbursed) && at_most(r.disbursed, first * arm.max_multiple()),
+                "a loan below the first principal or above the cap; {id}"
+            );
+            if !arm.progressive() {
+                assert!(
+                    close(r.disbursed, first),
+                    "fixed loans, yet disbursed != loans x principal; {id}"
+                );
+            }
+            assert_eq!(
+                r.able_members + r.member_shortfalls,
+                r.member_loans,
+                "able + short != member loans; {id}"
+            );
+            assert!(
+                r.strategic_defaults <= r.able_members,
+                "walk-aways > members able to pay; {id}"
+            );
+            if arm.behaviour().is_none() {
+                assert_eq!(r.strategic_defaults, 0, "a walk-away without [behaviour]; {id}");
+            }
             assert_eq!(
                 r.member_loans, r.served_slot_cycles,
                 "member loans != served slot-cycles; {id}"
             );
             assert!(
                 smallest * r.group_cycles <= r.member_loans && r.member_loans <= largest * r.group_cycles,
-                "member loans outside the group sizes x groups; {id}"
+                "a group outside [min, max]; {id}"
             );
+            if !policy.sizes_vary() {
+                assert_eq!(r.member_loans, k * r.group_cycles, "member loans != k x groups; {id}");
+            }
             assert!(r.groups_repaid <= r.group_cycles, "repaid > groups; {id}");
+            assert!(r.groups_rescued <= r.groups_repaid, "rescued > repaid; {id}");
             assert!(r.member_shortfalls <= r.member_loans, "shortfalls > loans; {id}");
             assert!(r.member_defaults <= r.member_loans, "defaults > loans; {id}");
-            let hist_groups: u64 = r.shortfall_histogram.iter().sum();
+
+            let by_size = r.shortfalls_by_size();
+            for (size, _) in &by_size {
+                let size = u64::from(*size);
+                assert!(
+                    smallest <= size && size <= largest,
+                    "a histogram row for a size outside [min, max]; {id}"
+                );
+            }
+            let hist_groups: u64 = by_size.iter().flat_map(|(_, cells)| cells.iter()).sum();
+            let hist_short: u64 = by_size
+                .iter()
+                .flat_map(|(_, cells)| cells.iter().enumerate())
+                .map(|(n, c)| n as u64 * c)
+                .sum();
+            let shortfall_free: u64 = by_size.iter().map(|(_, cells)| cells[0]).sum();
             assert_eq!(
                 hist_groups, r.group_cycles,
                 "histogram does not count every group; {id}"
             );
-            if policy.liability() == Liability::Joint && smallest == largest {
-                let shortfall_free = r.shortfall_histogram.first().copied().unwrap_or(0);
+            assert_eq!(
+                hist_short, r.member_shortfalls,
+                "histogram shortfalls != shortfalls; {id}"
+            );
+            assert_eq!(
+                r.shortfall_free_groups, shortfall_free,
+                "shortfall-free groups != groups with nobody short in the histogram; {id}"
+            );
+            // A walk-away is no shortfall: with walk-aways a group with nobody short may be rescued
+            // or default, so the repayment identities hold only without them.
+            let walkers = r.strategic_defaults;
+            if joint {
+                if walkers == 0 {
+                    // Only at least: a group whose shortfalls fit within the repayment rounding slack
+                    // counts as repaid but neither shortfall-free nor rescued, an open defect
+                    // (tests/data/fuzz/open/joint_shortfall_within_rounding_slack.toml); equality
+                    // here would report it again and again.
+                    assert!(
+                        r.groups_repaid >= shortfall_free + r.groups_rescued,
+                        "joint: repaid < shortfall-free + rescued; {id}"
+                    );
+                }
+                if !policy.sizes_vary() {
+                    assert_eq!(
+                        r.member_defaults,
+                        k * (r.group_cycles - r.groups_repaid),
+                        "joint: defaults != k x defaulting groups; {id}"
+                    );
+                }
+            } else {
+                assert_eq!(r.groups_rescued, 0, "individual: a group was rescued; {id}");
+                if walkers == 0 {
+                    assert_eq!(
+                        r.groups_repaid, shortfall_free,
+                        "individual: repaid != shortfall-free; {id}"
+                    );
+                }
                 assert_eq!(
-                    r.groups_repaid,
-                    shortfall_free + r.groups_rescued,
-                    "joint: repaid != shortfall-free + rescued; {id}"
+                    r.member_defaults,
+                    r.member_shortfalls + walkers,
+                    "individual: defaults != shortfalls + walk-aways; {id}"
                 );
             }
+            match policy.exclusion_cycles() {
+                Exclusion::Cycles(0) => {
+                    assert_eq!(r.excluded_slot_cycles, 0, "excluded without exclusion; {id}");
+                    if arm.dropout() == 0.0 {
+                        assert_eq!(r.empty_slot_cycles, 0, "empty slots without exclusion or dropout; {id}");
+                    }
+                }
+                Exclusion::Permanent => {
+                    assert_eq!(
+                        r.excluded_slot_cycles, 0,
+                        "permanent exclusion counted as excluded; {id}"
+                    );
+                }
+                Exclusion::Cycles(_) => {}
+            }
+            if policy.exclusion_cycles() != Exclusion::Permanent {
+                assert_eq!(r.removals, 0, "a removal without permanent exclusion; {id}");
+            }
+            assert!(r.removals <= r.exclusion_events, "removals > exclusions; {id}");
+            assert!(
+                r.removed_slot_cycles <= r.empty_slot_cycles,
+                "removed slot-cycles > empty slot-cycles; {id}"
+            );
+            assert!(r.clients_reached <= r.member_loans, "more clients than loans; {id}");
+
+            // Money: fees and costs are finite and never negative, and nothing without [finance].
+            for (name, x) in [
+                ("fees", r.fees),
+                ("cost of funds", r.cost_of_funds),
+                ("operating cost", r.operating_cost),
+            ] {
+                assert!(x.is_finite() && x >= 0.0, "{name} = {x}; {id}");
+            }
+            if finance.fee_rate() == 0.0 {
+                assert_eq!(r.fees, 0.0, "fees without a fee rate; {id}");
+            }
+            if finance.cost_of_funds() == 0.0 && finance.operating_cost() == 0.0 {
+                assert_eq!(
+                    r.cost_of_funds + r.operating_cost,
+                    0.0,
+                    "costs without [finance] costs; {id}"
+                );
+            }
+            assert!(r.net_income().is_finite(), "net income {}; {id}", r.net_income());
+
             let slots = u64::from(scenario.borrowers()) * u64::from(scenario.cycles());
             assert_eq!(
                 r.slot_cycles(),
@@ -135,25 +281,70 @@ pub fn check_invariants(scenario: &Scenario, arms: &[loancycle::stats::ArmTally]
                 "slot-cycles != borrowers x counted cycles; {id}"
             );
             assert_eq!(r.cycles.len() as u32, scenario.cycles(), "cycle records; {id}");
+            let served: u64 = r.cycles.iter().map(|c| u64::from(c.served)).sum();
+            let groups: u64 = r.cycles.iter().map(|c| u64::from(c.groups)).sum();
+            let repaid: u64 = r.cycles.iter().map(|c| u64::from(c.groups_repaid)).sum();
+            let short: u64 = r.cycles.iter().map(|c| u64::from(c.shortfalls)).sum();
+            let excluded: u64 = r.cycles.iter().map(|c| u64::from(c.excluded)).sum();
+            let loss: f64 = r.cycles.iter().map(|c| c.loss).sum();
+            let disbursed: f64 = r.cycles.iter().map(|c| c.disbursed).sum();
+            assert!(
+                served == r.member_loans && groups == r.group_cycles,
+                "cycle records: served or groups; {id}"
+            );
+            assert!(
+                repaid == r.groups_repaid && short == r.member_shortfalls,
+                "cycle records: repaid or shortfalls; {id}"
+            );
+            assert_eq!(excluded, r.excluded_slot_cycles, "cycle records: excluded; {id}");
+            assert!(
+                close(loss, r.loss) && close(disbursed, r.disbursed),
+                "cycle records: loss or disbursed; {id}"
+            );
+            for c in &r.cycles {
+                assert!(
+                    c.loss >= 0.0 && at_most(c.loss, c.disbursed),
+                    "a cycle lost more than it lent; {id}"
+                );
+            }
+            // With a [finance] table the counted cycles make whole years, which share out the
+            // loss; without one a run keeps no years.
+            if !r.years.is_empty() || *finance != Finance::default() {
+                assert_eq!(
+                    r.years.len() as u32,
+                    scenario.cycles() / finance.cycles_per_year(),
+                    "years != counted cycles / cycles per year; {id}"
+                );
+                let year_loss: f64 = r.years.iter().map(|y| y.loss).sum();
+                assert!(close(year_loss, r.loss), "the years' losses != the loss; {id}");
+            }
         }
         let s = summarize_arm(tally, policy.group_size());
         let unit = [
             ("group_repayment", s.group_repayment.map(|i| i.rate)),
             ("member_shortfall_rate", s.member_shortfall_rate),
             ("member_default_rate", s.member_default_rate),
+            ("shortfall_free_group_rate", s.shortfall_free_group_rate),
             ("iid_shortfall_free", s.iid_shortfall_free),
             ("implied_member_failure", s.implied_member_failure),
             ("rescued_rate", s.rescued_rate),
             ("value_repayment_rate", s.value_repayment_rate),
             ("loss_rate", s.loss_rate.map(|i| i.rate)),
+            ("strategic_default_rate", s.strategic_default_rate.map(|i| i.rate)),
             ("served_share", s.served_share),
             ("excluded_share", s.excluded_share),
             ("waiting_share", s.waiting_share),
             ("empty_share", s.empty_share),
+            ("removed_share", s.removed_share),
             ("loss_p50", s.loss_p50),
+            ("loss_p95", s.loss_p95),
             ("loss_p99", s.loss_p99),
+            ("loss_p999", s.loss_p999),
             ("loss_es99", s.loss_es99),
             ("loss_cycle_p99", s.loss_cycle_p99),
+            ("loss_cycle_p999", s.loss_cycle_p999),
+            ("worst_cycle_loss_p50", s.worst_cycle_loss_p50),
+            ("worst_cycle_loss_p99", s.worst_cycle_loss_p99),
         ];
         for (name, value) in unit {
             if let Some(x) = value {
@@ -167,6 +358,18 @@ pub fn check_invariants(scenario: &Scenario, arms: &[loancycle::stats::ArmTally]
         if shares.iter().all(Option::is_some) {
             let total: f64 = shares.iter().flatten().sum();
             assert!((total - 1.0).abs() < 1e-9, "arm {a}: the four shares sum to {total}");
+        }
+        if let Some(mean) = s.mean_group_size {
+            assert!(
+                smallest as f64 <= mean + 1e-9 && mean <= largest as f64 + 1e-9,
+                "arm {a}: mean group size {mean} outside [min, max]"
+            );
+        }
+        if let Some(mean) = s.mean_principal {
+            assert!(
+                at_most(arm.principal(), mean) && at_most(mean, arm.principal() * arm.max_multiple()),
+                "arm {a}: mean principal {mean} below the first loan or above the cap"
+            );
         }
     }
 }
@@ -213,6 +416,15 @@ const SPECIAL_NUMBERS: &[&str] = &[
     "250000000",
     "255",
     "256",
+    "9",
+    "9.000000000000002",
+    "1000",
+    "1000.0000000001",
+    "1e6",
+    "1000001",
+    "1e12",
+    "1000000000001",
+    "24",
     "10000",
     "10001",
     "0x7fffffffffffffff",
@@ -267,6 +479,9 @@ const WORDS: &[&str] = &[
     "ñ",
     "🙂",
     "\u{feff}joint",
+    "credits",
+    "a currency label far longer than twenty-four characters",
+    "\t",
 ];
 
 /// Parameter names of distribution and curve tables (and one that is neither).
@@ -274,7 +489,8 @@ const PARAMS: &[&str] = &[
     "value", "low", "high", "mean", "cv", "sd", "p", "values", "kind", "curve", "q",
 ];
 
-/// Keys of a `[sweep]` table (the seven policy fields, and some that are not).
+/// Keys of a `[sweep]` table: the policy fields by their bare names, the other sweepable fields by
+/// their paths, shock fields of the names the generator writes, and keys that may not be swept.
 const SWEEP_KEYS: &[&str] = &[
     "group_size",
     "liability",
@@ -283,8 +499,34 @@ const SWEEP_KEYS: &[&str] = &[
     "exclusion_scope",
     "formation",
     "matching",
+    "min_group_size",
+    "max_group_size",
+    "size_slack",
+    "policy.group_size",
+    "loan.principal",
+    "loan.interest_rate",
+    "loan.recovery_rate",
+    "loan.growth",
+    "loan.max_multiple",
+    "borrowers.income",
+    "borrowers.risk",
+    "borrowers.income_growth",
+    "behaviour.loan_value",
+    "behaviour.discount",
+    "behaviour.social_sanction",
+    "behaviour.temptation",
+    "pool.dropout",
+    "pool.replace_departures",
+    "shock.s0.probability",
+    "shock.s1.reach",
+    "shock.s0.village_correlation",
+    "shock.s0.severity",
+    "shock.s0.stress.0.probability",
+    "finance.fee_rate",
+    "finance.cycles_per_year",
     "dropout",
     "seed",
+    "cycles",
     "group_size ",
 ];
 
@@ -303,6 +545,12 @@ pub enum Kind {
     Text,
     /// A boolean.
     Bool,
+    /// A multiple of the first loan: >= 1.
+    Multiple,
+    /// A number strictly between 0 and 1 (a discount factor).
+    OpenUnit,
+    /// The name of the shock at this index (`s0`, `s1`, ...), which `[sweep]` keys name.
+    ShockName(usize),
 }
 
 const LIABILITY_WORDS: &[&str] = &["joint", "individual"];
@@ -310,6 +558,7 @@ const EXCLUSION_WORDS: &[&str] = &["0", "1", "3", "permanent"];
 const SCOPE_WORDS: &[&str] = &["group", "defaulters"];
 const FORMATION_WORDS: &[&str] = &["reshuffle", "persistent"];
 const MATCHING_WORDS: &[&str] = &["random", "assortative"];
+const CURRENCY_WORDS: &[&str] = &["credits", "shells", "ℳ", "beads of Lower Varn", " ", "tokens\u{7}"];
 
 /// A value to write after `=`.
 #[derive(Debug)]
@@ -406,6 +655,9 @@ impl Value {
                     }
                     Kind::Text => quote(&format!("s{n}")),
                     Kind::Bool => (n % 2 == 0).to_string(),
+                    Kind::Multiple => float(1.0 + f64::from(n) / 32.0),
+                    Kind::OpenUnit => float((f64::from(n) + 1.0) / 257.0),
+                    Kind::ShockName(i) => quote(&format!("s{i}")),
                 }
             }
             Value::Small(n) => n.to_string(),
@@ -429,6 +681,18 @@ impl<'a, T: Arbitrary<'a>, const P: u8> Arbitrary<'a> for Maybe<T, P> {
     fn arbitrary(u: &mut Unstructured<'a>) -> ArbResult<Self> {
         let present = u.arbitrary::<u8>()? < P;
         Ok(Maybe(if present { Some(u.arbitrary()?) } else { None }))
+    }
+}
+
+/// A field that is present when the first byte is above 255 - `P`, so that an input that runs out of
+/// bytes (the rest read as zeros) leaves it out, where `Maybe` would write it.
+#[derive(Debug)]
+pub struct Seldom<T, const P: u8>(pub Option<T>);
+
+impl<'a, T: Arbitrary<'a>, const P: u8> Arbitrary<'a> for Seldom<T, P> {
+    fn arbitrary(u: &mut Unstructured<'a>) -> ArbResult<Self> {
+        let present = u.arbitrary::<u8>()? > 255 - P;
+        Ok(Seldom(if present { Some(u.arbitrary()?) } else { None }))
     }
 }
 
@@ -575,13 +839,48 @@ pub struct ShockSpec {
     stress: Rare<Vec<StressSpec>>,
 }
 
-/// One `[sweep]` key with its list; `range` replaces the list by 1..=n (deep sweeps).
+/// One `[sweep]` key with its list; `range` replaces the list by 1..=n (deep sweeps, and the empty
+/// list at n = 0); no values at all make a list of one plausible value.
 #[derive(Debug, Arbitrary)]
 pub struct SweepAxis {
     key: u8,
+    /// Whether a dotted path is written as a dotted key (`loan.growth`) rather than quoted.
+    dotted: bool,
     values: Vec<Value>,
-    range: Rare<u16>,
+    range: Seldom<u16, 64>,
 }
+
+/// The `[behaviour]` table (strategic default); every field may be missing.
+#[derive(Debug, Arbitrary)]
+pub struct BehaviourSpec {
+    loan_value: Usual<Value>,
+    discount: Usual<Value>,
+    temptation: Usual<Dist>,
+    social_sanction: Rare<Value>,
+}
+
+/// The `[finance]` table; every field may be missing.
+#[derive(Debug, Arbitrary)]
+pub struct FinanceSpec {
+    cycles_per_year: Maybe<Value, 160>,
+    currency: Maybe<Value, 96>,
+    operating_cost: Maybe<Value, 128>,
+    cost_of_funds: Maybe<Value, 128>,
+    fee_rate: Maybe<Value, 128>,
+}
+
+/// Tables a file may write as a plain value instead (`finance = 3`), a type error the parser must
+/// report in one line.
+const TABLE_NAMES: &[&str] = &[
+    "behaviour",
+    "finance",
+    "policy",
+    "loan",
+    "pool",
+    "portfolio",
+    "borrowers",
+    "sweep",
+];
 
 /// A whole scenario file, field by field; every field may be missing or of any type.
 #[derive(Debug, Arbitrary)]
@@ -596,8 +895,11 @@ pub struct ScenarioSpec {
     principal: Usual<Value>,
     interest_rate: Rare<Value>,
     recovery_rate: Rare<Value>,
+    loan_growth: Rare<Value>,
+    max_multiple: Rare<Value>,
     income: Rare<Dist>,
     risk: Rare<Dist>,
+    income_growth: Rare<Value>,
     shocks: Vec<ShockSpec>,
     /// Extra copies of the first shock, renamed, to reach the limit on the number of shocks.
     shock_copies: Maybe<u16, 8>,
@@ -608,8 +910,15 @@ pub struct ScenarioSpec {
     exclusion_scope: Rare<Value>,
     formation: Rare<Value>,
     matching: Rare<Value>,
+    min_group_size: Rare<Value>,
+    max_group_size: Rare<Value>,
+    size_slack: Rare<Value>,
     dropout: Rare<Value>,
     replace_departures: Rare<Value>,
+    behaviour: Maybe<BehaviourSpec, 80>,
+    finance: Maybe<FinanceSpec, 80>,
+    /// A table written as a plain value at the top of the file (see `TABLE_NAMES`).
+    table_as_value: Seldom<(u8, Value), 8>,
     sweep: Rare<Vec<SweepAxis>>,
     /// A line written verbatim at the end (unknown fields, stray syntax).
     extra: Maybe<String, 16>,
@@ -621,15 +930,27 @@ fn field<const P: u8>(out: &mut String, name: &str, v: &Maybe<Value, P>, kind: K
     }
 }
 
-/// The kind of each `[policy]` field, which a sweep list shares.
-fn policy_kind(key: &str) -> Kind {
-    match key {
+/// The kind of each field a sweep list may name, which its values share: a `[policy]` field by its
+/// bare name or its path, any other field by its path.
+fn field_kind(key: &str) -> Kind {
+    match key.strip_prefix("policy.").unwrap_or(key) {
         "group_size" => Kind::Count(1, 6),
+        "min_group_size" => Kind::Count(1, 6),
+        "max_group_size" => Kind::Count(1, 8),
+        "size_slack" => Kind::Count(0, 3),
         "liability" => Kind::Word(LIABILITY_WORDS),
         "exclusion_cycles" => Kind::Word(EXCLUSION_WORDS),
         "exclusion_scope" => Kind::Word(SCOPE_WORDS),
         "formation" => Kind::Word(FORMATION_WORDS),
         "matching" => Kind::Word(MATCHING_WORDS),
+        "loan.principal" | "borrowers.income" | "borrowers.risk" | "behaviour.temptation" => Kind::Real,
+        "behaviour.loan_value" | "behaviour.social_sanction" | "finance.operating_cost" => Kind::Real,
+        "loan.max_multiple" => Kind::Multiple,
+        "behaviour.discount" => Kind::OpenUnit,
+        "pool.replace_departures" => Kind::Bool,
+        "finance.cycles_per_year" => Kind::Count(1, 3),
+        "cycles" | "seed" => Kind::Count(1, 6),
+        // Shares, probabilities, rates, growth rates and the discount factor.
         _ => Kind::Probability,
     }
 }
@@ -643,6 +964,10 @@ impl ScenarioSpec {
         field(&mut out, "replications", &self.replications, Kind::Count(1, 4));
         field(&mut out, "cycles", &self.cycles, Kind::Count(1, 6));
         field(&mut out, "warmup_cycles", &self.warmup_cycles, Kind::Count(0, 3));
+        if let Some((table, v)) = &self.table_as_value.0 {
+            let name = TABLE_NAMES[*table as usize % TABLE_NAMES.len()];
+            let _ = writeln!(out, "{name} = {}", v.text(Kind::Real));
+        }
         out.push_str("[portfolio]\n");
         field(&mut out, "borrowers", &self.borrowers, Kind::Count(6, 250));
         field(&mut out, "villages", &self.villages, Kind::Count(1, 4));
@@ -650,7 +975,14 @@ impl ScenarioSpec {
         field(&mut out, "principal", &self.principal, Kind::Real);
         field(&mut out, "interest_rate", &self.interest_rate, Kind::Probability);
         field(&mut out, "recovery_rate", &self.recovery_rate, Kind::Probability);
-        if self.income.0.is_some() || self.risk.0.is_some() {
+        field(&mut out, "growth", &self.loan_growth, field_kind("loan.growth"));
+        field(
+            &mut out,
+            "max_multiple",
+            &self.max_multiple,
+            field_kind("loan.max_multiple"),
+        );
+        if self.income.0.is_some() || self.risk.0.is_some() || self.income_growth.0.is_some() {
             out.push_str("[borrowers]\n");
             if let Some(d) = &self.income.0 {
                 let _ = writeln!(out, "income = {}", d.text(false));
@@ -658,13 +990,19 @@ impl ScenarioSpec {
             if let Some(d) = &self.risk.0 {
                 let _ = writeln!(out, "risk = {}", d.text(false));
             }
+            field(
+                &mut out,
+                "income_growth",
+                &self.income_growth,
+                field_kind("borrowers.income_growth"),
+            );
         }
-        for shock in self.shocks.iter().take(8) {
-            shock.write(&mut out, None);
+        for (i, shock) in self.shocks.iter().take(8).enumerate() {
+            shock.write(&mut out, i, None);
         }
         if let (Some(first), Some(copies)) = (self.shocks.first(), self.shock_copies.0) {
             for i in 0..copies.min(300) {
-                first.write(&mut out, Some(i));
+                first.write(&mut out, 0, Some(i));
             }
         }
         out.push_str("[policy]\n");
@@ -676,12 +1014,32 @@ impl ScenarioSpec {
             ("exclusion_scope", &self.exclusion_scope),
             ("formation", &self.formation),
             ("matching", &self.matching),
+            ("min_group_size", &self.min_group_size),
+            ("max_group_size", &self.max_group_size),
+            ("size_slack", &self.size_slack),
         ] {
-            field(&mut out, name, v, policy_kind(name));
+            field(&mut out, name, v, field_kind(name));
         }
         out.push_str("[pool]\n");
         field(&mut out, "dropout", &self.dropout, Kind::Probability);
         field(&mut out, "replace_departures", &self.replace_departures, Kind::Bool);
+        if let Some(b) = &self.behaviour.0 {
+            out.push_str("[behaviour]\n");
+            field(&mut out, "loan_value", &b.loan_value, Kind::Real);
+            field(&mut out, "discount", &b.discount, field_kind("behaviour.discount"));
+            if let Some(d) = &b.temptation.0 {
+                let _ = writeln!(out, "temptation = {}", d.text(false));
+            }
+            field(&mut out, "social_sanction", &b.social_sanction, Kind::Real);
+        }
+        if let Some(f) = &self.finance.0 {
+            out.push_str("[finance]\n");
+            field(&mut out, "cycles_per_year", &f.cycles_per_year, Kind::Count(1, 3));
+            field(&mut out, "currency", &f.currency, Kind::Word(CURRENCY_WORDS));
+            field(&mut out, "operating_cost", &f.operating_cost, Kind::Real);
+            field(&mut out, "cost_of_funds", &f.cost_of_funds, Kind::Probability);
+            field(&mut out, "fee_rate", &f.fee_rate, Kind::Probability);
+        }
         if let Some(axes) = &self.sweep.0 {
             out.push_str("[sweep]\n");
             let mut seen = Vec::new();
@@ -693,9 +1051,15 @@ impl ScenarioSpec {
                 seen.push(key);
                 let list = match axis.range.0 {
                     Some(n) => (1..=u32::from(n)).map(|i| i.to_string()).collect::<Vec<_>>(),
-                    None => axis.values.iter().take(64).map(|v| v.text(policy_kind(key))).collect(),
+                    None if axis.values.is_empty() => vec![Value::Plausible(axis.key).text(field_kind(key))],
+                    None => axis.values.iter().take(64).map(|v| v.text(field_kind(key))).collect(),
                 };
-                let _ = writeln!(out, "{} = [{}]", quote_key(key), list.join(", "));
+                let written = if axis.dotted && key.split('.').all(|k| !quote_key(k).starts_with('"')) {
+                    key.to_owned()
+                } else {
+                    quote_key(key)
+                };
+                let _ = writeln!(out, "{written} = [{}]", list.join(", "));
             }
         }
         if let Some(extra) = &self.extra.0 {
@@ -715,13 +1079,14 @@ fn quote_key(key: &str) -> String {
 }
 
 impl ShockSpec {
-    fn write(&self, out: &mut String, copy: Option<u16>) {
+    /// Writes the `[[shock]]` table of the shock at `index`, or a renamed copy of it.
+    fn write(&self, out: &mut String, index: usize, copy: Option<u16>) {
         out.push_str("[[shock]]\n");
         match copy {
             Some(i) => {
                 let _ = writeln!(out, "name = \"copy {i}\"");
             }
-            None => field(out, "name", &self.name, Kind::Text),
+            None => field(out, "name", &self.name, Kind::ShockName(index)),
         }
         if let Some(scope) = self.scope.0 {
             let scopes = ["member", "group", "village", "portfolio", "household"];
