@@ -199,13 +199,10 @@ pub fn check_invariants(scenario: &Scenario, arms: &[loancycle::stats::ArmTally]
             let walkers = r.strategic_defaults;
             if joint {
                 if walkers == 0 {
-                    // Only at least: a group whose shortfalls fit within the repayment rounding slack
-                    // counts as repaid but neither shortfall-free nor rescued, an open defect
-                    // (tests/data/fuzz/open/joint_shortfall_within_rounding_slack.toml); equality
-                    // here would report it again and again.
-                    assert!(
-                        r.groups_repaid >= shortfall_free + r.groups_rescued,
-                        "joint: repaid < shortfall-free + rescued; {id}"
+                    assert_eq!(
+                        r.groups_repaid,
+                        shortfall_free + r.groups_rescued,
+                        "joint: repaid != shortfall-free + rescued; {id}"
                     );
                 }
                 if !policy.sizes_vary() {
