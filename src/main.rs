@@ -124,10 +124,20 @@ enum Command {
         /// The run's output directory.
         dir: PathBuf,
     },
-    /// Validate a scenario file and list the arms it resolves to, without simulating.
+    /// Validate a scenario file, list the arms it resolves to and estimate the peak memory of running
+    /// it, without simulating.
     Check {
         /// Scenario file (TOML).
         file: PathBuf,
+        /// Replications, overriding the file (as `run --replications` would).
+        #[arg(long, value_parser = clap::value_parser!(u32).range(1..))]
+        replications: Option<u32>,
+        /// Worker threads the memory estimate is for (default: all cores).
+        #[arg(long, value_parser = clap::value_parser!(u16).range(1..))]
+        threads: Option<u16>,
+        /// Estimate the memory of shard I of N (as `run --shard I/N` would hold) instead of the run.
+        #[arg(long, value_name = "I/N")]
+        shard: Option<String>,
     },
     /// Print the built-in baseline scenario, a starting point for your own file.
     DemoScenario,
@@ -544,9 +554,27 @@ fn execute(command: Command) -> Result<(), Failure> {
             print!("{}", demo::BASELINE);
             Ok(())
         }
-        Command::Check { file } => {
-            let (scenario, _, origin) = load(Some(&file))?;
+        Command::Check {
+            file,
+            replications,
+            threads,
+            shard,
+        } => {
+            let overrides = Overrides {
+                replications,
+                seed: None,
+            };
+            let (scenario, _, origin) = load_with(Some(&file), &overrides)?;
+            let shard = shard
+                .map(|s| loancycle::shard::parse(&s, scenario.replications()))
+                .transpose()
+                .map_err(Failure::BadInput)?;
+            let options = run::RunOptions {
+                threads: threads.map(usize::from),
+                ..Default::default()
+            };
             print!("{}", terminal::arms_listing(&scenario, &origin));
+            println!("{}", terminal::memory_line(&scenario, &options, shard));
             Ok(())
         }
         Command::Run {

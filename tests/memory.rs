@@ -145,3 +145,78 @@ fn a_run_above_max_memory_exits_2() {
         .unwrap();
     assert_eq!(ok.code(), Some(0));
 }
+
+/// `check` prints the estimate `run` holds a run to, for the whole run and for one shard, so that a
+/// cluster job can ask for what its task needs: a limit just above the printed figure lets the same
+/// run start, one just below refuses it, and a shard holding half the replications needs less.
+#[test]
+fn check_prints_the_estimate_run_is_held_to() {
+    let dir = tempfile::tempdir().unwrap();
+    let file = dir.path().join("scenario.toml");
+    // enough replications of two arms that the tallies kept weigh beside the program itself
+    std::fs::write(
+        &file,
+        "replications = 2000\ncycles = 4\n[portfolio]\nborrowers = 20\n[loan]\nprincipal = 100\n\
+         [sweep]\ngroup_size = [4, 5]\n",
+    )
+    .unwrap();
+    let check = |extra: &[&str]| {
+        let out = Command::new(env!("CARGO_BIN_EXE_loancycle"))
+            .arg("check")
+            .arg(&file)
+            .args(["--threads", "2"])
+            .args(extra)
+            .output()
+            .unwrap();
+        assert_eq!(out.status.code(), Some(0), "{out:?}");
+        let stdout = String::from_utf8(out.stdout).unwrap();
+        let line = stdout.lines().last().unwrap().to_owned();
+        // "... : 12.3 MiB (0.012 GiB); ..."
+        let gib: f64 = line
+            .split(" GiB)")
+            .next()
+            .and_then(|head| head.rsplit('(').next())
+            .and_then(|g| g.parse().ok())
+            .unwrap_or_else(|| panic!("no estimate in {line:?}"));
+        (line, gib)
+    };
+    let (line, whole) = check(&[]);
+    assert!(
+        line.starts_with("estimated peak memory of the run on 2 threads: "),
+        "{line}"
+    );
+    let (shard_line, half) = check(&["--shard", "2/2"]);
+    assert!(
+        shard_line.contains("shard 2 of 2 (1000 replications) on 2 threads"),
+        "{shard_line}"
+    );
+    assert!(
+        half < whole,
+        "a shard of half the replications: {half} GiB against {whole} GiB"
+    );
+    let run = |limit: f64| {
+        Command::new(env!("CARGO_BIN_EXE_loancycle"))
+            .arg("run")
+            .arg(&file)
+            .arg("--out")
+            .arg(dir.path().join("out"))
+            .args([
+                "--quiet",
+                "--force",
+                "--threads",
+                "2",
+                "--max-memory",
+                &format!("{limit:.3}"),
+            ])
+            .output()
+            .unwrap()
+    };
+    let below = run(whole - 0.001);
+    assert_eq!(below.status.code(), Some(2), "{below:?}");
+    let message = String::from_utf8_lossy(&below.stderr);
+    assert!(
+        message.contains(&format!("needs an estimated {whole:.3} GiB")),
+        "{message}"
+    );
+    assert_eq!(run(whole + 0.001).status.code(), Some(0));
+}

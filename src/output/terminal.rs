@@ -405,6 +405,44 @@ pub fn arms_listing(scenario: &crate::scenario::Scenario, origin: &str) -> Strin
     out
 }
 
+/// The line `check` prints about memory: the estimated peak of the run, or of one shard of it, on the
+/// worker threads of `options`, beside the memory available here. A cluster job sized from it asks
+/// for what its task needs (Slurm's `--mem`) instead of guessing; `run` refuses to start above the
+/// memory available, or above `--max-memory`.
+pub fn memory_line(
+    scenario: &crate::scenario::Scenario,
+    options: &crate::run::RunOptions,
+    shard: Option<crate::checkpoint::ShardId>,
+) -> String {
+    use crate::engine::memory::{BYTES_PER_GIB, available_bytes, estimate_part};
+    let threads = crate::run::worker_threads(options);
+    let (held, what) = match shard {
+        Some(id) => {
+            let held = crate::shard::range(id.index, id.count, scenario.replications()).len() as u32;
+            (
+                held,
+                format!("shard {} of {} ({held} replications)", id.index, id.count),
+            )
+        }
+        None => (scenario.replications(), "the run".to_string()),
+    };
+    let bytes = estimate_part(scenario, threads, held).total_bytes();
+    let threads_text = if threads == 1 {
+        "1 thread".to_string()
+    } else {
+        format!("{threads} threads")
+    };
+    let available = match available_bytes() {
+        Some(a) => format!("{:.3} GiB available here", a as f64 / BYTES_PER_GIB),
+        None => "the memory available here is unknown".to_string(),
+    };
+    format!(
+        "estimated peak memory of {what} on {threads_text}: {:.1} MiB ({:.3} GiB); {available}",
+        bytes as f64 / (1u64 << 20) as f64,
+        bytes as f64 / BYTES_PER_GIB
+    )
+}
+
 /// Outreach per arm: exclusion events always; removals, entrants and removed slots when an arm
 /// removes borrowers for good (with replacement the removed slots refill at once, so the served
 /// share alone hides them); the mean group size when an arm's sizes vary.
