@@ -280,14 +280,24 @@ pub fn worker_threads(options: &RunOptions) -> usize {
         .unwrap_or_else(|| std::thread::available_parallelism().map_or(1, |n| n.get()))
 }
 
-/// Refuses a run whose estimated peak memory exceeds `max_memory_gib`, or without it the memory the
-/// machine has available (checked before any work, after command-line overrides).
+/// The estimated peak memory of a run with `options` that simulates and holds `replications_held`
+/// of the scenario's replications (all of them, or one shard's).
+pub fn memory_estimate(
+    scenario: &Scenario,
+    options: &RunOptions,
+    replications_held: u32,
+) -> crate::engine::memory::MemoryEstimate {
+    crate::engine::memory::estimate_part(scenario, worker_threads(options), replications_held)
+}
+
+/// Refuses a run whose estimated peak memory ([`memory_estimate`]) exceeds `max_memory_gib`, or
+/// without it the memory the machine has available (checked before any work, after command-line
+/// overrides).
 pub fn check_memory(
     scenario: &Scenario,
     options: &RunOptions,
     replications_held: u32,
     max_memory_gib: Option<f64>,
 ) -> Result<(), crate::engine::memory::MemoryError> {
-    let estimate = crate::engine::memory::estimate_part(scenario, worker_threads(options), replications_held);
-    crate::engine::memory::check(&estimate, max_memory_gib)
+    crate::engine::memory::check(&memory_estimate(scenario, options, replications_held), max_memory_gib)
 }

@@ -2,8 +2,9 @@
 //! binomial computation, the money of a hand-checked case, the refusal of a partial year, and
 //! scenarios without `[finance]` unchanged.
 
+mod common;
+
 use loancycle::report::{self, RunReport};
-use loancycle::run::{self, RunOptions};
 use loancycle::scenario::Scenario;
 use loancycle::stats::tolerance::STANDARD_ERRORS;
 use statrs::distribution::{Binomial, DiscreteCDF};
@@ -14,15 +15,7 @@ fn scenario(text: &str) -> Scenario {
 
 fn run(text: &str) -> RunReport {
     let s = scenario(text);
-    let results = run::simulate(
-        &s,
-        RunOptions {
-            threads: Some(2),
-            ..Default::default()
-        },
-        &mut |_| {},
-    )
-    .expect("runs");
+    let results = common::simulate_on(&s, 2);
     report::build(&s, text, "inline.toml", &results)
 }
 

@@ -10,7 +10,9 @@
 //! The parser is driven through `Scenario::from_toml_str`, inside `catch_unwind`, and the binary
 //! through `loancycle check` and `loancycle run`, which must exit 2 with one line for a bad input.
 
-use loancycle::run::{RunOptions, simulate};
+mod common;
+
+use common::simulate_on;
 use loancycle::scenario::{Overrides, Scenario};
 use loancycle::stats::summary::summarize_arm;
 use std::panic::{AssertUnwindSafe, catch_unwind};
@@ -337,15 +339,7 @@ fn simulate_without_panic(name: &str, bytes: &[u8], scenario: Scenario) {
     let scenario = Scenario::from_toml_str_with(&text, ORIGIN, &fewer)
         .unwrap_or_else(|e| panic!("{name}: refused with fewer replications: {e}"));
     catch_unwind(AssertUnwindSafe(|| {
-        let results = simulate(
-            &scenario,
-            RunOptions {
-                threads: Some(1),
-                ..Default::default()
-            },
-            &mut |_| {},
-        )
-        .expect("simulates");
+        let results = simulate_on(&scenario, 1);
         for (tally, arm) in results.arms.iter().zip(scenario.arms()) {
             summarize_arm(tally, arm.policy().group_size());
         }
@@ -525,15 +519,7 @@ fn joint_groups_that_repay_are_shortfall_free_or_rescued() {
     let bytes =
         std::fs::read(fuzz_dir("accepted").join("joint_shortfall_within_rounding_slack.toml")).expect("read the input");
     let scenario = parse_without_panic(name, &bytes).unwrap_or_else(|e| panic!("{name}: refused: {e}"));
-    let results = simulate(
-        &scenario,
-        RunOptions {
-            threads: Some(1),
-            ..Default::default()
-        },
-        &mut |_| {},
-    )
-    .expect("simulates");
+    let results = simulate_on(&scenario, 1);
     for r in &results.arms[0].replications {
         // Without walk-aways, a jointly liable group that repays in full had nobody short or was
         // rescued by peers, the identity tests/engine_properties.rs holds the engine to.

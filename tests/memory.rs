@@ -121,29 +121,27 @@ fn a_run_above_max_memory_exits_2() {
         ("0.001", "GiB of memory, above the 0.00 GiB given by --max-memory"),
         ("-3", "--max-memory = -3 is not allowed"),
     ] {
-        let out = Command::new(env!("CARGO_BIN_EXE_loancycle"))
-            .arg("run")
-            .arg(&file)
-            .arg("--out")
-            .arg(dir.path().join("out"))
-            .args(["--quiet", "--max-memory", limit])
-            .output()
-            .unwrap();
+        let out = run_into(&file, &dir.path().join("out"), &["--quiet", "--max-memory", limit]);
         assert_eq!(out.status.code(), Some(2), "--max-memory {limit}");
         let stderr = String::from_utf8_lossy(&out.stderr);
         assert_eq!(stderr.lines().count(), 1, "{stderr}");
         assert!(stderr.contains(expected), "{stderr}");
         assert!(!dir.path().join("out").exists(), "nothing may be written");
     }
-    let ok = Command::new(env!("CARGO_BIN_EXE_loancycle"))
+    let ok = run_into(&file, &dir.path().join("out"), &["--quiet", "--max-memory", "4"]);
+    assert_eq!(ok.status.code(), Some(0));
+}
+
+/// Runs the binary's `run` on `file` into `out` with `args`, and returns what it did.
+fn run_into(file: &std::path::Path, out: &std::path::Path, args: &[&str]) -> std::process::Output {
+    Command::new(env!("CARGO_BIN_EXE_loancycle"))
         .arg("run")
-        .arg(&file)
+        .arg(file)
         .arg("--out")
-        .arg(dir.path().join("out"))
-        .args(["--quiet", "--max-memory", "4"])
-        .status()
-        .unwrap();
-    assert_eq!(ok.code(), Some(0));
+        .arg(out)
+        .args(args)
+        .output()
+        .unwrap()
 }
 
 /// `check` prints the estimate `run` holds a run to, for the whole run and for one shard, so that a
@@ -195,21 +193,9 @@ fn check_prints_the_estimate_run_is_held_to() {
         "a shard of half the replications: {half} GiB against {whole} GiB"
     );
     let run = |limit: f64| {
-        Command::new(env!("CARGO_BIN_EXE_loancycle"))
-            .arg("run")
-            .arg(&file)
-            .arg("--out")
-            .arg(dir.path().join("out"))
-            .args([
-                "--quiet",
-                "--force",
-                "--threads",
-                "2",
-                "--max-memory",
-                &format!("{limit:.3}"),
-            ])
-            .output()
-            .unwrap()
+        let limit = format!("{limit:.3}");
+        let args = ["--quiet", "--force", "--threads", "2", "--max-memory", &limit];
+        run_into(&file, &dir.path().join("out"), &args)
     };
     let below = run(whole - 0.001);
     assert_eq!(below.status.code(), Some(2), "{below:?}");

@@ -414,7 +414,7 @@ pub fn memory_line(
     options: &crate::run::RunOptions,
     shard: Option<crate::checkpoint::ShardId>,
 ) -> String {
-    use crate::engine::memory::{BYTES_PER_GIB, available_bytes, estimate_part};
+    use crate::engine::memory::{BYTES_PER_GIB, available_bytes};
     let threads = crate::run::worker_threads(options);
     let (held, what) = match shard {
         Some(id) => {
@@ -426,7 +426,7 @@ pub fn memory_line(
         }
         None => (scenario.replications(), "the run".to_string()),
     };
-    let bytes = estimate_part(scenario, threads, held).total_bytes();
+    let bytes = crate::run::memory_estimate(scenario, options, held).total_bytes();
     let threads_text = if threads == 1 {
         "1 thread".to_string()
     } else {
