@@ -58,8 +58,8 @@ pub struct AnnualTail {
 }
 
 impl AnnualTail {
-    fn of(values: &[f64]) -> Self {
-        let sorted = estimate::sorted(values);
+    fn of(mut sorted: Vec<f64>) -> Self {
+        sorted.sort_by(f64::total_cmp);
         AnnualTail {
             mean: estimate::mean_and_se(&sorted).map(|m| m.0),
             p50: estimate::quantile_sorted(&sorted, 0.5),
@@ -165,30 +165,36 @@ pub fn arm_finance(
     let finance = scenario.finance();
     let cpy = finance.cycles_per_year().max(1);
     let reps = &tally.replications;
-    let all_years: Vec<Year> = reps.iter().flat_map(|r| r.years.iter().copied()).collect();
+    // One value per replication-year is all the annual quantiles need (the median among them),
+    // so only those are collected, and sorted in place.
+    let mut rates: Vec<f64> = Vec::new();
+    let mut amounts: Vec<f64> = Vec::new();
+    for r in reps {
+        rates.extend(r.years.iter().filter_map(Year::loss_rate));
+        amounts.extend(r.years.iter().map(|y| y.loss));
+    }
     // Counted from the run's shape: a run without a [finance] table keeps no per-year records (a
     // year would be one cycle), but its money figures are still per year.
     let n_years = reps.len() as u64 * u64::from(scenario.cycles() / cpy);
-    let rates: Vec<f64> = all_years.iter().filter_map(Year::loss_rate).collect();
-    let amounts: Vec<f64> = all_years.iter().map(|y| y.loss).collect();
-    let annual_loss_rate = AnnualTail::of(&rates);
-    let annual_loss_amount = AnnualTail::of(&amounts);
+    let annual_loss_rate = AnnualTail::of(rates);
+    let annual_loss_amount = AnnualTail::of(amounts);
 
     let per_year = |total: f64| if n_years > 0 { total / n_years as f64 } else { 0.0 };
-    let sum = |f: fn(&ReplicationTally) -> f64| reps.iter().map(f).sum::<f64>();
+    let totals = crate::stats::tally::totals(reps.iter());
+    let sum = |f: fn(&ReplicationTally) -> f64| f(&totals);
     let interest = |r: &ReplicationTally| interest_collected(r.collected, r.disbursed, r.loss, r.recovered);
     let disbursed = sum(|r| r.disbursed);
     let principal_outstanding = per_year(disbursed) / f64::from(cpy);
     let oss = estimate::ratio(
         reps.iter()
-            .map(|r| (interest(r) + r.fees, r.cost_of_funds + r.loss + r.operating_cost)),
+            .map(|r| (interest(&r) + r.fees, r.cost_of_funds + r.loss + r.operating_cost)),
     )
     .map(Interval::from);
     let unexpected_loss_999 = annual_loss_amount.p999.zip(annual_loss_amount.mean).map(|(q, m)| q - m);
     let money = Money {
         disbursed: per_year(disbursed),
         principal_outstanding,
-        interest_collected: per_year(reps.iter().map(interest).sum()),
+        interest_collected: per_year(reps.iter().map(|r| interest(&r)).sum()),
         fees: per_year(sum(|r| r.fees)),
         expected_loss: per_year(sum(|r| r.loss)),
         unexpected_loss_999,
@@ -197,8 +203,8 @@ pub fn arm_finance(
         operational_self_sufficiency: oss,
     };
 
-    let loans: u64 = reps.iter().map(|r| r.member_loans).sum();
-    let defaults: u64 = reps.iter().map(|r| r.member_defaults).sum();
+    let loans: u64 = totals.member_loans;
+    let defaults: u64 = totals.member_defaults;
     let per_cycle = (loans > 0).then(|| defaults as f64 / loans as f64);
     let annual_default_rate = per_cycle.map(|p| annual_rate(p, cpy));
     let lgd = 1.0 - arm.recovery_rate();

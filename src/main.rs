@@ -612,6 +612,8 @@ fn execute(command: Command) -> Result<(), Failure> {
             }
             let options = run::RunOptions {
                 threads: threads.map(usize::from),
+                // finished replications beyond the last thousand or so wait on disk, not in memory
+                spill_dir: Some(out.clone()),
                 ..Default::default()
             };
             let (range, checkpoint_path, final_shard) = match shard {
@@ -775,6 +777,9 @@ fn execute(command: Command) -> Result<(), Failure> {
                 }
             };
             let mut report = report::build_with_baseline(&scenario, &text, &origin, &results, baseline);
+            if let Some(e) = results.read_failure() {
+                return Err(Failure::Running(e.to_string()));
+            }
             if partial.done_until < partial.end {
                 report.incomplete = Some(report::Incomplete {
                     replications_done: partial.done_until,

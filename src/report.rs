@@ -5,8 +5,8 @@ use crate::companion::SimulationCompanion;
 use crate::group_size::GroupSizeRow;
 use crate::run::RunResults;
 use crate::scenario::{Arm, Scenario};
+use crate::stats::ReplicationList;
 use crate::stats::compare::{self, ComparedArm};
-use crate::stats::replications::ReplicationFigures;
 use crate::stats::select::{self, Selection};
 use crate::stats::summary::{self, ArmSummary, CyclePoint};
 use serde::Serialize;
@@ -37,9 +37,10 @@ pub struct ArmReport {
     pub on_frontier: Option<bool>,
     /// The year, money and capital (`[finance]`; a year is one cycle without it).
     pub finance: crate::finance::ArmFinance,
-    /// Per-replication figures, in replication order (replications.csv, not summary.json).
+    /// The arm's replications, in replication order, for replications.csv (not summary.json):
+    /// shares the run's list, on disk for a long run.
     #[serde(skip)]
-    pub replications: Vec<ReplicationFigures>,
+    pub replications: ReplicationList,
 }
 
 /// Everything a run reports.
@@ -175,7 +176,7 @@ pub fn build_with_baseline(
             analytic_group_repayment: analytic.group_repayment(i),
             closed_form_optimum: analytic.closed_form_optimum(i),
             time_series: summary::time_series(tally, scenario),
-            replications: tally.replications.iter().map(ReplicationFigures::from_tally).collect(),
+            replications: tally.replications.clone(),
         })
         .collect();
     RunReport {

@@ -23,7 +23,12 @@ fn cycle_hit_shares(s: &Scenario) -> Vec<f64> {
     results.arms[0]
         .replications
         .iter()
-        .flat_map(|r| r.cycles.iter().map(|c| f64::from(c.shortfalls) / f64::from(c.served)))
+        .flat_map(|r| {
+            r.cycles
+                .iter()
+                .map(|c| f64::from(c.shortfalls) / f64::from(c.served))
+                .collect::<Vec<_>>()
+        })
         .collect()
 }
 

@@ -237,7 +237,7 @@ fn the_cap_removes_the_reward_of_growth_and_a_walk_away_restarts_the_loan() {
     let results = simulate(&s);
     let summary = arm_summary(&s, &results, 0);
     assert_eq!(summary.mean_principal, Some(150.0));
-    let t = &results.arms[0].replications[0];
+    let t = &results.arms[0].replications.get(0).unwrap();
     assert_eq!((t.member_loans, t.able_members), (9 * 40, 9 * 40));
     assert_eq!(t.strategic_defaults, 3 * 40);
     assert_eq!(t.groups_repaid * 3, t.group_cycles * 2);

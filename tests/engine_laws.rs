@@ -415,7 +415,7 @@ fn risk_multipliers_and_severities_enter_as_specified() {
 fn dependence_ratio_and_se(results: &loancycle::run::RunResults, arm: usize, k: u32) -> (f64, f64) {
     let reps = &results.arms[arm].replications;
     let n = reps.len() as f64;
-    let sum = |f: fn(&loancycle::stats::ReplicationTally) -> u64| reps.iter().map(|r| f(r) as f64).sum::<f64>();
+    let sum = |f: fn(&loancycle::stats::ReplicationTally) -> u64| reps.iter().map(|r| f(&r) as f64).sum::<f64>();
     let (free, groups) = (sum(|r| r.shortfall_free_groups), sum(|r| r.group_cycles));
     let (short, loans) = (sum(|r| r.member_shortfalls), sum(|r| r.member_loans));
     let (a, q) = (free / groups, short / loans);

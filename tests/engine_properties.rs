@@ -733,6 +733,7 @@ fn invariants_hold_on_random_valid_scenarios() {
             loancycle::run::RunOptions {
                 threads: Some(1),
                 keep_cycle_records: true,
+                ..Default::default()
             },
             &mut |_| {},
         )
@@ -742,7 +743,7 @@ fn invariants_hold_on_random_valid_scenarios() {
                 "replication count".into()
             })?;
             for r in &tally.replications {
-                check_replication(&case, &s, arm, r).map_err(|e| TestCaseError::fail(format!("{e}\n{text}")))?;
+                check_replication(&case, &s, arm, &r).map_err(|e| TestCaseError::fail(format!("{e}\n{text}")))?;
                 replications_checked.set(replications_checked.get() + 1);
             }
             check_summary(&s, &results, arm).map_err(|e| TestCaseError::fail(format!("{e}\n{text}")))?;

@@ -66,7 +66,7 @@ fn results_are_identical_for_one_and_two_threads() {
     let two = simulate_on(&s, 2);
     assert_eq!(one.arms, two.arms);
     // and the run did something: loans, losses and exclusions happened
-    let t = &one.arms[2].replications[0];
+    let t = &one.arms[2].replications.get(0).unwrap();
     assert!(t.member_loans > 0 && t.loss > 0.0 && t.excluded_slot_cycles > 0);
 }
 
@@ -78,10 +78,11 @@ fn dropping_the_cycle_records_changes_no_figure() {
     let options = |keep| RunOptions {
         threads: Some(2),
         keep_cycle_records: keep,
+        ..Default::default()
     };
     let kept = run::simulate(&s, options(true), &mut |_| {}).unwrap();
     let dropped = run::simulate(&s, options(false), &mut |_| {}).unwrap();
-    assert!(kept.arms[0].replications[0].cycles.len() == s.cycles() as usize);
+    assert!(kept.arms[0].replications.get(0).unwrap().cycles.len() == s.cycles() as usize);
     assert!(
         dropped
             .arms
@@ -155,7 +156,7 @@ fn arms_share_their_random_draws() {
     );
     let results = simulate(&s);
     let first = &results.arms[0];
-    assert!(first.replications[0].member_shortfalls > 0);
+    assert!(first.replications.get(0).unwrap().member_shortfalls > 0);
     for other in &results.arms[1..] {
         assert_eq!(first, other);
     }
@@ -354,6 +355,7 @@ fn the_kept_tail_gives_the_figures_of_all_values() {
     let options = RunOptions {
         threads: Some(2),
         keep_cycle_records: true,
+        ..Default::default()
     };
     let results = run::simulate(&s, options, &mut |_| {}).unwrap();
     for (a, arm) in s.arms().iter().enumerate() {
@@ -363,7 +365,7 @@ fn the_kept_tail_gives_the_figures_of_all_values() {
             "the tail is pruned"
         );
         let mut everything = loancycle::stats::ArmTally::new(kept.cycles_per_year, u64::MAX);
-        kept.replications.iter().cloned().for_each(|r| everything.push(r));
+        kept.replications.iter().for_each(|r| everything.push(r.into_owned()));
         assert_eq!(everything.cycle_tail.len(), everything.lent_cycles());
         let k = arm.policy().group_size();
         let summary = |t| loancycle::stats::summary::summarize_arm(t, k);
@@ -375,4 +377,85 @@ fn the_kept_tail_gives_the_figures_of_all_values() {
             "arm {a}"
         );
     }
+}
+
+/// Enough replications that a run told to keep them on disk does so (more than
+/// `MEMORY_RECORDS` twice over), two arms and years, so every figure built from per-replication
+/// records passes over a list that is mostly on disk.
+const MANY_REPLICATIONS: &str = r#"
+    name = "replications kept on disk"
+    seed = 31
+    replications = 2600
+    cycles = 8
+    warmup_cycles = 0
+    [portfolio]
+    borrowers = 24
+    villages = 3
+    [loan]
+    principal = 100.0
+    interest_rate = 0.1
+    recovery_rate = 0.2
+    [[shock]]
+    name = "illness"
+    scope = "member"
+    probability = 0.1
+    village_correlation = 0.2
+    [policy]
+    group_size = 4
+    peer_cover = 0.5
+    exclusion_cycles = 1
+    [finance]
+    cycles_per_year = 4
+    currency = "crowns"
+    [sweep]
+    "policy.peer_cover" = [0.2, 0.8]
+"#;
+
+#[test]
+fn keeping_replications_on_disk_changes_no_output_byte() {
+    let s = scenario(MANY_REPLICATIONS);
+    assert!(s.replications() as usize > 2 * loancycle::stats::replication_list::MEMORY_RECORDS);
+    let base = std::env::temp_dir().join(format!("loancycle-spill-test-{}", std::process::id()));
+    let spill = base.join("spill");
+    std::fs::create_dir_all(&spill).unwrap();
+    let in_memory = run::simulate(&s, RunOptions::default(), &mut |_| {}).unwrap();
+    let on_disk = run::simulate(
+        &s,
+        RunOptions {
+            spill_dir: Some(spill.clone()),
+            ..Default::default()
+        },
+        &mut |_| {},
+    )
+    .unwrap();
+    // the files have no names: nothing is left in the directory, during the run or after it
+    assert_eq!(std::fs::read_dir(&spill).unwrap().count(), 0);
+    if cfg!(unix) {
+        for a in &on_disk.arms {
+            assert!(a.replications.on_disk() >= 2 * loancycle::stats::replication_list::MEMORY_RECORDS);
+        }
+    }
+    assert_eq!(in_memory.arms, on_disk.arms);
+    assert!(on_disk.read_failure().is_none());
+    let mut written = Vec::new();
+    for (name, results) in [("memory", &in_memory), ("disk", &on_disk)] {
+        let report = loancycle::report::build(&s, MANY_REPLICATIONS, "many.toml", results);
+        let dir = base.join(name);
+        loancycle::output::write_all(&dir, &report, true, &|| false).unwrap();
+        written.push(dir);
+    }
+    let mut files: Vec<_> = std::fs::read_dir(&written[0])
+        .unwrap()
+        .map(|e| e.unwrap().file_name())
+        .collect();
+    files.sort();
+    assert!(files.iter().any(|f| f == "replications.csv"), "{files:?}");
+    for f in &files {
+        let (a, b) = (
+            std::fs::read(written[0].join(f)).unwrap(),
+            std::fs::read(written[1].join(f)).unwrap(),
+        );
+        assert!(a == b, "{} differs", f.to_string_lossy());
+    }
+    std::fs::remove_dir_all(&base).unwrap();
 }

@@ -72,6 +72,7 @@ pub fn exercise(text: &str) {
         RunOptions {
             threads: Some(1),
             keep_cycle_records: true,
+            ..Default::default()
         },
         &mut |_| {},
     )

@@ -10,18 +10,21 @@
 //!   blocks and the tally being filled with its per-cycle records;
 //! - the batch in hand: its replications' tallies with their per-cycle records, until they are
 //!   digested;
-//! - every finished replication's tally, without per-cycle records (its years are kept), and the
-//!   figures the report makes of it; kept until the report is built;
+//! - finished replications' tallies, without per-cycle records (their years are kept): all of
+//!   them for a run of at most about a thousand replications, otherwise only those not yet moved
+//!   to the run's file of replications (see `stats::replication_list`), with the buffer that
+//!   moves them;
 //! - per arm, the upper tail of the per-cycle loss rates (about 2% of the replication-cycles) and
 //!   the per-cycle sums of the time series;
 //! - while one arm is summarised, sorted copies of its per-replication and per-year figures;
 //! - a fixed base for the program, its thread stacks and the report.
 //!
-//! So memory grows with replications by a fixed amount per replication (and year), and no longer
-//! with replications x cycles.
+//! So memory grows with replications only by the values the quantiles over replications (and
+//! replication-years) are read from, tens of bytes each, and no longer with replications x cycles.
+//! The estimate is of the command line's run, which keeps replications on disk (on Unix); a
+//! library caller without `RunOptions::spill_dir` holds every finished replication in memory.
 
 use crate::scenario::{Formation, Scenario, ShockScope};
-use crate::stats::replications::ReplicationFigures;
 use crate::stats::{CycleRecord, CycleSums, ReplicationTally, Year};
 
 /// Bytes in one GiB (2^30), the unit of `--max-memory` and of the messages.
@@ -47,12 +50,16 @@ const VILLAGE_SLOT_BYTES: u64 = 16 + 8 + 8 + 24 + 4 + 8 + 24;
 const VILLAGE_SHOCK_BYTES: u64 = 8;
 /// Per kept per-cycle loss rate: the entry (16 bytes), doubled for the heap's growth by doubling.
 const TAIL_ENTRY_BYTES: u64 = 32;
-/// Per replication while one arm is summarised: its loss rate and worst cycle, each with a sorted
-/// copy.
-const SUMMARY_REPLICATION_BYTES: u64 = 32;
-/// Per replication-year while one arm is summarised: the years gathered, their rates and amounts
-/// with sorted copies.
-const SUMMARY_YEAR_BYTES: u64 = 16 + 4 * 8;
+/// Per replication while one arm is summarised: its loss rate and worst cycle (sorted in place),
+/// the per-replication counts of the per-cycle quantiles' intervals (two doubles), and the heap's
+/// growth by doubling; measured 55 bytes (`scripts/memory_bench.sh`, one arm).
+const SUMMARY_REPLICATION_BYTES: u64 = 56;
+/// Per replication beside it when the run has several arms: the pairs of numerator and
+/// denominator of the two arms of a paired difference; measured 22 bytes.
+const SUMMARY_PAIRED_BYTES: u64 = 24;
+/// Per replication-year while one arm is summarised: its loss rate and amount, sorted in place;
+/// measured 14.5 bytes.
+const SUMMARY_YEAR_BYTES: u64 = 16;
 /// Per counted cycle and arm beyond the struct: the two exact sums' partials (a few doubles each)
 /// with the allocator's share.
 const CYCLE_SUMS_HEAP_BYTES: u64 = 2 * (32 + 4 * 8);
@@ -128,14 +135,10 @@ pub fn estimate_part(scenario: &Scenario, threads: usize, replications_held: u32
     let histogram = histogram_cells * 8 + ALLOCATION_BYTES;
     // A replication in flight: the struct, its per-cycle records and histogram.
     let in_flight = tally_bytes + cycles * record_bytes + histogram + ALLOCATION_BYTES;
-    // A finished replication: the struct, its histogram and years, and the report's figures of
-    // it. The arm's list grows by doubling, but the pages of its spare capacity are never touched
-    // (large blocks are mapped, and grown by remapping), so they are not resident.
-    let finished = tally_bytes
-        + histogram
-        + years * std::mem::size_of::<Year>() as u64
-        + 2 * ALLOCATION_BYTES
-        + std::mem::size_of::<ReplicationFigures>() as u64;
+    // A finished replication in memory: the struct, its histogram and years. The arm's list grows
+    // by doubling, but the pages of its spare capacity are never touched (large blocks are mapped,
+    // and grown by remapping), so they are not resident. The report shares the list.
+    let finished = tally_bytes + histogram + years * std::mem::size_of::<Year>() as u64 + 2 * ALLOCATION_BYTES;
 
     let per_slot = SLOT_BYTES + member_shocks * SLOT_SHOCK_BYTES + if persistent { SLOT_PERSISTENT_BYTES } else { 0 };
     let worker_bytes =
@@ -146,11 +149,24 @@ pub fn estimate_part(scenario: &Scenario, threads: usize, replications_held: u32
     let tail =
         crate::stats::cycle_tail::tail_capacity(scenario.replications, scenario.cycles).min(replications * cycles);
     let cycle_sums = cycles * (std::mem::size_of::<CycleSums>() as u64 + CYCLE_SUMS_HEAP_BYTES);
+    // Replications in memory per arm: all of them, or with a file of replications those since
+    // the last move to disk (at most MEMORY_RECORDS and a batch), plus the buffer that encodes
+    // them for the move (about one tally each).
+    let held = if cfg!(unix) {
+        replications.min(crate::stats::replication_list::MEMORY_RECORDS as u64 + 1 + batch)
+    } else {
+        replications
+    };
+    let moving = if held < replications { held * tally_bytes } else { 0 };
+    let paired = if arms > 1 { SUMMARY_PAIRED_BYTES } else { 0 };
     MemoryEstimate {
         workers,
         worker_bytes,
-        tally_bytes: tasks * finished + batch * arms * in_flight + arms * (tail * TAIL_ENTRY_BYTES + cycle_sums),
-        summary_bytes: replications * SUMMARY_REPLICATION_BYTES
+        tally_bytes: arms * held * finished
+            + moving
+            + batch * arms * in_flight
+            + arms * (tail * TAIL_ENTRY_BYTES + cycle_sums),
+        summary_bytes: replications * (SUMMARY_REPLICATION_BYTES + paired)
             + replications * years * SUMMARY_YEAR_BYTES
             + tail * TAIL_ENTRY_BYTES / 2,
         base_bytes: BASE_BYTES,

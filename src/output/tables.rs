@@ -5,6 +5,7 @@
 
 use crate::report::{ArmReport, RunReport};
 use crate::scenario::{ExclusionScope, Formation, Liability, Matching};
+use crate::stats::replications::ReplicationFigures;
 use crate::stats::summary::Interval;
 use serde::{Serialize, Serializer};
 
@@ -425,46 +426,54 @@ pub fn write_replications_csv(out: impl std::io::Write, report: &RunReport) -> s
     write_csv(
         out,
         report.arms.iter().flat_map(|a| {
-            a.replications.iter().map(move |r| ReplicationRow {
-                arm: a.arm.label(),
-                replication: r.replication,
-                group_repayment_rate: Cell(r.group_repayment_rate()),
-                groups_repaid: r.groups_repaid,
-                group_cycles: r.group_cycles,
-                loss_rate: Cell(r.loss_rate()),
-                loss: Cell(Some(r.loss)),
-                disbursed: Cell(Some(r.disbursed)),
-                net_yield: Cell(r.net_yield()),
-                collected: Cell(Some(r.collected)),
-                recovered: Cell(Some(r.recovered)),
-                served_share: Cell(r.served_share()),
-                excluded_share: Cell(r.excluded_share()),
-                served_slot_cycles: r.served_slot_cycles,
-                excluded_slot_cycles: r.excluded_slot_cycles,
-                slot_cycles: r.slot_cycles,
-                member_default_rate: Cell(r.member_default_rate()),
-                member_defaults: r.member_defaults,
-                member_loans: r.member_loans,
-                worst_cycle_loss: Cell(r.worst_cycle_loss),
-                exclusion_events: r.exclusion_events,
-                exclusion_event_rate: Cell(r.exclusion_event_rate()),
-                removals: r.removals,
-                removal_rate: Cell(r.removal_rate()),
-                entrants: r.entrants,
-                entrant_rate: Cell(r.entrant_rate()),
-                clients_reached: r.clients_reached,
-                removed_slot_cycles: r.removed_slot_cycles,
-                removed_share: Cell(r.removed_share()),
-                strategic_default_rate: Cell(r.strategic_default_rate()),
-                strategic_defaults: r.strategic_defaults,
-                able_members: r.able_members,
-                mean_principal: Cell(r.mean_principal()),
-                fees: Cell(Some(r.fees)),
-                cost_of_funds: Cell(Some(r.cost_of_funds)),
-                operating_cost: Cell(Some(r.operating_cost)),
+            a.replications.iter().map(move |r| {
+                let r = ReplicationFigures::from_tally(&r);
+                ReplicationRow {
+                    arm: a.arm.label(),
+                    replication: r.replication,
+                    group_repayment_rate: Cell(r.group_repayment_rate()),
+                    groups_repaid: r.groups_repaid,
+                    group_cycles: r.group_cycles,
+                    loss_rate: Cell(r.loss_rate()),
+                    loss: Cell(Some(r.loss)),
+                    disbursed: Cell(Some(r.disbursed)),
+                    net_yield: Cell(r.net_yield()),
+                    collected: Cell(Some(r.collected)),
+                    recovered: Cell(Some(r.recovered)),
+                    served_share: Cell(r.served_share()),
+                    excluded_share: Cell(r.excluded_share()),
+                    served_slot_cycles: r.served_slot_cycles,
+                    excluded_slot_cycles: r.excluded_slot_cycles,
+                    slot_cycles: r.slot_cycles,
+                    member_default_rate: Cell(r.member_default_rate()),
+                    member_defaults: r.member_defaults,
+                    member_loans: r.member_loans,
+                    worst_cycle_loss: Cell(r.worst_cycle_loss),
+                    exclusion_events: r.exclusion_events,
+                    exclusion_event_rate: Cell(r.exclusion_event_rate()),
+                    removals: r.removals,
+                    removal_rate: Cell(r.removal_rate()),
+                    entrants: r.entrants,
+                    entrant_rate: Cell(r.entrant_rate()),
+                    clients_reached: r.clients_reached,
+                    removed_slot_cycles: r.removed_slot_cycles,
+                    removed_share: Cell(r.removed_share()),
+                    strategic_default_rate: Cell(r.strategic_default_rate()),
+                    strategic_defaults: r.strategic_defaults,
+                    able_members: r.able_members,
+                    mean_principal: Cell(r.mean_principal()),
+                    fees: Cell(Some(r.fees)),
+                    cost_of_funds: Cell(Some(r.cost_of_funds)),
+                    operating_cost: Cell(Some(r.operating_cost)),
+                }
             })
         }),
-    )
+    )?;
+    // a pass that met a failed read of replications kept on disk wrote only part of the rows
+    match report.arms.iter().find_map(|a| a.replications.read_failure()) {
+        Some(e) => Err(std::io::Error::other(e.to_string())),
+        None => Ok(()),
+    }
 }
 
 /// One row of timeseries.csv.

@@ -86,7 +86,7 @@ pub struct ComparedArm<'a> {
 }
 
 fn pairs(tally: &ArmTally, metric: Metric) -> Vec<(f64, f64)> {
-    tally.replications.iter().map(metric.1).collect()
+    tally.replications.iter().map(|r| metric.1(&r)).collect()
 }
 
 /// R_a - R_b for one figure, paired by replication; `None` where either pooled denominator is zero.
@@ -94,9 +94,10 @@ pub fn paired(a: &ArmTally, b: &ArmTally, metric: Metric) -> Option<RatioEstimat
     estimate::paired_ratio_difference(&pairs(a, metric), &pairs(b, metric))
 }
 
-/// The standard error of one arm's pooled figure on its own.
-fn own_se(tally: &ArmTally, metric: Metric) -> Option<f64> {
-    estimate::ratio(pairs(tally, metric)).and_then(|r| r.standard_error)
+/// The standard error of one arm's pooled figure on its own, from its (numerator, denominator)
+/// pairs.
+fn own_se(pairs: &[(f64, f64)]) -> Option<f64> {
+    estimate::ratio(pairs.iter().copied()).and_then(|r| r.standard_error)
 }
 
 /// Every other arm against arm `baseline` on each figure of [`COMPARED`], in arm order.
@@ -118,8 +119,10 @@ pub fn differences(arms: &[ComparedArm], baseline: usize) -> Vec<ArmDifference> 
 fn pair_rows(arm: &ComparedArm, base: &ComparedArm) -> Vec<ArmDifference> {
     let mut out = Vec::new();
     for metric in COMPARED {
-        if let Some(d) = paired(arm.tally, base.tally, metric) {
-            let unpaired = match (own_se(arm.tally, metric), own_se(base.tally, metric)) {
+        // one pass over each arm's replications per figure (they may be read back from disk)
+        let (arm_pairs, base_pairs) = (pairs(arm.tally, metric), pairs(base.tally, metric));
+        if let Some(d) = estimate::paired_ratio_difference(&arm_pairs, &base_pairs) {
+            let unpaired = match (own_se(&arm_pairs), own_se(&base_pairs)) {
                 (Some(a), Some(b)) => Some((a * a + b * b).sqrt()),
                 _ => None,
             };

@@ -86,9 +86,13 @@ pub fn expected_shortfall_sorted(sorted: &[f64], q: f64) -> Option<f64> {
 
 /// Sorts a copy of the values in ascending order (NaN never occurs: rates are finite by design).
 pub fn sorted(values: &[f64]) -> Vec<f64> {
-    let mut v = values.to_vec();
-    v.sort_by(f64::total_cmp);
-    v
+    sorted_owned(values.to_vec())
+}
+
+/// `values` in ascending order, sorted in place (no second copy alive while summarising).
+pub fn sorted_owned(mut values: Vec<f64>) -> Vec<f64> {
+    values.sort_by(f64::total_cmp);
+    values
 }
 
 #[cfg(test)]

@@ -10,10 +10,12 @@ pub mod compare;
 pub mod cycle_tail;
 pub mod estimate;
 pub mod exact_sum;
+pub mod replication_list;
 pub mod replications;
 pub mod select;
 pub mod summary;
 pub mod tally;
 pub mod tolerance;
 
+pub use replication_list::ReplicationList;
 pub use tally::{ArmTally, CycleRecord, CycleSums, ReplicationTally, Year};

@@ -106,7 +106,7 @@ impl ConstrainedFigure {
         match self {
             ConstrainedFigure::Rate(metric) => {
                 let z = inv_cdf(1.0 - alpha);
-                match estimate::ratio(tally.replications.iter().map(metric.1)) {
+                match estimate::ratio(tally.replications.iter().map(|r| metric.1(&r))) {
                     Some(r) => match (r.standard_error, bound) {
                         (Some(se), Bound::AtMost) => r.rate + z * se <= limit,
                         (Some(se), Bound::AtLeast) => r.rate - z * se >= limit,
@@ -117,8 +117,8 @@ impl ConstrainedFigure {
                 }
             }
             ConstrainedFigure::Quantile(f) => {
-                let values: Vec<f64> = tally.replications.iter().filter_map(f.value).collect();
-                let values = estimate::sorted(&values);
+                let values: Vec<f64> = tally.replications.iter().filter_map(|r| (f.value)(&r)).collect();
+                let values = estimate::sorted_owned(values);
                 match bound {
                     Bound::AtMost => {
                         estimate::quantile_upper_rank(values.len(), f.q, alpha).is_some_and(|u| values[u - 1] <= limit)
@@ -239,7 +239,7 @@ pub fn select(
         })
         .collect();
     let rate = |i: usize| {
-        let pairs: Vec<(f64, f64)> = arms[i].tally.replications.iter().map(objective.1).collect();
+        let pairs: Vec<(f64, f64)> = arms[i].tally.replications.iter().map(|r| objective.1(&r)).collect();
         estimate::ratio(pairs).map(|r| sign * r.rate)
     };
     let best = feasible
@@ -270,7 +270,7 @@ pub fn select(
             let short: Vec<&str> = arms
                 .iter()
                 .filter(|a| {
-                    let n = a.tally.replications.iter().filter_map(f.value).count();
+                    let n = a.tally.replications.iter().filter_map(|r| (f.value)(&r)).count();
                     match c.bound {
                         Bound::AtMost => estimate::quantile_upper_rank(n, f.q, alpha).is_none(),
                         Bound::AtLeast => estimate::quantile_lower_rank(n, f.q, alpha).is_none(),

@@ -183,8 +183,10 @@ fn fraction(num: f64, den: f64) -> Option<f64> {
 /// Summarises one arm with groups of `group_size`.
 pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
     let reps = &tally.replications;
-    let sum_u = |f: fn(&crate::stats::ReplicationTally) -> u64| reps.iter().map(f).sum::<u64>();
-    let sum_f = |f: fn(&crate::stats::ReplicationTally) -> f64| reps.iter().map(f).sum::<f64>();
+    // every count and amount in one pass (the replications may be read back from disk)
+    let counts = crate::stats::tally::totals(reps.iter());
+    let sum_u = |f: fn(&crate::stats::ReplicationTally) -> u64| f(&counts);
+    let sum_f = |f: fn(&crate::stats::ReplicationTally) -> f64| f(&counts);
     let group_cycles = sum_u(|r| r.group_cycles);
     let member_loans = sum_u(|r| r.member_loans);
     let k = f64::from(group_size);
@@ -221,9 +223,9 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
     let collected = sum_f(|r| r.collected);
     let disbursed = sum_f(|r| r.disbursed);
     let recovered = sum_f(|r| r.recovered);
-    let slot_cycles: u64 = reps.iter().map(|r| r.slot_cycles()).sum();
+    let slot_cycles: u64 = counts.slot_cycles();
     let rep_losses: Vec<f64> = reps.iter().filter_map(|r| r.loss_rate()).collect();
-    let rep_losses = estimate::sorted(&rep_losses);
+    let rep_losses = estimate::sorted_owned(rep_losses);
     let horizon_ci = |q: f64| estimate::quantile_interval_sorted(&rep_losses, q).unzip();
     // The per-cycle loss quantiles read the top of all replication-cycles that lent, which the
     // arm's tail holds (largest first).
@@ -247,7 +249,7 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
     };
     let cycle_ci = |q: f64| estimate::clustered_quantile_interval(lent_cycles, q, cycle_at, cycle_counts).unzip();
     let worst: Vec<f64> = reps.iter().filter_map(|r| r.worst_cycle_loss).collect();
-    let worst = estimate::sorted(&worst);
+    let worst = estimate::sorted_owned(worst);
     let worst_ci = |q: f64| estimate::quantile_interval_sorted(&worst, q).unzip();
     let (loss_p50_ci_low, loss_p50_ci_high) = horizon_ci(0.5);
     let (loss_p95_ci_low, loss_p95_ci_high) = horizon_ci(0.95);
@@ -462,7 +464,7 @@ mod tests {
         let mut tally = ArmTally::default();
         tally.push(t);
         let single = shortfall_icc(&tally, 4).unwrap();
-        let rows = vec![(4, tally.replications[0].shortfall_histogram.clone())];
+        let rows = vec![(4, tally.replications.get(0).unwrap().shortfall_histogram.clone())];
         let mixed = mixed_size_icc(&rows).unwrap();
         assert!((single - mixed).abs() < 1e-12, "{single} vs {mixed}");
         assert!(single > 0.0);

@@ -12,6 +12,7 @@
 
 use crate::stats::cycle_tail::{CycleLossTail, TailEntry};
 use crate::stats::exact_sum::ExactSum;
+use crate::stats::replication_list::ReplicationList;
 use serde::{Deserialize, Serialize};
 
 /// Figures of one counted cycle of one replication.
@@ -302,13 +303,64 @@ pub fn net_income(
     collected + recovered + fees - disbursed - cost_of_funds - operating_cost
 }
 
+/// The sums over `replications` of every count and amount of a [`ReplicationTally`], in one pass
+/// (its other fields are left empty). Amounts are added in the order given, starting from -0.0,
+/// exactly as `Iterator::sum` adds them, so a figure is bit-identical to a pass of its own.
+pub fn totals<R: std::ops::Deref<Target = ReplicationTally>>(
+    replications: impl Iterator<Item = R>,
+) -> ReplicationTally {
+    let start = ReplicationTally {
+        due: -0.0,
+        collected: -0.0,
+        disbursed: -0.0,
+        unpaid_principal: -0.0,
+        loss: -0.0,
+        recovered: -0.0,
+        fees: -0.0,
+        cost_of_funds: -0.0,
+        operating_cost: -0.0,
+        ..Default::default()
+    };
+    replications.fold(start, |mut t, r| {
+        t.group_cycles += r.group_cycles;
+        t.groups_repaid += r.groups_repaid;
+        t.groups_rescued += r.groups_rescued;
+        t.shortfall_free_groups += r.shortfall_free_groups;
+        t.member_loans += r.member_loans;
+        t.member_shortfalls += r.member_shortfalls;
+        t.member_defaults += r.member_defaults;
+        t.able_members += r.able_members;
+        t.strategic_defaults += r.strategic_defaults;
+        t.served_slot_cycles += r.served_slot_cycles;
+        t.excluded_slot_cycles += r.excluded_slot_cycles;
+        t.waiting_slot_cycles += r.waiting_slot_cycles;
+        t.empty_slot_cycles += r.empty_slot_cycles;
+        t.exclusion_events += r.exclusion_events;
+        t.removals += r.removals;
+        t.entrants += r.entrants;
+        t.clients_reached += r.clients_reached;
+        t.removed_slot_cycles += r.removed_slot_cycles;
+        t.due += r.due;
+        t.collected += r.collected;
+        t.disbursed += r.disbursed;
+        t.unpaid_principal += r.unpaid_principal;
+        t.loss += r.loss;
+        t.recovered += r.recovered;
+        t.fees += r.fees;
+        t.cost_of_funds += r.cost_of_funds;
+        t.operating_cost += r.operating_cost;
+        t
+    })
+}
+
 /// Mergeable accumulator of one arm's replications, kept in replication order, with the pooled
 /// digest of their per-cycle records.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct ArmTally {
     /// The replications pushed so far, sorted by replication index, without their per-cycle
-    /// records (unless pushed with [`ArmTally::push_keeping_cycles`]).
-    pub replications: Vec<ReplicationTally>,
+    /// records (unless pushed with [`ArmTally::push_keeping_cycles`]); in a run, mostly on disk
+    /// (see [`ReplicationList`]).
+    pub replications: ReplicationList,
     /// Counted cycles per year, for the replications' [`ReplicationTally::years`]; 0 keeps no
     /// years (a scenario without a `[finance]` table has no year but the cycle).
     #[serde(default = "one")]
@@ -338,6 +390,9 @@ pub enum MergeError {
     /// The same replication appears in both.
     #[error("replication {0} appears in both tallies")]
     DuplicateReplication(u32),
+    /// The replications could not be kept on disk (see [`ReplicationList`]).
+    #[error("{0}")]
+    Spill(String),
     /// The two were made for runs of different sizes or years.
     #[error("the tallies were made for different runs (tail of {0} and {1} values, years of {2} and {3} cycles)")]
     Layout(u64, u64, u32, u32),
@@ -348,7 +403,7 @@ impl ArmTally {
     /// per-cycle loss tail keeps `tail_capacity` values.
     pub fn new(cycles_per_year: u32, tail_capacity: u64) -> Self {
         ArmTally {
-            replications: Vec::new(),
+            replications: ReplicationList::new(),
             cycles_per_year,
             cycle_tail: CycleLossTail::with_capacity(tail_capacity),
             cycle_sums: Vec::new(),
@@ -411,8 +466,7 @@ impl ArmTally {
     }
 
     fn insert(&mut self, tally: ReplicationTally) {
-        let at = self.replications.partition_point(|r| r.replication < tally.replication);
-        self.replications.insert(at, tally);
+        self.replications.insert(tally);
     }
 
     /// Merges another part of the same arm (a shard, a batch, a checkpoint line); refuses
@@ -427,37 +481,37 @@ impl ArmTally {
                 other.cycles_per_year,
             ));
         }
-        let follows = match (self.replications.last(), other.replications.first()) {
-            (Some(last), Some(first)) => first.replication > last.replication,
+        let follows = match (self.replications.last_replication(), other.replications.first()) {
+            (Some(last), Some(first)) => first.replication > last,
             _ => true,
         };
         if follows {
             // the usual case (a batch, the next shard): appending keeps the order
-            self.replications.extend(other.replications);
-            self.merge_pooled(&other.cycle_tail, &other.cycle_sums);
-            return Ok(());
+            for r in other.replications.iter() {
+                self.replications.append(r.into_owned());
+            }
+        } else {
+            let mut merged = Vec::with_capacity(self.replications.len() + other.replications.len());
+            let mut a = self.replications.iter().peekable();
+            let mut b = other.replications.iter().peekable();
+            loop {
+                let take_a = match (a.peek(), b.peek()) {
+                    (Some(x), Some(y)) if x.replication == y.replication => {
+                        return Err(MergeError::DuplicateReplication(x.replication));
+                    }
+                    (Some(x), Some(y)) => x.replication < y.replication,
+                    (Some(_), None) => true,
+                    (None, Some(_)) => false,
+                    (None, None) => break,
+                };
+                merged.push(if take_a { a.next() } else { b.next() }.expect("peeked").into_owned());
+            }
+            drop((a, b));
+            self.replications.set_all(merged);
         }
-        let mut merged = Vec::with_capacity(self.replications.len() + other.replications.len());
-        let mut a = std::mem::take(&mut self.replications).into_iter().peekable();
-        let mut b = other.replications.into_iter().peekable();
-        loop {
-            let take_a = match (a.peek(), b.peek()) {
-                (Some(x), Some(y)) if x.replication == y.replication => {
-                    let r = x.replication;
-                    // restore what we took so a failed merge leaves self unchanged
-                    merged.extend(a);
-                    merged.sort_by_key(|t: &ReplicationTally| t.replication);
-                    self.replications = merged;
-                    return Err(MergeError::DuplicateReplication(r));
-                }
-                (Some(x), Some(y)) => x.replication < y.replication,
-                (Some(_), None) => true,
-                (None, Some(_)) => false,
-                (None, None) => break,
-            };
-            merged.push(if take_a { a.next() } else { b.next() }.expect("peeked"));
+        if let Err(e) = self.replications.flush() {
+            return Err(MergeError::Spill(e.to_string()));
         }
-        self.replications = merged;
         self.merge_pooled(&other.cycle_tail, &other.cycle_sums);
         Ok(())
     }
@@ -483,9 +537,10 @@ impl ArmTally {
             .iter()
             .map(|r| ReplicationTally {
                 cycles: Vec::new(),
-                ..r.clone()
+                ..r.into_owned()
             })
-            .collect();
+            .collect::<Vec<_>>()
+            .into();
         record.cycle_sums = part.cycle_sums.clone();
         self.merge(part)?;
         for e in self.cycle_tail.from_replications(range) {
@@ -514,6 +569,65 @@ impl ArmTally {
 mod tests {
     use super::*;
 
+    #[test]
+    fn totals_are_bit_identical_to_summing_each_field_on_its_own() {
+        type Field = fn(&ReplicationTally) -> f64;
+        let amounts: [Field; 9] = [
+            |r| r.due,
+            |r| r.collected,
+            |r| r.disbursed,
+            |r| r.unpaid_principal,
+            |r| r.loss,
+            |r| r.recovered,
+            |r| r.fees,
+            |r| r.cost_of_funds,
+            |r| r.operating_cost,
+        ];
+        // magnitudes far apart (so the order of addition shows in the last bits), and signed zeros
+        let value = |i: u64, k: u64| match (i * 7 + k * 3) % 5 {
+            0 => -0.0,
+            1 => 1e16 / (i + 1) as f64,
+            2 => 0.1 * (i * 13 + k) as f64,
+            3 => -(1.0 / 3.0) * (k + 1) as f64,
+            _ => 0.0,
+        };
+        let reps: Vec<ReplicationTally> = (0..40u64)
+            .map(|i| ReplicationTally {
+                member_loans: i * 3,
+                removed_slot_cycles: i,
+                due: value(i, 0),
+                collected: value(i, 1),
+                disbursed: value(i, 2),
+                unpaid_principal: value(i, 3),
+                loss: value(i, 4),
+                recovered: value(i, 5),
+                fees: value(i, 6),
+                cost_of_funds: value(i, 7),
+                operating_cost: if i % 2 == 0 { -0.0 } else { value(i, 8) },
+                ..Default::default()
+            })
+            .collect();
+        let all_negative_zero = vec![
+            ReplicationTally {
+                loss: -0.0,
+                ..Default::default()
+            };
+            3
+        ];
+        for list in [&reps[..], &reps[..1], &[], &all_negative_zero[..]] {
+            let t = totals(list.iter());
+            for f in amounts {
+                let alone: f64 = list.iter().map(f).sum();
+                assert_eq!(f(&t).to_bits(), alone.to_bits(), "{} vs {alone}", f(&t));
+            }
+            assert_eq!(t.member_loans, list.iter().map(|r| r.member_loans).sum::<u64>());
+            assert_eq!(
+                t.removed_slot_cycles,
+                list.iter().map(|r| r.removed_slot_cycles).sum::<u64>()
+            );
+        }
+    }
+
     fn tally(r: u32) -> ReplicationTally {
         let mut t = ReplicationTally::new(r, 3, 2);
         t.group_cycles = u64::from(r) + 1;
@@ -539,7 +653,7 @@ mod tests {
             one.push(tally(r));
             kept.push_keeping_cycles(tally(r));
         });
-        let t = &kept.replications[3];
+        let t = &kept.replications.get(3).unwrap();
         assert!(one.replications.iter().all(|r| r.cycles.is_empty()));
         assert_eq!(t.lent_cycles, 3);
         let worst = t.cycles[..3].iter().map(|c| c.loss / c.disbursed).fold(0.0, f64::max);

@@ -56,6 +56,7 @@ pub fn replication_ratio(
     arm: usize,
     f: impl Fn(&loancycle::stats::ReplicationTally) -> (f64, f64),
 ) -> (f64, f64) {
-    let r = loancycle::stats::estimate::ratio(results.arms[arm].replications.iter().map(f)).expect("denominator");
+    let r =
+        loancycle::stats::estimate::ratio(results.arms[arm].replications.iter().map(|r| f(&r))).expect("denominator");
     (r.rate, r.standard_error.expect("at least two replications"))
 }
