@@ -52,8 +52,8 @@ const VILLAGE_SHOCK_BYTES: u64 = 8;
 const TAIL_ENTRY_BYTES: u64 = 32;
 /// Per replication while one arm is summarised: its loss rate and worst cycle (sorted in place),
 /// the per-replication counts of the per-cycle quantiles' intervals (two doubles), and the heap's
-/// growth by doubling; measured 55 bytes (`scripts/memory_bench.sh`, one arm).
-const SUMMARY_REPLICATION_BYTES: u64 = 56;
+/// growth by doubling; measured 55 bytes with the tail (`scripts/memory_bench.sh`, one arm).
+const SUMMARY_REPLICATION_BYTES: u64 = 48;
 /// Per replication beside it when the run has several arms: the pairs of numerator and
 /// denominator of the two arms of a paired difference; measured 22 bytes.
 const SUMMARY_PAIRED_BYTES: u64 = 24;
