@@ -67,11 +67,6 @@ impl ReplicationList {
         }
     }
 
-    /// Whether the list may write to disk.
-    pub fn spills(&self) -> bool {
-        self.spill_dir.is_some()
-    }
-
     /// Replications held, on disk and in memory.
     pub fn len(&self) -> usize {
         self.spilled.as_ref().map_or(0, |s| s.records) + self.memory.len()

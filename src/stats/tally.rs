@@ -472,7 +472,7 @@ impl ArmTally {
     /// Merges another part of the same arm (a shard, a batch, a checkpoint line); refuses
     /// overlapping replications and tallies made for another run's size or year. A refused merge
     /// leaves `self` unchanged.
-    pub fn merge(&mut self, other: ArmTally) -> Result<(), MergeError> {
+    pub fn merge(&mut self, mut other: ArmTally) -> Result<(), MergeError> {
         if (self.cycle_tail.capacity(), self.cycles_per_year) != (other.cycle_tail.capacity(), other.cycles_per_year) {
             return Err(MergeError::Layout(
                 self.cycle_tail.capacity(),
@@ -486,9 +486,10 @@ impl ArmTally {
             _ => true,
         };
         if follows {
-            // the usual case (a batch, the next shard): appending keeps the order
-            for r in other.replications.iter() {
-                self.replications.append(r.into_owned());
+            // the usual case (a batch, the next shard): appending keeps the order, and the
+            // replications move rather than being copied
+            for r in other.replications.take_all() {
+                self.replications.append(r);
             }
         } else {
             let mut merged = Vec::with_capacity(self.replications.len() + other.replications.len());
