@@ -114,19 +114,23 @@ impl StoredRun {
             .iter()
             .position(|h| h == "arm")
             .ok_or_else(|| bad(&csv_path, "header: missing field `arm`".to_owned()))?;
+        // each arm's replication numbers seen so far: a set, so that a check per row stays cheap for
+        // runs of many replications
+        let mut seen: Vec<std::collections::HashSet<u32>> = vec![Default::default(); arms.len()];
         for (line, record) in reader.records().enumerate() {
             let row_error = |e: csv::Error| bad(&csv_path, format!("row {}: {e}", line + 1));
             let record = record.map_err(row_error)?;
             let figures: ReplicationFigures = record.deserialize(Some(&headers)).map_err(row_error)?;
             let label = record.get(arm_column).unwrap_or_default();
-            let arm = arms.iter_mut().find(|a| a.label == label).ok_or_else(|| {
+            let index = arms.iter().position(|a| a.label == label).ok_or_else(|| {
                 bad(
                     &csv_path,
                     format!("row {}: arm `{label}` is not in summary.json", line + 1),
                 )
             })?;
+            let arm = &mut arms[index];
             let number = figures.replication;
-            if number == 0 || arm.tally.replications.iter().any(|r| r.replication + 1 == number) {
+            if number == 0 || !seen[index].insert(number) {
                 return Err(bad(
                     &csv_path,
                     format!(

@@ -284,6 +284,26 @@ fn an_unknown_baseline_is_refused_in_one_line() {
     assert_eq!(o.status.code(), Some(2));
 }
 
+#[test]
+fn a_repeated_replication_in_a_stored_run_is_refused_in_one_line() {
+    let tmp = tempfile::tempdir().unwrap();
+    let out = run_scenario(tmp.path(), EXCLUSION, &[]);
+    let path = out.join("replications.csv");
+    let text = std::fs::read_to_string(&path).unwrap();
+    let mut lines: Vec<&str> = text.lines().collect();
+    // the last data row again: its arm and replication number appear twice
+    lines.push(lines[lines.len() - 1]);
+    std::fs::write(&path, lines.join("\n") + "\n").unwrap();
+    let o = loancycle(&["compare", out.to_str().unwrap(), "--baseline", "1"]);
+    assert_eq!(o.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(err.lines().count(), 1, "{err}");
+    assert!(
+        err.contains("replications.csv") && err.contains(&format!("row {}", lines.len() - 1)) && err.contains("repeated"),
+        "{err}"
+    );
+}
+
 /// The standard normal quantile at 1 - 0.05 / 3 (three arms, one constraint, Bonferroni):
 /// 2.128045 (scipy.stats.norm.ppf(1 - 0.05 / 3), standard normal tables).
 const Z_ONE_SIDED_THIRD: f64 = 2.128045;

@@ -13,6 +13,7 @@
 //! contiguous in memory; the scenario's slot numbers are used only to key random streams.
 
 pub mod book;
+mod chacha_blocks;
 mod exclusion;
 pub mod formation;
 pub mod memory;

@@ -139,9 +139,10 @@ impl DenseBlocks {
             // only grows: the generator overwrites every word that is read
             self.words.resize(pairs, 0);
         }
-        // `Rng::fill` writes the stream's bytes straight into the words and reads them as
-        // little-endian, so the hot loops read plain words with no staging copy.
-        rand::Rng::fill(&mut open(key, stream_id), &mut self.words[..pairs]);
+        // The block function writes the stream's words straight into the buffer (the words
+        // `rand_chacha` gives, without its buffer, its copy or a generator per stream), so the hot
+        // loops read plain words with no staging copy.
+        super::chacha_blocks::fill_pairs(key, stream_id, &mut self.words[..pairs]);
     }
 
     /// 32-bit word `word` of the run (block `m` of width `W` starts at word `m * W`).
