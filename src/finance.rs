@@ -58,15 +58,22 @@ pub struct AnnualTail {
 }
 
 impl AnnualTail {
-    fn of(mut sorted: Vec<f64>) -> Self {
-        sorted.sort_by(f64::total_cmp);
+    /// The tail of the values `values()` yields, read in passes (it is called a few times and must
+    /// yield the same values each time): no value per replication-year is held. The mean is their
+    /// exact sum, rounded once, over their number, so it does not depend on the order of the years.
+    fn of<I: Iterator<Item = f64>>(values: impl Fn() -> I) -> Self {
+        let levels = [0.5, 0.95, 0.99, UNEXPECTED_LOSS_LEVEL];
+        let quantiles = estimate::PassQuantiles::new(&values, &levels, Some(0.99));
+        let mut sum = crate::stats::exact_sum::ExactSum::default();
+        values().for_each(|v| sum.push(v));
+        let n = quantiles.len();
         AnnualTail {
-            mean: estimate::mean_and_se(&sorted).map(|m| m.0),
-            p50: estimate::quantile_sorted(&sorted, 0.5),
-            p95: estimate::quantile_sorted(&sorted, 0.95),
-            p99: estimate::quantile_sorted(&sorted, 0.99),
-            p999: estimate::quantile_sorted(&sorted, UNEXPECTED_LOSS_LEVEL),
-            es99: estimate::expected_shortfall_sorted(&sorted, 0.99),
+            mean: (n > 0).then(|| sum.value() / n as f64),
+            p50: quantiles.quantile(0.5),
+            p95: quantiles.quantile(0.95),
+            p99: quantiles.quantile(0.99),
+            p999: quantiles.quantile(UNEXPECTED_LOSS_LEVEL),
+            es99: quantiles.expected_shortfall(),
         }
     }
 }
@@ -165,36 +172,36 @@ pub fn arm_finance(
     let finance = scenario.finance();
     let cpy = finance.cycles_per_year().max(1);
     let reps = &tally.replications;
-    // One value per replication-year is all the annual quantiles need (the median among them),
-    // so only those are collected, and sorted in place.
-    let mut rates: Vec<f64> = Vec::new();
-    let mut amounts: Vec<f64> = Vec::new();
-    for r in reps {
-        rates.extend(r.years.iter().filter_map(Year::loss_rate));
-        amounts.extend(r.years.iter().map(|y| y.loss));
-    }
     // Counted from the run's shape: a run without a [finance] table keeps no per-year records (a
     // year would be one cycle), but its money figures are still per year.
     let n_years = reps.len() as u64 * u64::from(scenario.cycles() / cpy);
-    let annual_loss_rate = AnnualTail::of(rates);
-    let annual_loss_amount = AnnualTail::of(amounts);
+    // The annual quantiles read the replication-years in passes (the replications may wait on
+    // disk), holding no value per year.
+    let annual_loss_rate = AnnualTail::of(|| {
+        reps.iter()
+            .flat_map(|r| (0..r.years.len()).filter_map(move |y| r.years[y].loss_rate()))
+    });
+    let annual_loss_amount = AnnualTail::of(|| {
+        reps.iter()
+            .flat_map(|r| (0..r.years.len()).map(move |y| r.years[y].loss))
+    });
 
     let per_year = |total: f64| if n_years > 0 { total / n_years as f64 } else { 0.0 };
-    let totals = crate::stats::tally::totals(reps.iter());
+    let totals = crate::stats::tally::totals(reps.iter_numbers());
     let sum = |f: fn(&ReplicationTally) -> f64| f(&totals);
     let interest = |r: &ReplicationTally| interest_collected(r.collected, r.disbursed, r.loss, r.recovered);
     let disbursed = sum(|r| r.disbursed);
     let principal_outstanding = per_year(disbursed) / f64::from(cpy);
-    let oss = estimate::ratio(
-        reps.iter()
-            .map(|r| (interest(&r) + r.fees, r.cost_of_funds + r.loss + r.operating_cost)),
-    )
+    let oss = estimate::ratio_in_passes(|| {
+        reps.iter_numbers()
+            .map(|r| (interest(&r) + r.fees, r.cost_of_funds + r.loss + r.operating_cost))
+    })
     .map(Interval::from);
     let unexpected_loss_999 = annual_loss_amount.p999.zip(annual_loss_amount.mean).map(|(q, m)| q - m);
     let money = Money {
         disbursed: per_year(disbursed),
         principal_outstanding,
-        interest_collected: per_year(reps.iter().map(|r| interest(&r)).sum()),
+        interest_collected: per_year(reps.iter_numbers().map(|r| interest(&r)).sum()),
         fees: per_year(sum(|r| r.fees)),
         expected_loss: per_year(sum(|r| r.loss)),
         unexpected_loss_999,

@@ -299,7 +299,9 @@ fn a_repeated_replication_in_a_stored_run_is_refused_in_one_line() {
     let err = String::from_utf8_lossy(&o.stderr);
     assert_eq!(err.lines().count(), 1, "{err}");
     assert!(
-        err.contains("replications.csv") && err.contains(&format!("row {}", lines.len() - 1)) && err.contains("repeated"),
+        err.contains("replications.csv")
+            && err.contains(&format!("row {}", lines.len() - 1))
+            && err.contains("repeated"),
         "{err}"
     );
 }

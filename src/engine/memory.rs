@@ -50,16 +50,18 @@ const VILLAGE_SLOT_BYTES: u64 = 16 + 8 + 8 + 24 + 4 + 8 + 24;
 const VILLAGE_SHOCK_BYTES: u64 = 8;
 /// Per kept per-cycle loss rate: the entry (16 bytes), doubled for the heap's growth by doubling.
 const TAIL_ENTRY_BYTES: u64 = 32;
-/// Per replication while one arm is summarised: its loss rate and worst cycle (sorted in place),
-/// the per-replication counts of the per-cycle quantiles' intervals (two doubles), and the heap's
-/// growth by doubling; measured 55 bytes with the tail (`scripts/memory_bench.sh`, one arm).
-const SUMMARY_REPLICATION_BYTES: u64 = 48;
-/// Per replication beside it when the run has several arms: the pairs of numerator and
-/// denominator of the two arms of a paired difference; measured 22 bytes.
-const SUMMARY_PAIRED_BYTES: u64 = 24;
-/// Per replication-year while one arm is summarised: its loss rate and amount, sorted in place;
-/// measured 14.5 bytes.
-const SUMMARY_YEAR_BYTES: u64 = 16;
+/// While one arm is summarised, the order statistics of its quantiles over replications and
+/// replication-years (`stats::order_stats`): a histogram of 4,096 counts and at most 4,096 keys
+/// collected for each of the 20 or so ranks asked at once, whatever the number of replications.
+const ORDER_STATISTICS_BYTES: u64 = 4096 * 4 + 20 * 4096 * 8;
+/// Per value at or above a 99% quantile (about 1% of the replications and of the
+/// replication-years): its entry in the ordered map the expected shortfall is summed from, with the
+/// map's half-empty nodes.
+const TAIL_VALUE_BYTES: u64 = 64;
+/// Per kept per-cycle loss rate while its arm is summarised: the tail read in descending order (16
+/// bytes, doubled for the heap's growth) and, for the half above the 99% quantile, the interval's
+/// count per replication (a hash map entry with the table's spare room).
+const TAIL_SUMMARY_BYTES: u64 = 64;
 /// Per counted cycle and arm beyond the struct: the two exact sums' partials (a few doubles each)
 /// with the allocator's share.
 const CYCLE_SUMS_HEAP_BYTES: u64 = 2 * (32 + 4 * 8);
@@ -76,7 +78,7 @@ pub struct MemoryEstimate {
     /// Every finished replication's tally and figures, the batch in hand, and the arms' pooled
     /// per-cycle accumulators (loss tail, time-series sums).
     pub tally_bytes: u64,
-    /// The per-replication and per-year figures of one arm while it is summarised.
+    /// What summarising one arm holds: the order statistics of its quantiles and the tails they read.
     pub summary_bytes: u64,
     /// Program, stacks and report.
     pub base_bytes: u64,
@@ -158,7 +160,6 @@ pub fn estimate_part(scenario: &Scenario, threads: usize, replications_held: u32
         replications
     };
     let moving = if held < replications { held * tally_bytes } else { 0 };
-    let paired = if arms > 1 { SUMMARY_PAIRED_BYTES } else { 0 };
     MemoryEstimate {
         workers,
         worker_bytes,
@@ -166,9 +167,12 @@ pub fn estimate_part(scenario: &Scenario, threads: usize, replications_held: u32
             + moving
             + batch * arms * in_flight
             + arms * (tail * TAIL_ENTRY_BYTES + cycle_sums),
-        summary_bytes: replications * (SUMMARY_REPLICATION_BYTES + paired)
-            + replications * years * SUMMARY_YEAR_BYTES
-            + tail * TAIL_ENTRY_BYTES / 2,
+        // Every figure over replications is read in passes (ratios twice, paired differences in
+        // three passes over both arms, quantiles through their order statistics), so nothing here
+        // grows with replications except the 1% tail of the expected shortfall.
+        summary_bytes: ORDER_STATISTICS_BYTES
+            + (replications + replications * years).div_ceil(100) * TAIL_VALUE_BYTES
+            + tail * TAIL_SUMMARY_BYTES,
         base_bytes: BASE_BYTES,
     }
 }

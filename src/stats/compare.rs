@@ -85,19 +85,117 @@ pub struct ComparedArm<'a> {
     pub tally: &'a ArmTally,
 }
 
-fn pairs(tally: &ArmTally, metric: Metric) -> Vec<(f64, f64)> {
-    tally.replications.iter().map(|r| metric.1(&r)).collect()
-}
-
 /// R_a - R_b for one figure, paired by replication; `None` where either pooled denominator is zero.
 pub fn paired(a: &ArmTally, b: &ArmTally, metric: Metric) -> Option<RatioEstimate> {
-    estimate::paired_ratio_difference(&pairs(a, metric), &pairs(b, metric))
+    let [figure] = paired_figures(a, b, &[metric]);
+    figure.map(|f| f.difference)
 }
 
-/// The standard error of one arm's pooled figure on its own, from its (numerator, denominator)
-/// pairs.
-fn own_se(pairs: &[(f64, f64)]) -> Option<f64> {
-    estimate::ratio(pairs.iter().copied()).and_then(|r| r.standard_error)
+/// One figure of [`paired_figures`].
+#[derive(Debug, Clone, Copy, PartialEq)]
+struct PairedFigure {
+    /// R_a - R_b, as [`estimate::paired_ratio_difference`] gives it.
+    difference: RatioEstimate,
+    /// The standard error of each arm's pooled figure on its own ([`estimate::ratio`]).
+    own_se: (Option<f64>, Option<f64>),
+}
+
+/// Arm `a` against arm `b` on every figure of `metrics`, paired by replication: the paired
+/// difference and each arm's own standard error, bit for bit what [`estimate::paired_ratio_difference`]
+/// and [`estimate::ratio`] give on the collected (numerator, denominator) pairs, every sum formed in
+/// the same order from the same start. It reads the two arms' replications side by side in three
+/// passes, whatever the number of figures, and keeps no value per replication: the replications
+/// may wait on disk (flat memory), and one pass decodes each replication once for all figures.
+/// `None` for a figure where either pooled denominator is zero, and for every figure when the arms
+/// differ in replications or have none.
+fn paired_figures<const M: usize>(a: &ArmTally, b: &ArmTally, metrics: &[Metric; M]) -> [Option<PairedFigure>; M] {
+    /// Sums over one arm's pairs for one figure.
+    #[derive(Clone, Copy)]
+    struct Side {
+        x: f64,
+        y: f64,
+        /// sum of y as `Iterator::sum` forms it (from -0.0), for the mean denominator
+        y_sum: f64,
+        /// sum of squared residuals against the pooled rate
+        ss: f64,
+    }
+    let none = [None; M];
+    let side = Side {
+        x: 0.0,
+        y: 0.0,
+        y_sum: -0.0,
+        ss: -0.0,
+    };
+    let mut sides = [(side, side); M];
+    // pass 1: the pooled sums
+    let (mut ia, mut ib) = (a.replications.iter_numbers(), b.replications.iter_numbers());
+    let mut n = 0usize;
+    loop {
+        match (ia.next(), ib.next()) {
+            (Some(ra), Some(rb)) => {
+                n += 1;
+                for (metric, (sa, sb)) in metrics.iter().zip(&mut sides) {
+                    for (s, (x, y)) in [(sa, metric.1(&ra)), (sb, metric.1(&rb))] {
+                        s.x += x;
+                        s.y += y;
+                        s.y_sum += y;
+                    }
+                }
+            }
+            (None, None) => break,
+            _ => return none,
+        }
+    }
+    if n == 0 {
+        return none;
+    }
+    let nf = n as f64;
+    // per figure: (rate a, rate b, mean y a, mean y b) where both pooled denominators are nonzero
+    let rates: [Option<(f64, f64, f64, f64)>; M] = std::array::from_fn(|m| {
+        let (sa, sb) = sides[m];
+        (sa.y != 0.0 && sb.y != 0.0).then(|| (sa.x / sa.y, sb.x / sb.y, sa.y_sum / nf, sb.y_sum / nf))
+    });
+    // pass 2: each arm's squared residuals, and the sum of the paired terms z
+    let z = |m: usize, pa: (f64, f64), pb: (f64, f64)| {
+        rates[m].map(|(ra, rb, ya, yb)| (pa.0 - ra * pa.1) / ya - (pb.0 - rb * pb.1) / yb)
+    };
+    let mut z_sums = [-0.0f64; M];
+    for (ra, rb) in a.replications.iter_numbers().zip(b.replications.iter_numbers()) {
+        for (m, metric) in metrics.iter().enumerate() {
+            let Some((rate_a, rate_b, _, _)) = rates[m] else {
+                continue;
+            };
+            let (pa, pb) = (metric.1(&ra), metric.1(&rb));
+            sides[m].0.ss += (pa.0 - rate_a * pa.1).powi(2);
+            sides[m].1.ss += (pb.0 - rate_b * pb.1).powi(2);
+            z_sums[m] += z(m, pa, pb).unwrap_or(0.0);
+        }
+    }
+    // pass 3: the spread of z about its mean
+    let means: [f64; M] = std::array::from_fn(|m| z_sums[m] / nf);
+    let mut z_ss = [-0.0f64; M];
+    if n >= 2 {
+        for (ra, rb) in a.replications.iter_numbers().zip(b.replications.iter_numbers()) {
+            for (m, metric) in metrics.iter().enumerate() {
+                if let Some(zm) = z(m, metric.1(&ra), metric.1(&rb)) {
+                    z_ss[m] += (zm - means[m]).powi(2);
+                }
+            }
+        }
+    }
+    std::array::from_fn(|m| {
+        let (rate_a, rate_b, _, _) = rates[m]?;
+        let (sa, sb) = sides[m];
+        // as estimate::ratio: its ybar is the fold's sum over n
+        let own = |s: Side| (n >= 2).then(|| (s.ss / (nf * (nf - 1.0))).sqrt() / (s.y / nf));
+        Some(PairedFigure {
+            difference: RatioEstimate {
+                rate: rate_a - rate_b,
+                standard_error: (n >= 2).then(|| (z_ss[m] / (nf - 1.0) / nf).sqrt()),
+            },
+            own_se: (own(sa), own(sb)),
+        })
+    })
 }
 
 /// Every other arm against arm `baseline` on each figure of [`COMPARED`], in arm order.
@@ -118,11 +216,10 @@ pub fn differences(arms: &[ComparedArm], baseline: usize) -> Vec<ArmDifference> 
 /// `arm` against `base` on each figure of [`COMPARED`], paired by replication.
 fn pair_rows(arm: &ComparedArm, base: &ComparedArm) -> Vec<ArmDifference> {
     let mut out = Vec::new();
-    for metric in COMPARED {
-        // one pass over each arm's replications per figure (they may be read back from disk)
-        let (arm_pairs, base_pairs) = (pairs(arm.tally, metric), pairs(base.tally, metric));
-        if let Some(d) = estimate::paired_ratio_difference(&arm_pairs, &base_pairs) {
-            let unpaired = match (own_se(&arm_pairs), own_se(&base_pairs)) {
+    let figures = paired_figures(arm.tally, base.tally, &COMPARED);
+    for (metric, figure) in COMPARED.into_iter().zip(figures) {
+        if let Some(PairedFigure { difference: d, own_se }) = figure {
+            let unpaired = match own_se {
                 (Some(a), Some(b)) => Some((a * a + b * b).sqrt()),
                 _ => None,
             };
@@ -267,7 +364,10 @@ pub fn best_arm_by(arms: &[ComparedArm], metric: Metric, direction: Direction) -
     };
     let rates: Vec<Option<f64>> = arms
         .iter()
-        .map(|a| estimate::ratio(pairs(a.tally, metric)).map(|r| sign * r.rate))
+        .map(|a| {
+            estimate::ratio_in_passes(|| a.tally.replications.iter_numbers().map(|r| metric.1(&r)))
+                .map(|r| sign * r.rate)
+        })
         .collect();
     let best = rates
         .iter()
@@ -334,6 +434,60 @@ mod tests {
                 tally,
             })
             .collect()
+    }
+
+    /// An arm of `n` replications with varied figures from `seed` (a zero denominator where
+    /// `no_loans`).
+    fn varied(n: u32, seed: u64, no_loans: bool) -> ArmTally {
+        use rand::{Rng, SeedableRng};
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+        let mut t = ArmTally::default();
+        for r in 0..n {
+            let mut rep = ReplicationTally::new(r, 2, 0);
+            rep.group_cycles = rng.random_range(50..100);
+            rep.groups_repaid = rng.random_range(0..=rep.group_cycles);
+            rep.disbursed = if no_loans { 0.0 } else { rng.random_range(1.0..1e4) };
+            rep.loss = rng.random_range(0.0..rep.disbursed.max(1.0));
+            rep.collected = rng.random_range(0.0..1e4);
+            rep.served_slot_cycles = rng.random_range(0..500);
+            rep.excluded_slot_cycles = rng.random_range(0..100);
+            rep.empty_slot_cycles = rng.random_range(0..100);
+            t.push(rep);
+        }
+        t
+    }
+
+    /// The three passes give bit for bit what the estimators give on collected pairs.
+    #[test]
+    fn paired_passes_equal_the_estimators_on_collected_pairs() {
+        let collected =
+            |t: &ArmTally, metric: Metric| -> Vec<(f64, f64)> { t.replications.iter().map(|r| metric.1(&r)).collect() };
+        let bits = |e: Option<RatioEstimate>| e.map(|e| (e.rate.to_bits(), e.standard_error.map(f64::to_bits)));
+        for (n, no_loans) in [(1, false), (2, false), (37, false), (37, true)] {
+            let (a, b) = (varied(n, 1, false), varied(n, 2, no_loans));
+            let figures = paired_figures(&a, &b, &COMPARED);
+            for (metric, figure) in COMPARED.into_iter().zip(figures) {
+                let (pa, pb) = (collected(&a, metric), collected(&b, metric));
+                let expected = estimate::paired_ratio_difference(&pa, &pb);
+                assert_eq!(
+                    bits(figure.map(|f| f.difference)),
+                    bits(expected),
+                    "{} n = {n}",
+                    metric.0
+                );
+                if let Some(f) = figure {
+                    let own = |p: &[(f64, f64)]| estimate::ratio(p.iter().copied()).and_then(|r| r.standard_error);
+                    assert_eq!(f.own_se.0.map(f64::to_bits), own(&pa).map(f64::to_bits));
+                    assert_eq!(f.own_se.1.map(f64::to_bits), own(&pb).map(f64::to_bits));
+                }
+            }
+        }
+        // arms of different lengths are not paired
+        assert!(
+            paired_figures(&varied(5, 1, false), &varied(6, 2, false), &COMPARED)
+                .iter()
+                .all(Option::is_none)
+        );
     }
 
     #[test]

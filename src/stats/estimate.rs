@@ -28,15 +28,21 @@ impl RatioEstimate {
 /// ch. 6). `None` when the pooled denominator is zero.
 pub fn ratio(pairs: impl IntoIterator<Item = (f64, f64)>) -> Option<RatioEstimate> {
     let pairs: Vec<(f64, f64)> = pairs.into_iter().collect();
-    let n = pairs.len();
-    let (sx, sy) = pairs.iter().fold((0.0, 0.0), |(a, b), &(x, y)| (a + x, b + y));
+    ratio_in_passes(|| pairs.iter().copied())
+}
+
+/// [`ratio`] of the pairs `pairs()` yields, read twice (each call must yield the same pairs in the
+/// same order) instead of held: a run's replications may wait on disk, and one value per
+/// replication in memory is what a flat-memory run must not keep. Bit-identical to [`ratio`].
+pub fn ratio_in_passes<I: Iterator<Item = (f64, f64)>>(pairs: impl Fn() -> I) -> Option<RatioEstimate> {
+    let (n, sx, sy) = pairs().fold((0usize, 0.0, 0.0), |(n, a, b), (x, y)| (n + 1, a + x, b + y));
     if sy == 0.0 {
         return None;
     }
     let rate = sx / sy;
     let standard_error = (n >= 2).then(|| {
         let ybar = sy / n as f64;
-        let ss: f64 = pairs.iter().map(|&(x, y)| (x - rate * y).powi(2)).sum();
+        let ss: f64 = pairs().map(|(x, y)| (x - rate * y).powi(2)).sum();
         (ss / (n as f64 * (n as f64 - 1.0))).sqrt() / ybar
     });
     Some(RatioEstimate { rate, standard_error })
@@ -63,14 +69,84 @@ pub fn quantile_sorted(sorted: &[f64], q: f64) -> Option<f64> {
 /// As [`quantile_sorted`], for `n` values of which `at(i)` gives the `i`-th smallest (0-based), or
 /// `None` where that order statistic is not held (then the quantile is `None` too).
 pub fn quantile_of_ranked(n: usize, q: f64, at: impl Fn(usize) -> Option<f64>) -> Option<f64> {
+    let [lo, hi] = quantile_ranks(n, q)?;
+    let h = (n as f64 - 1.0) * q;
+    let (a, b) = (at(lo)?, at(hi)?);
+    Some(a + (h - lo as f64) * (b - a))
+}
+
+/// The two order statistics (0-based) the q-quantile of `n` values interpolates between, or
+/// `None` when n cannot support it (see [`quantile_sorted`]).
+pub fn quantile_ranks(n: usize, q: f64) -> Option<[usize; 2]> {
     if n == 0 || (n as f64) < (1.0 / (1.0 - q)).round() {
         return None;
     }
-    let h = (n as f64 - 1.0) * q;
-    let lo = h.floor() as usize;
-    let hi = (lo + 1).min(n - 1);
-    let (a, b) = (at(lo)?, at(hi)?);
-    Some(a + (h - lo as f64) * (b - a))
+    let lo = ((n as f64 - 1.0) * q).floor() as usize;
+    Some([lo, (lo + 1).min(n - 1)])
+}
+
+/// Quantiles, their distribution-free 95% intervals and the expected shortfall of one value per
+/// replication (or replication-year), found from passes over the values rather than a sorted copy
+/// (`stats::order_stats`): bit for bit what [`quantile_sorted`], [`quantile_interval_sorted`] and
+/// [`expected_shortfall_sorted`] give on the sorted values.
+#[derive(Debug, Clone)]
+pub struct PassQuantiles {
+    ranked: crate::stats::order_stats::OrderStatistics,
+    expected_shortfall: Option<f64>,
+}
+
+impl PassQuantiles {
+    /// Reads the values `values()` yields (a few passes) for the quantiles at `levels`, their
+    /// intervals, and the expected shortfall at `es_level` when given (one of `levels`).
+    pub fn new<I: Iterator<Item = f64>>(values: impl Fn() -> I, levels: &[f64], es_level: Option<f64>) -> Self {
+        let ranked = crate::stats::order_stats::order_statistics(&values, |n| {
+            let mut ranks = Vec::new();
+            for &q in levels {
+                ranks.extend(quantile_ranks(n, q).into_iter().flatten());
+                if let Some((l, u)) = quantile_interval_ranks(n, q, 0.95) {
+                    ranks.extend([l - 1, u - 1]);
+                }
+            }
+            ranks
+        });
+        let n = ranked.len();
+        let expected_shortfall = es_level
+            .and_then(|q| quantile_of_ranked(n, q, |i| ranked.at(i)))
+            .and_then(|threshold| {
+                let (count, sum) = crate::stats::order_stats::tail_sum(values(), threshold);
+                (count > 0).then(|| sum / count as f64)
+            });
+        PassQuantiles {
+            ranked,
+            expected_shortfall,
+        }
+    }
+
+    /// How many values there are.
+    pub fn len(&self) -> usize {
+        self.ranked.len()
+    }
+
+    /// Whether there are none.
+    pub fn is_empty(&self) -> bool {
+        self.ranked.is_empty()
+    }
+
+    /// The q-quantile (q one of the levels read).
+    pub fn quantile(&self, q: f64) -> Option<f64> {
+        quantile_of_ranked(self.len(), q, |i| self.ranked.at(i))
+    }
+
+    /// The 95% interval of the q-quantile (q one of the levels read).
+    pub fn interval(&self, q: f64) -> Option<(f64, f64)> {
+        let (l, u) = quantile_interval_ranks(self.len(), q, 0.95)?;
+        Some((self.ranked.at(l - 1)?, self.ranked.at(u - 1)?))
+    }
+
+    /// The expected shortfall at the level read.
+    pub fn expected_shortfall(&self) -> Option<f64> {
+        self.expected_shortfall
+    }
 }
 
 /// Expected shortfall at level q: the mean of the values at or above the q-quantile.
@@ -302,18 +378,18 @@ pub fn quantile_interval_sorted(sorted: &[f64], q: f64) -> Option<(f64, f64)> {
 /// values at or below the estimated quantile gets its standard error from the replications (the
 /// ratio estimator), and q -/+ 1.959964 SE is read back through the order statistics of all values.
 /// With independent values it agrees with the binomial ranks to first order. Of the `n` values,
-/// `at(i)` gives the `i`-th smallest (0-based) where it is held; `counts(x)` gives each
-/// replication's (values <= x, values). `None` with fewer than two replications, without a
+/// `at(i)` gives the `i`-th smallest (0-based) where it is held; `counts(x)` yields each
+/// replication's (values <= x, values), and is called twice (see [`ratio_in_passes`]). `None` with fewer than two replications, without a
 /// quantile, when either end falls outside the values, or when an order statistic the interval
 /// needs is not held.
-pub fn clustered_quantile_interval(
+pub fn clustered_quantile_interval<I: Iterator<Item = (f64, f64)>>(
     n: usize,
     q: f64,
     at: impl Fn(usize) -> Option<f64>,
-    counts: impl Fn(f64) -> Vec<(f64, f64)>,
+    counts: impl Fn(f64) -> I,
 ) -> Option<(f64, f64)> {
     let estimate = quantile_of_ranked(n, q, &at)?;
-    let se = ratio(counts(estimate))?.standard_error?;
+    let se = ratio_in_passes(|| counts(estimate))?.standard_error?;
     let low = (n as f64 * (q - Z_95 * se)).floor();
     let high = (n as f64 * (q + Z_95 * se)).ceil() + 1.0;
     if low >= 1.0 && high <= n as f64 {
@@ -345,8 +421,7 @@ mod order_statistic_tests {
         let all = sorted(&reps.iter().flatten().copied().collect::<Vec<_>>());
         let counts = |x: f64| {
             reps.iter()
-                .map(|r| (r.iter().filter(|&&v| v <= x).count() as f64, r.len() as f64))
-                .collect()
+                .map(move |r| (r.iter().filter(|&&v| v <= x).count() as f64, r.len() as f64))
         };
         let (lo, hi) = clustered_quantile_interval(all.len(), 0.5, |i| all.get(i).copied(), counts).unwrap();
         let (blo, bhi) = quantile_interval_sorted(&all, 0.5).unwrap();

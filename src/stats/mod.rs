@@ -10,6 +10,7 @@ pub mod compare;
 pub mod cycle_tail;
 pub mod estimate;
 pub mod exact_sum;
+pub mod order_stats;
 pub mod replication_list;
 pub mod replications;
 pub mod select;

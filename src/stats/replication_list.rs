@@ -84,8 +84,20 @@ impl ReplicationList {
 
     /// The replications in order; those on disk are decoded as the pass reaches them.
     pub fn iter(&self) -> Iter<'_> {
+        self.iter_reading(Parts::All)
+    }
+
+    /// As [`iter`](Self::iter), for passes that read only a replication's numbers: a replication
+    /// read back from disk comes without its shortfall histogram and years (empty), which saves
+    /// their decoding and allocation in every such pass. Replications in memory come whole.
+    pub fn iter_numbers(&self) -> Iter<'_> {
+        self.iter_reading(Parts::Numbers)
+    }
+
+    fn iter_reading(&self, parts: Parts) -> Iter<'_> {
         Iter {
             disk: self.spilled.as_ref().map(|s| DiskReader {
+                parts,
                 file: &s.file,
                 offset: 0,
                 end: s.bytes,
@@ -261,7 +273,16 @@ pub struct Iter<'a> {
     memory: std::slice::Iter<'a, ReplicationTally>,
 }
 
+/// What a pass decodes of each replication read back from disk.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Parts {
+    All,
+    /// The numbers only: no shortfall histogram, years or cycles.
+    Numbers,
+}
+
 struct DiskReader<'a> {
+    parts: Parts,
     file: &'a File,
     /// File offset of the byte after those read into `buffer`.
     offset: u64,
@@ -303,7 +324,7 @@ impl DiskReader<'_> {
         let length = u32::from_le_bytes(self.buffer[self.at..self.at + 4].try_into().expect("4 bytes")) as usize;
         self.at += 4;
         self.ensure(length)?;
-        let record = decode(&self.buffer[self.at..self.at + length])?;
+        let record = decode_parts(&self.buffer[self.at..self.at + length], self.parts)?;
         self.at += length;
         Ok(record)
     }
@@ -510,7 +531,13 @@ fn encode(t: &ReplicationTally, out: &mut Vec<u8>) {
 }
 
 /// Reads what [`encode`] wrote.
+#[cfg(test)]
 fn decode(bytes: &[u8]) -> Result<ReplicationTally, String> {
+    decode_parts(bytes, Parts::All)
+}
+
+fn decode_parts(bytes: &[u8], parts: Parts) -> Result<ReplicationTally, String> {
+    let whole = parts == Parts::All;
     let mut at = 0usize;
     let mut take = |n: usize| -> Result<&[u8], String> {
         let slice = bytes
@@ -546,21 +573,34 @@ fn decode(bytes: &[u8]) -> Result<ReplicationTally, String> {
     let worst = read!(f64);
     let cells = read!(u64) as usize;
     // lengths are checked against what is left before anything is reserved for them
-    let mut shortfall_histogram = Vec::with_capacity(cells.min(bytes.len() / 8));
-    for _ in 0..cells {
-        shortfall_histogram.push(read!(u64));
+    let mut shortfall_histogram = Vec::new();
+    if whole {
+        shortfall_histogram.reserve(cells.min(bytes.len() / 8));
+        for _ in 0..cells {
+            shortfall_histogram.push(read!(u64));
+        }
+    } else {
+        take(cells.checked_mul(8).ok_or("a record's histogram length overflows")?)?;
     }
     let n_years = read!(u64) as usize;
-    let mut years = Vec::with_capacity(n_years.min(bytes.len() / 16));
-    for _ in 0..n_years {
-        years.push(Year {
-            loss: read!(f64),
-            principal_outstanding: read!(f64),
-        });
+    let mut years = Vec::new();
+    if whole {
+        years.reserve(n_years.min(bytes.len() / 16));
+        for _ in 0..n_years {
+            years.push(Year {
+                loss: read!(f64),
+                principal_outstanding: read!(f64),
+            });
+        }
+    } else {
+        take(n_years.checked_mul(16).ok_or("a record's years length overflows")?)?;
     }
     let n_cycles = read!(u64) as usize;
-    let mut cycles = Vec::with_capacity(n_cycles.min(bytes.len() / 36));
-    for _ in 0..n_cycles {
+    let mut cycles = Vec::with_capacity(if whole { n_cycles.min(bytes.len() / 36) } else { 0 });
+    if !whole {
+        take(n_cycles.checked_mul(36).ok_or("a record's cycles length overflows")?)?;
+    }
+    for _ in 0..if whole { n_cycles } else { 0 } {
         cycles.push(CycleRecord {
             served: read!(u32),
             excluded: read!(u32),
@@ -712,6 +752,14 @@ mod tests {
             // -0.0 == 0.0, so the bits are compared as well
             assert_eq!(back.recovered.to_bits(), t.recovered.to_bits());
             assert!(decode(&bytes[..bytes.len() - 1]).is_err());
+            // the numbers alone: the same record without its histogram, years and cycles
+            let numbers = decode_parts(&bytes, Parts::Numbers).unwrap();
+            let mut expected = t.clone();
+            expected.shortfall_histogram.clear();
+            expected.years.clear();
+            expected.cycles.clear();
+            assert_eq!(numbers, expected);
+            assert!(decode_parts(&bytes[..bytes.len() - 1], Parts::Numbers).is_err());
         }
     }
 

@@ -183,16 +183,22 @@ fn fraction(num: f64, den: f64) -> Option<f64> {
 /// Summarises one arm with groups of `group_size`.
 pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
     let reps = &tally.replications;
-    // every count and amount in one pass (the replications may be read back from disk)
-    let counts = crate::stats::tally::totals(reps.iter());
+    // every count and amount in one pass (the replications may be read back from disk; the passes
+    // here read numbers only, never a histogram or years)
+    let counts = crate::stats::tally::totals(reps.iter_numbers());
     let sum_u = |f: fn(&crate::stats::ReplicationTally) -> u64| f(&counts);
     let sum_f = |f: fn(&crate::stats::ReplicationTally) -> f64| f(&counts);
     let group_cycles = sum_u(|r| r.group_cycles);
     let member_loans = sum_u(|r| r.member_loans);
     let k = f64::from(group_size);
-    let group_repayment =
-        estimate::ratio(reps.iter().map(|r| (r.groups_repaid as f64, r.group_cycles as f64))).map(Interval::from);
-    let loss_rate = estimate::ratio(reps.iter().map(|r| (r.loss, r.disbursed))).map(Interval::from);
+    // Ratios read the replications twice rather than hold a pair per replication (flat memory).
+    let group_repayment = estimate::ratio_in_passes(|| {
+        reps.iter_numbers()
+            .map(|r| (r.groups_repaid as f64, r.group_cycles as f64))
+    })
+    .map(Interval::from);
+    let loss_rate =
+        estimate::ratio_in_passes(|| reps.iter_numbers().map(|r| (r.loss, r.disbursed))).map(Interval::from);
     let member_shortfall_rate = share(sum_u(|r| r.member_shortfalls), member_loans);
     let shortfall_free_group_rate = share(sum_u(|r| r.shortfall_free_groups), group_cycles);
     let by_size = sizes_vary(tally).then(|| pooled_by_size(tally));
@@ -224,9 +230,13 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
     let disbursed = sum_f(|r| r.disbursed);
     let recovered = sum_f(|r| r.recovered);
     let slot_cycles: u64 = counts.slot_cycles();
-    let rep_losses: Vec<f64> = reps.iter().filter_map(|r| r.loss_rate()).collect();
-    let rep_losses = estimate::sorted_owned(rep_losses);
-    let horizon_ci = |q: f64| estimate::quantile_interval_sorted(&rep_losses, q).unzip();
+    // Quantiles over replications from passes over them, not a sorted copy (flat memory).
+    let rep_losses = estimate::PassQuantiles::new(
+        || reps.iter_numbers().filter_map(|r| r.loss_rate()),
+        &[0.5, 0.95, 0.99, 0.999],
+        Some(0.99),
+    );
+    let horizon_ci = |q: f64| rep_losses.interval(q).unzip();
     // The per-cycle loss quantiles read the top of all replication-cycles that lent, which the
     // arm's tail holds (largest first).
     let tail = tally.cycle_tail.descending();
@@ -239,18 +249,19 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
         for e in tail.iter().take_while(|e| e.loss_rate > x) {
             *above.entry(e.replication).or_default() += 1;
         }
-        reps.iter()
-            .map(|r| {
-                let lent = r.lent_cycles;
-                let over = above.get(&r.replication).copied().unwrap_or(0);
-                (f64::from(lent - over), f64::from(lent))
-            })
-            .collect()
+        reps.iter_numbers().map(move |r| {
+            let lent = r.lent_cycles;
+            let over = above.get(&r.replication).copied().unwrap_or(0);
+            (f64::from(lent - over), f64::from(lent))
+        })
     };
     let cycle_ci = |q: f64| estimate::clustered_quantile_interval(lent_cycles, q, cycle_at, cycle_counts).unzip();
-    let worst: Vec<f64> = reps.iter().filter_map(|r| r.worst_cycle_loss).collect();
-    let worst = estimate::sorted_owned(worst);
-    let worst_ci = |q: f64| estimate::quantile_interval_sorted(&worst, q).unzip();
+    let worst = estimate::PassQuantiles::new(
+        || reps.iter_numbers().filter_map(|r| r.worst_cycle_loss),
+        &[0.5, 0.95, 0.99],
+        None,
+    );
+    let worst_ci = |q: f64| worst.interval(q).unzip();
     let (loss_p50_ci_low, loss_p50_ci_high) = horizon_ci(0.5);
     let (loss_p95_ci_low, loss_p95_ci_high) = horizon_ci(0.95);
     let (loss_p99_ci_low, loss_p99_ci_high) = horizon_ci(0.99);
@@ -262,7 +273,7 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
     let (worst_cycle_loss_p99_ci_low, worst_cycle_loss_p99_ci_high) = worst_ci(0.99);
     ArmSummary {
         replications: reps.len() as u64,
-        replications_without_lending: reps.iter().filter(|r| r.loss_rate().is_none()).count() as u64,
+        replications_without_lending: reps.iter_numbers().filter(|r| r.loss_rate().is_none()).count() as u64,
         group_cycles,
         group_repayment,
         member_loans,
@@ -290,16 +301,16 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
         excluded_share: share(sum_u(|r| r.excluded_slot_cycles), slot_cycles),
         waiting_share: share(sum_u(|r| r.waiting_slot_cycles), slot_cycles),
         empty_share: share(sum_u(|r| r.empty_slot_cycles), slot_cycles),
-        loss_p50: estimate::quantile_sorted(&rep_losses, 0.5),
-        loss_p95: estimate::quantile_sorted(&rep_losses, 0.95),
-        loss_p99: estimate::quantile_sorted(&rep_losses, 0.99),
-        loss_p999: estimate::quantile_sorted(&rep_losses, 0.999),
-        loss_es99: estimate::expected_shortfall_sorted(&rep_losses, 0.99),
+        loss_p50: rep_losses.quantile(0.5),
+        loss_p95: rep_losses.quantile(0.95),
+        loss_p99: rep_losses.quantile(0.99),
+        loss_p999: rep_losses.quantile(0.999),
+        loss_es99: rep_losses.expected_shortfall(),
         loss_cycle_p99: estimate::quantile_of_ranked(lent_cycles, 0.99, cycle_at),
         loss_cycle_p999: estimate::quantile_of_ranked(lent_cycles, 0.999, cycle_at),
-        worst_cycle_loss_p50: estimate::quantile_sorted(&worst, 0.5),
-        worst_cycle_loss_p95: estimate::quantile_sorted(&worst, 0.95),
-        worst_cycle_loss_p99: estimate::quantile_sorted(&worst, 0.99),
+        worst_cycle_loss_p50: worst.quantile(0.5),
+        worst_cycle_loss_p95: worst.quantile(0.95),
+        worst_cycle_loss_p99: worst.quantile(0.99),
         shortfall_icc: match &by_size {
             Some(rows) => mixed_size_icc(rows),
             None => shortfall_icc(tally, group_size),
@@ -328,10 +339,10 @@ pub fn summarize_arm(tally: &ArmTally, group_size: u32) -> ArmSummary {
         worst_cycle_loss_p95_ci_high,
         worst_cycle_loss_p99_ci_low,
         worst_cycle_loss_p99_ci_high,
-        strategic_default_rate: estimate::ratio(
-            reps.iter()
-                .map(|r| (r.strategic_defaults as f64, r.able_members as f64)),
-        )
+        strategic_default_rate: estimate::ratio_in_passes(|| {
+            reps.iter_numbers()
+                .map(|r| (r.strategic_defaults as f64, r.able_members as f64))
+        })
         .map(Interval::from),
         able_members: sum_u(|r| r.able_members),
         mean_principal: fraction(disbursed, member_loans as f64),
