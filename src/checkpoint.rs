@@ -268,6 +268,40 @@ fn io(action: &'static str, path: &Path) -> impl FnOnce(std::io::Error) -> Check
 /// Reads a tally file. A last line without its newline (a write cut short) is ignored; any other
 /// damaged line is refused, naming it.
 pub fn read(path: &Path) -> Result<TallyFile, CheckpointError> {
+    read_spilling(path, None)
+}
+
+/// Reads only the header line of a tally file (the checks of [`read`] on it).
+pub fn read_header(path: &Path) -> Result<Header, CheckpointError> {
+    let file = std::fs::File::open(path).map_err(io("read", path))?;
+    let mut reader = std::io::BufReader::new(file);
+    Ok(header_line(path, &mut reader, &mut String::new())?.0)
+}
+
+/// The header line of the tally file `path` read through `reader`, and its length in bytes.
+fn header_line(path: &Path, reader: &mut impl BufRead, buf: &mut String) -> Result<(Header, u64), CheckpointError> {
+    let malformed = |line: usize, reason: String| CheckpointError::Malformed {
+        path: path.display().to_string(),
+        line,
+        reason,
+    };
+    let n = reader.read_line(buf).map_err(io("read", path))?;
+    if n == 0 || !buf.ends_with('\n') {
+        return Err(malformed(1, "no header line: not a loancycle tally file".to_string()));
+    }
+    let value: serde_json::Value =
+        serde_json::from_str(buf).map_err(|e| malformed(1, format!("not a loancycle tally file ({e})")))?;
+    if value.get("format").and_then(|f| f.as_str()) != Some(FORMAT) {
+        return Err(malformed(1, format!("not a tally file of format {FORMAT}")));
+    }
+    let header: Header = serde_json::from_value(value).map_err(|e| malformed(1, format!("a damaged header ({e})")))?;
+    Ok((header, n as u64))
+}
+
+/// As [`read`], keeping the replications read beyond the last 1,024 of each arm in unnamed files
+/// in `spill` when given (`stats::replication_list`), so that reading a large checkpoint or shard
+/// holds a batch and not the whole file.
+pub fn read_spilling(path: &Path, spill: Option<&Path>) -> Result<TallyFile, CheckpointError> {
     let file = std::fs::File::open(path).map_err(io("read", path))?;
     let mut reader = std::io::BufReader::new(file);
     let malformed = |line: usize, reason: String| CheckpointError::Malformed {
@@ -276,18 +310,8 @@ pub fn read(path: &Path) -> Result<TallyFile, CheckpointError> {
         reason,
     };
     let mut buf = String::new();
-    let mut valid_bytes = 0u64;
-    let n = reader.read_line(&mut buf).map_err(io("read", path))?;
-    if n == 0 || !buf.ends_with('\n') {
-        return Err(malformed(1, "no header line: not a loancycle tally file".to_string()));
-    }
-    let value: serde_json::Value =
-        serde_json::from_str(&buf).map_err(|e| malformed(1, format!("not a loancycle tally file ({e})")))?;
-    if value.get("format").and_then(|f| f.as_str()) != Some(FORMAT) {
-        return Err(malformed(1, format!("not a tally file of format {FORMAT}")));
-    }
-    let header: Header = serde_json::from_value(value).map_err(|e| malformed(1, format!("a damaged header ({e})")))?;
-    valid_bytes += n as u64;
+    let (header, header_bytes) = header_line(path, &mut reader, &mut buf)?;
+    let mut valid_bytes = header_bytes;
     let arms = header
         .scenario
         .get("arms")
@@ -327,6 +351,11 @@ pub fn read(path: &Path) -> Result<TallyFile, CheckpointError> {
         if done_until == header.first {
             // the first batch sets the tallies' year and tail size
             tallies = batch.arms.iter().map(ArmTally::empty_like).collect();
+            if let Some(dir) = spill {
+                for t in &mut tallies {
+                    t.replications.spill_to(dir);
+                }
+            }
         }
         for (tally, part) in tallies.iter_mut().zip(batch.arms) {
             tally
@@ -438,8 +467,14 @@ pub enum OpenError {
 
 /// Opens the checkpoint at `path` for a run described by `header`. A fresh run starts a new file;
 /// with `resume` the existing file must belong to the same run (same version, resolved scenario,
-/// baseline, shard and range), and its finished replications are returned to continue from.
-pub fn open(path: &Path, header: &Header, resume: bool) -> Result<(Writer, Vec<ArmTally>), OpenError> {
+/// baseline, shard and range), and its finished replications are returned to continue from (kept
+/// on disk in `spill` beyond the last 1,024 of each arm, when given).
+pub fn open(
+    path: &Path,
+    header: &Header,
+    resume: bool,
+    spill: Option<&Path>,
+) -> Result<(Writer, Vec<ArmTally>), OpenError> {
     if !resume {
         return Ok((Writer::create(path, header)?, Vec::new()));
     }
@@ -449,7 +484,7 @@ pub fn open(path: &Path, header: &Header, resume: bool) -> Result<(Writer, Vec<A
             path.display()
         )));
     }
-    let found = read(path).map_err(|e| match e {
+    let found = read_spilling(path, spill).map_err(|e| match e {
         CheckpointError::Malformed { .. } => OpenError::Refused(format!("--resume: {e}")),
         other => OpenError::Failed(other),
     })?;

@@ -666,8 +666,8 @@ fn execute(command: Command) -> Result<(), Failure> {
                 })?;
             }
             let header = loancycle::checkpoint::Header::new(&scenario, &text, &origin, baseline, shard, range.clone());
-            let (mut writer, already) =
-                loancycle::checkpoint::open(&checkpoint_path, &header, resume).map_err(|e| {
+            let (mut writer, already) = loancycle::checkpoint::open(&checkpoint_path, &header, resume, Some(&out))
+                .map_err(|e| {
                     output::abandon_destination(&out, created);
                     match e {
                         loancycle::checkpoint::OpenError::Refused(m) => Failure::BadInput(m),
@@ -858,7 +858,10 @@ fn execute(command: Command) -> Result<(), Failure> {
             force,
             report: with_report,
         } => {
-            let merged = loancycle::shard::merge(&dirs).map_err(Failure::BadInput)?;
+            // Replications beyond the last 1,024 of each arm wait in unnamed files beside the first
+            // shard (the output directory is only made once the merge is known to succeed).
+            let merged =
+                loancycle::shard::merge(&dirs, dirs.first().map(PathBuf::as_path)).map_err(Failure::BadInput)?;
             for w in merged.scenario.warnings() {
                 eprintln!("warning: {}: {w}", merged.origin);
             }

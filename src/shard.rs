@@ -7,7 +7,7 @@
 //! order. The merged figures agree with an unsharded run to the last bit. A shard's file is a complete tally file (see `checkpoint`),
 //! written as the shard's checkpoint while it runs and renamed to its final name when done.
 
-use crate::checkpoint::{self, Header, ShardId, TallyFile};
+use crate::checkpoint::{self, Header, ShardId};
 use crate::run::RunResults;
 use crate::scenario::Scenario;
 use crate::stats::ArmTally;
@@ -73,8 +73,13 @@ pub struct Merged {
 /// file: unreadable or damaged files, shards of another version, scenario (resolved, after
 /// `--seed` and `--replications`) or shard count, duplicate and missing shards, and incomplete
 /// shards.
-pub fn merge(dirs: &[PathBuf]) -> Result<Merged, String> {
-    let mut found: Vec<(PathBuf, TallyFile)> = Vec::new();
+///
+/// The headers are checked first; then the shards are read one at a time, in shard order, and
+/// merged as each is read. Replications beyond the last 1,024 of each arm wait in unnamed files in
+/// `spill` when given (`stats::replication_list`), so merging many shards holds one shard's batch
+/// at a time, not every shard.
+pub fn merge(dirs: &[PathBuf], spill: Option<&Path>) -> Result<Merged, String> {
+    let mut found: Vec<(PathBuf, Header)> = Vec::new();
     for dir in dirs {
         let entries = std::fs::read_dir(dir).map_err(|e| {
             format!(
@@ -97,21 +102,20 @@ pub fn merge(dirs: &[PathBuf]) -> Result<Merged, String> {
         names.sort();
         for name in names {
             let path = dir.join(&name);
-            let file = checkpoint::read(&path).map_err(|e| e.to_string())?;
-            found.push((path, file));
+            let header = checkpoint::read_header(&path).map_err(|e| e.to_string())?;
+            found.push((path, header));
         }
     }
     let (first_path, first) = &found[0];
-    let shard_of = |path: &Path, f: &TallyFile| {
-        f.header
-            .shard
+    let shard_of = |path: &Path, h: &Header| {
+        h.shard
             .ok_or_else(|| format!("{}: not a shard (a whole run's checkpoint)", path.display()))
     };
     let count = shard_of(first_path, first)?.count;
     let mut slots: Vec<Option<usize>> = vec![None; count as usize];
     for (i, (path, file)) in found.iter().enumerate() {
         let shard = shard_of(path, file)?;
-        if let Some(why) = first.header.mismatch(&file.header) {
+        if let Some(why) = first.mismatch(file) {
             return Err(format!(
                 "{} does not belong with {}: {why}",
                 path.display(),
@@ -127,25 +131,16 @@ pub fn merge(dirs: &[PathBuf]) -> Result<Merged, String> {
                 first_path.display()
             ));
         }
-        let expected = range(shard.index, count, file.header.replications);
-        if (file.header.first..file.header.end) != expected {
+        let expected = range(shard.index, count, file.replications);
+        if (file.first..file.end) != expected {
             return Err(format!(
                 "{}: shard {}/{count} covers replications {}..{}, expected {}..{}",
                 path.display(),
                 shard.index,
-                file.header.first + 1,
-                file.header.end,
+                file.first + 1,
+                file.end,
                 expected.start + 1,
                 expected.end
-            ));
-        }
-        if !file.complete() {
-            return Err(format!(
-                "{}: shard {}/{count} is incomplete ({} of its {} replications)",
-                path.display(),
-                shard.index,
-                file.done_until - file.header.first,
-                file.header.end - file.header.first
             ));
         }
         let slot = &mut slots[shard.index as usize - 1];
@@ -172,22 +167,33 @@ pub fn merge(dirs: &[PathBuf]) -> Result<Merged, String> {
             missing.join(", ")
         ));
     }
-    let scenario = first
-        .header
-        .scenario()
-        .map_err(|e| format!("{}: {e}", first_path.display()))?;
+    let scenario = first.scenario().map_err(|e| format!("{}: {e}", first_path.display()))?;
     let mut arms = vec![ArmTally::for_scenario(&scenario); scenario.arms().len()];
+    if let Some(dir) = spill {
+        for arm in &mut arms {
+            arm.replications.spill_to(dir);
+        }
+    }
     let mut files = Vec::new();
     for i in slots.into_iter().flatten() {
-        let (path, file) = &found[i];
-        for (arm, tally) in arms.iter_mut().zip(&file.arms) {
+        let (path, header) = &found[i];
+        let file = checkpoint::read_spilling(path, spill).map_err(|e| e.to_string())?;
+        if !file.complete() {
+            return Err(format!(
+                "{}: shard {}/{count} is incomplete ({} of its {} replications)",
+                path.display(),
+                header.shard.map_or(0, |s| s.index),
+                file.done_until - header.first,
+                header.end - header.first
+            ));
+        }
+        for (arm, tally) in arms.iter_mut().zip(file.arms) {
             // Shards are taken in order and hold consecutive blocks: this only appends.
-            arm.merge(tally.clone())
-                .map_err(|e| format!("{}: {e}", path.display()))?;
+            arm.merge(tally).map_err(|e| format!("{}: {e}", path.display()))?;
         }
         files.push(path.clone());
     }
-    let header: &Header = &first.header;
+    let header: &Header = first;
     Ok(Merged {
         text: header.scenario_text.clone(),
         origin: header.scenario_origin.clone(),

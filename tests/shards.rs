@@ -150,6 +150,41 @@ fn merged_shards_are_byte_identical_to_one_run() {
     }
 }
 
+/// Shards of more than 1,024 replications are read back and merged through files of replications
+/// kept on disk (`stats::replication_list`), one shard at a time: the merge still writes every
+/// file of one run, byte for byte, and leaves nothing beside the shards.
+#[test]
+fn shards_merged_through_replications_on_disk_are_byte_identical_to_one_run() {
+    let tmp = tempfile::tempdir().unwrap();
+    let full = tmp.path().join("full");
+    ok(&["run", TINY, "--replications", "2600", "--out", s(&full), "--quiet"]);
+    let parts = tmp.path().join("parts");
+    for i in 1..=2 {
+        let shard = format!("{i}/2");
+        ok(&[
+            "run",
+            TINY,
+            "--replications",
+            "2600",
+            "--shard",
+            &shard,
+            "--out",
+            s(&parts),
+            "--quiet",
+        ]);
+    }
+    let merged = tmp.path().join("merged");
+    ok(&["merge", s(&parts), "--out", s(&merged), "--quiet"]);
+    assert_eq!(files(&merged), files(&full));
+    for name in files(&full) {
+        assert!(
+            std::fs::read(full.join(&name)).unwrap() == std::fs::read(merged.join(&name)).unwrap(),
+            "{name} differs between the merged shards and one run"
+        );
+    }
+    assert_eq!(files(&parts), ["shard-1-of-2.jsonl", "shard-2-of-2.jsonl"]);
+}
+
 /// Missing, duplicate and incomplete shards, other shard counts, versions and scenarios are each
 /// refused with a message saying which.
 #[test]

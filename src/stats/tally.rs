@@ -485,7 +485,19 @@ impl ArmTally {
             (Some(last), Some(first)) => first.replication > last,
             _ => true,
         };
-        if follows {
+        if follows && other.replications.on_disk() > 0 {
+            // the next shard, or a checkpoint read back, with replications on disk: they are read
+            // in order and moved to this list's own file as they come, never held all at once
+            for r in other.replications.iter() {
+                self.replications.append(r.into_owned());
+                if let Err(e) = self.replications.flush() {
+                    return Err(MergeError::Spill(e.to_string()));
+                }
+            }
+            if let Some(e) = other.replications.read_failure() {
+                return Err(MergeError::Spill(e.to_string()));
+            }
+        } else if follows {
             // the usual case (a batch, the next shard): appending keeps the order, and the
             // replications move rather than being copied
             for r in other.replications.take_all() {
