@@ -53,13 +53,18 @@ fn files(dir: &Path) -> Vec<String> {
 /// Shards of the tiny scenario at 7 replications, `count` of them into `dir` (one directory for all,
 /// as array tasks sharing a directory write them).
 fn shards(dir: &Path, scenario: &str, count: u32, extra: &[&str]) {
+    shards_of(dir, scenario, "7", count, extra);
+}
+
+/// As [`shards`], at `replications` replications.
+fn shards_of(dir: &Path, scenario: &str, replications: &str, count: u32, extra: &[&str]) {
     for i in 1..=count {
         let shard = format!("{i}/{count}");
         let mut args = vec![
             "run",
             scenario,
             "--replications",
-            "7",
+            replications,
             "--shard",
             &shard,
             "--out",
@@ -159,20 +164,7 @@ fn shards_merged_through_replications_on_disk_are_byte_identical_to_one_run() {
     let full = tmp.path().join("full");
     ok(&["run", TINY, "--replications", "2600", "--out", s(&full), "--quiet"]);
     let parts = tmp.path().join("parts");
-    for i in 1..=2 {
-        let shard = format!("{i}/2");
-        ok(&[
-            "run",
-            TINY,
-            "--replications",
-            "2600",
-            "--shard",
-            &shard,
-            "--out",
-            s(&parts),
-            "--quiet",
-        ]);
-    }
+    shards_of(&parts, TINY, "2600", 2, &[]);
     let merged = tmp.path().join("merged");
     ok(&["merge", s(&parts), "--out", s(&merged), "--quiet"]);
     assert_eq!(files(&merged), files(&full));

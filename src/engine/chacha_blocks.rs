@@ -65,8 +65,14 @@ fn block(input: &[u32; 16], counter: u64) -> [u32; 16] {
     let mut start = *input;
     start[12] = counter as u32;
     start[13] = (counter >> 32) as u32;
+    block_function(start, DOUBLE_ROUNDS)
+}
+
+/// ChaCha's block function of `double_rounds` double rounds on the state `start`: the rounds, then
+/// the start added word by word.
+fn block_function(start: [u32; 16], double_rounds: usize) -> [u32; 16] {
     let mut x = start;
-    for _ in 0..DOUBLE_ROUNDS {
+    for _ in 0..double_rounds {
         quarter_round(&mut x, 0, 4, 8, 12);
         quarter_round(&mut x, 1, 5, 9, 13);
         quarter_round(&mut x, 2, 6, 10, 14);
@@ -287,20 +293,7 @@ mod tests {
         state[13] = 0x0900_0000;
         state[14] = 0x4a00_0000;
         state[15] = 0;
-        let mut x = state;
-        for _ in 0..10 {
-            quarter_round(&mut x, 0, 4, 8, 12);
-            quarter_round(&mut x, 1, 5, 9, 13);
-            quarter_round(&mut x, 2, 6, 10, 14);
-            quarter_round(&mut x, 3, 7, 11, 15);
-            quarter_round(&mut x, 0, 5, 10, 15);
-            quarter_round(&mut x, 1, 6, 11, 12);
-            quarter_round(&mut x, 2, 7, 8, 13);
-            quarter_round(&mut x, 3, 4, 9, 14);
-        }
-        for (word, s) in x.iter_mut().zip(state) {
-            *word = word.wrapping_add(s);
-        }
+        let x = block_function(state, 10);
         let expected: [u32; 16] = [
             0xe4e7f110, 0x15593bd1, 0x1fdd0f50, 0xc47120a3, 0xc7f4d1c7, 0x0368c033, 0x9aaa2204, 0x4e6cd4c3, 0x466482d2,
             0x09aa9f07, 0x05d7c214, 0xa2028bd9, 0xd19c12b5, 0xb94e16de, 0xe883d0cb, 0x4e3c50a2,

@@ -2,7 +2,8 @@
 //! the best.
 //!
 //! Both rest on one estimator, the difference of two pooled ratios paired by replication with its
-//! delta-method standard error ([`estimate::paired_ratio_difference`]). Keeping them together means
+//! delta-method standard error ([`estimate::paired_in_passes`], of which
+//! [`estimate::paired_ratio_difference`] is the one-figure form). Keeping them together means
 //! a figure ranked here and the same figure in differences.csv can never disagree in how they weigh
 //! replications. All arms of a replication see the same draws, so pairing removes the shared noise.
 
@@ -91,110 +92,24 @@ pub fn paired(a: &ArmTally, b: &ArmTally, metric: Metric) -> Option<RatioEstimat
     figure.map(|f| f.difference)
 }
 
-/// One figure of [`paired_figures`].
-#[derive(Debug, Clone, Copy, PartialEq)]
-struct PairedFigure {
-    /// R_a - R_b, as [`estimate::paired_ratio_difference`] gives it.
-    difference: RatioEstimate,
-    /// The standard error of each arm's pooled figure on its own ([`estimate::ratio`]).
-    own_se: (Option<f64>, Option<f64>),
-}
-
-/// Arm `a` against arm `b` on every figure of `metrics`, paired by replication: the paired
-/// difference and each arm's own standard error, bit for bit what [`estimate::paired_ratio_difference`]
-/// and [`estimate::ratio`] give on the collected (numerator, denominator) pairs, every sum formed in
-/// the same order from the same start. It reads the two arms' replications side by side in three
-/// passes, whatever the number of figures, and keeps no value per replication: the replications
-/// may wait on disk (flat memory), and one pass decodes each replication once for all figures.
-/// `None` for a figure where either pooled denominator is zero, and for every figure when the arms
-/// differ in replications or have none.
-fn paired_figures<const M: usize>(a: &ArmTally, b: &ArmTally, metrics: &[Metric; M]) -> [Option<PairedFigure>; M] {
-    /// Sums over one arm's pairs for one figure.
-    #[derive(Clone, Copy)]
-    struct Side {
-        x: f64,
-        y: f64,
-        /// sum of y as `Iterator::sum` forms it (from -0.0), for the mean denominator
-        y_sum: f64,
-        /// sum of squared residuals against the pooled rate
-        ss: f64,
+/// Arm `a` against arm `b` on every figure of `metrics`, paired by replication, in three passes
+/// over the two arms' replications side by side whatever the number of figures
+/// ([`estimate::paired_in_passes`]): the replications may wait on disk, and no value per
+/// replication is held. `None` for a figure where either pooled denominator is zero, and for every
+/// figure when the arms differ in replications or have none.
+fn paired_figures<const M: usize>(
+    a: &ArmTally,
+    b: &ArmTally,
+    metrics: &[Metric; M],
+) -> [Option<estimate::PairedEstimate>; M] {
+    if a.replications.len() != b.replications.len() {
+        return [None; M];
     }
-    let none = [None; M];
-    let side = Side {
-        x: 0.0,
-        y: 0.0,
-        y_sum: -0.0,
-        ss: -0.0,
-    };
-    let mut sides = [(side, side); M];
-    // pass 1: the pooled sums
-    let (mut ia, mut ib) = (a.replications.iter_numbers(), b.replications.iter_numbers());
-    let mut n = 0usize;
-    loop {
-        match (ia.next(), ib.next()) {
-            (Some(ra), Some(rb)) => {
-                n += 1;
-                for (metric, (sa, sb)) in metrics.iter().zip(&mut sides) {
-                    for (s, (x, y)) in [(sa, metric.1(&ra)), (sb, metric.1(&rb))] {
-                        s.x += x;
-                        s.y += y;
-                        s.y_sum += y;
-                    }
-                }
-            }
-            (None, None) => break,
-            _ => return none,
-        }
-    }
-    if n == 0 {
-        return none;
-    }
-    let nf = n as f64;
-    // per figure: (rate a, rate b, mean y a, mean y b) where both pooled denominators are nonzero
-    let rates: [Option<(f64, f64, f64, f64)>; M] = std::array::from_fn(|m| {
-        let (sa, sb) = sides[m];
-        (sa.y != 0.0 && sb.y != 0.0).then(|| (sa.x / sa.y, sb.x / sb.y, sa.y_sum / nf, sb.y_sum / nf))
-    });
-    // pass 2: each arm's squared residuals, and the sum of the paired terms z
-    let z = |m: usize, pa: (f64, f64), pb: (f64, f64)| {
-        rates[m].map(|(ra, rb, ya, yb)| (pa.0 - ra * pa.1) / ya - (pb.0 - rb * pb.1) / yb)
-    };
-    let mut z_sums = [-0.0f64; M];
-    for (ra, rb) in a.replications.iter_numbers().zip(b.replications.iter_numbers()) {
-        for (m, metric) in metrics.iter().enumerate() {
-            let Some((rate_a, rate_b, _, _)) = rates[m] else {
-                continue;
-            };
-            let (pa, pb) = (metric.1(&ra), metric.1(&rb));
-            sides[m].0.ss += (pa.0 - rate_a * pa.1).powi(2);
-            sides[m].1.ss += (pb.0 - rate_b * pb.1).powi(2);
-            z_sums[m] += z(m, pa, pb).unwrap_or(0.0);
-        }
-    }
-    // pass 3: the spread of z about its mean
-    let means: [f64; M] = std::array::from_fn(|m| z_sums[m] / nf);
-    let mut z_ss = [-0.0f64; M];
-    if n >= 2 {
-        for (ra, rb) in a.replications.iter_numbers().zip(b.replications.iter_numbers()) {
-            for (m, metric) in metrics.iter().enumerate() {
-                if let Some(zm) = z(m, metric.1(&ra), metric.1(&rb)) {
-                    z_ss[m] += (zm - means[m]).powi(2);
-                }
-            }
-        }
-    }
-    std::array::from_fn(|m| {
-        let (rate_a, rate_b, _, _) = rates[m]?;
-        let (sa, sb) = sides[m];
-        // as estimate::ratio: its ybar is the fold's sum over n
-        let own = |s: Side| (n >= 2).then(|| (s.ss / (nf * (nf - 1.0))).sqrt() / (s.y / nf));
-        Some(PairedFigure {
-            difference: RatioEstimate {
-                rate: rate_a - rate_b,
-                standard_error: (n >= 2).then(|| (z_ss[m] / (nf - 1.0) / nf).sqrt()),
-            },
-            own_se: (own(sa), own(sb)),
-        })
+    estimate::paired_in_passes(|| {
+        a.replications
+            .iter_numbers()
+            .zip(b.replications.iter_numbers())
+            .map(|(ra, rb)| std::array::from_fn(|m| (metrics[m].1(&ra), metrics[m].1(&rb))))
     })
 }
 
@@ -218,7 +133,7 @@ fn pair_rows(arm: &ComparedArm, base: &ComparedArm) -> Vec<ArmDifference> {
     let mut out = Vec::new();
     let figures = paired_figures(arm.tally, base.tally, &COMPARED);
     for (metric, figure) in COMPARED.into_iter().zip(figures) {
-        if let Some(PairedFigure { difference: d, own_se }) = figure {
+        if let Some(estimate::PairedEstimate { difference: d, own_se }) = figure {
             let unpaired = match own_se {
                 (Some(a), Some(b)) => Some((a * a + b * b).sqrt()),
                 _ => None,
@@ -457,9 +372,10 @@ mod tests {
         t
     }
 
-    /// The three passes give bit for bit what the estimators give on collected pairs.
+    /// The figures of two arms, read from their replications all at once, are each what the
+    /// estimators give on that figure's collected pairs.
     #[test]
-    fn paired_passes_equal_the_estimators_on_collected_pairs() {
+    fn paired_figures_equal_the_estimators_on_collected_pairs() {
         let collected =
             |t: &ArmTally, metric: Metric| -> Vec<(f64, f64)> { t.replications.iter().map(|r| metric.1(&r)).collect() };
         let bits = |e: Option<RatioEstimate>| e.map(|e| (e.rate.to_bits(), e.standard_error.map(f64::to_bits)));

@@ -571,37 +571,37 @@ fn decode_parts(bytes: &[u8], parts: Parts) -> Result<ReplicationTally, String> 
     }
     let has_worst = take(1)?[0] != 0;
     let worst = read!(f64);
-    let cells = read!(u64) as usize;
-    // lengths are checked against what is left before anything is reserved for them
-    let mut shortfall_histogram = Vec::new();
-    if whole {
-        shortfall_histogram.reserve(cells.min(bytes.len() / 8));
-        for _ in 0..cells {
-            shortfall_histogram.push(read!(u64));
+    // A list part: `count` items of `size` bytes, each read by `item`, or skipped (left empty)
+    // when only the numbers are wanted. Lengths are checked against what is left before anything
+    // is reserved for them.
+    macro_rules! list {
+        ($count:expr, $size:expr, $item:expr) => {{
+            let count = $count;
+            let mut list = Vec::new();
+            if whole {
+                list.reserve(count.min(bytes.len() / $size));
+                for _ in 0..count {
+                    list.push($item);
+                }
+            } else {
+                take(count.checked_mul($size).ok_or("a record's list length overflows")?)?;
+            }
+            list
+        }};
+    }
+    let shortfall_histogram = list!(read!(u64) as usize, 8, read!(u64));
+    let years = list!(
+        read!(u64) as usize,
+        16,
+        Year {
+            loss: read!(f64),
+            principal_outstanding: read!(f64),
         }
-    } else {
-        take(cells.checked_mul(8).ok_or("a record's histogram length overflows")?)?;
-    }
-    let n_years = read!(u64) as usize;
-    let mut years = Vec::new();
-    if whole {
-        years.reserve(n_years.min(bytes.len() / 16));
-        for _ in 0..n_years {
-            years.push(Year {
-                loss: read!(f64),
-                principal_outstanding: read!(f64),
-            });
-        }
-    } else {
-        take(n_years.checked_mul(16).ok_or("a record's years length overflows")?)?;
-    }
-    let n_cycles = read!(u64) as usize;
-    let mut cycles = Vec::with_capacity(if whole { n_cycles.min(bytes.len() / 36) } else { 0 });
-    if !whole {
-        take(n_cycles.checked_mul(36).ok_or("a record's cycles length overflows")?)?;
-    }
-    for _ in 0..if whole { n_cycles } else { 0 } {
-        cycles.push(CycleRecord {
+    );
+    let cycles = list!(
+        read!(u64) as usize,
+        36,
+        CycleRecord {
             served: read!(u32),
             excluded: read!(u32),
             groups: read!(u32),
@@ -609,8 +609,8 @@ fn decode_parts(bytes: &[u8], parts: Parts) -> Result<ReplicationTally, String> 
             shortfalls: read!(u32),
             loss: read!(f64),
             disbursed: read!(f64),
-        });
-    }
+        }
+    );
     let [
         group_cycles,
         groups_repaid,
